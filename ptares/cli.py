@@ -1,0 +1,112 @@
+"""The ``ptares`` command line: a thin shell over the Python API.
+
+Mistakes in what the user gave (a config key, a file) print one line and exit
+with status 2; nothing is written for a run that fails its checks.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from . import __version__
+from .errors import InputError
+
+__all__ = ["main"]
+
+
+def _summary(config) -> str:
+    """A short description of what a config will simulate."""
+    from .array import build_array, observe
+    from .simulate import run_seed
+    from .signals import build_components
+
+    seed = run_seed(config)
+    pulsars = build_array(config, seed)
+    observations = observe(pulsars, seed)
+    counts = [m.size for m in observations.mjd]
+    lines = [
+        f"run        {config.run.name} (seed {config.run.seed if config.run.seed is not None else 'fresh each run'})",
+        f"pulsars    {len(pulsars)} ({'random isotropic' if config.array.random else 'listed'})",
+        f"TOAs       {sum(counts)} in all, {min(counts)} to {max(counts)} per pulsar",
+        f"span       {observations.span / 86400 / 365.25:.2f} yr from MJD {observations.start:.1f}",
+        f"timing fit {', '.join(config.timing_model.fit) or 'none'}",
+    ]
+    for component in build_components(config, pulsars):
+        if component.name == "white":
+            lines.append("signal     white noise")
+        elif component.name == "red":
+            n = sum(p.red_amplitude > 0 for p in pulsars)
+            lines.append(f"signal     red noise in {n} pulsars, {component.components} frequencies")
+        elif component.name == "gwb":
+            lines.append(
+                f"signal     background A = {component.amplitude:.3g}, gamma = {component.gamma:.3g}, "
+                f"{component.components} frequencies, {component.correlation}"
+            )
+    return "\n".join(lines)
+
+
+def _check(args) -> int:
+    from .config import load_config
+
+    config = load_config(args.config)
+    print(f"{args.config}: valid")
+    print(_summary(config))
+    return 0
+
+
+def _simulate(args) -> int:
+    from .config import load_config
+    from .dataset import write_dataset
+    from .figures import dataset_figures
+    from .simulate import simulate
+
+    config = load_config(args.config)
+    out = Path(args.out)
+    target = out / "dataset.h5"
+    if out.exists() and not out.is_dir():
+        raise InputError("exists and is not a directory", str(out))
+    if target.exists() and not args.overwrite:
+        raise InputError("already exists; pass --overwrite to replace it", str(target))
+    dataset = simulate(config, progress=True)
+    write_dataset(dataset, target)
+    print(f"wrote {target} ({len(dataset.pulsars)} pulsars, seed {dataset.seed})")
+    if not args.no_figures:
+        for path in dataset_figures(dataset, out):
+            print(f"wrote {path}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="ptares", description="Pulsar-timing-array residual modeller.")
+    parser.add_argument("--version", action="version", version=f"ptares {__version__}")
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    check = commands.add_parser("check", help="validate a config and summarise what it simulates")
+    check.add_argument("config", help="TOML config file")
+    check.set_defaults(run=_check)
+
+    sim = commands.add_parser("simulate", help="simulate a dataset and its figures from a config")
+    sim.add_argument("config", help="TOML config file")
+    sim.add_argument("--out", required=True, help="output directory (dataset.h5 and PNG figures)")
+    sim.add_argument("--overwrite", action="store_true", help="replace an existing dataset.h5")
+    sim.add_argument("--no-figures", action="store_true", help="write the dataset only")
+    sim.set_defaults(run=_simulate)
+    return parser
+
+
+def main(argv=None) -> int:
+    args = build_parser().parse_args(argv)
+    try:
+        return args.run(args)
+    except InputError as exc:
+        print(f"ptares: error: {exc.line()}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("ptares: interrupted; nothing was written for the unfinished step", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

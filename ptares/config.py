@@ -1,0 +1,407 @@
+"""The TOML run configuration, validated into immutable pydantic models.
+
+Each quantity is a float in the default unit named in its field's docstring
+(and in the README); the file may give a plain number in that unit or a string
+with any convertible unit (``"15 yr"``, ``"200 ns"``).  Values marked
+*drawable* may instead be a table ``{uniform = [low, high]}`` or
+``{log_uniform = [low, high]}``: each pulsar then draws its own value from its
+own random stream.  Unknown keys are errors.  :func:`load_config` turns every
+fault into one :class:`~ptares.errors.InputError` naming the key.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from pathlib import Path
+from typing import Annotated, Any, Literal, Optional, Union
+
+import numpy as np
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    PrivateAttr,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
+
+from .errors import InputError
+from .units import parse_dec, parse_number, parse_ra, to_unit
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+__all__ = [
+    "Config",
+    "Draw",
+    "load_config",
+    "parse_config",
+    "TIMING_TERMS",
+    "CORRELATIONS",
+]
+
+TIMING_TERMS = ("offset", "spin_frequency", "spin_down", "yearly")
+CORRELATIONS = ("hellings-downs", "monopole", "dipole", "uncorrelated")
+
+
+class Draw(BaseModel):
+    """A per-pulsar random value: uniform or log-uniform between ``low`` and ``high``."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+    kind: Literal["uniform", "log_uniform"]
+    low: float
+    high: float
+
+    def sample(self, rng: np.random.Generator) -> float:
+        """One value from ``rng``."""
+        if self.kind == "uniform":
+            return float(rng.uniform(self.low, self.high))
+        return float(math.exp(rng.uniform(math.log(self.low), math.log(self.high))))
+
+
+def _quantity(unit: str | None):
+    """Before-validator reading a number (or unit string) into ``unit``."""
+    return (lambda v: to_unit(v, unit)) if unit else parse_number
+
+
+def _drawable(unit: str | None):
+    """Before-validator for a value that is a fixed quantity or a :class:`Draw` table."""
+    read = _quantity(unit)
+
+    def parse(value: Any):
+        if not isinstance(value, dict):
+            return read(value)
+        if len(value) != 1 or next(iter(value)) not in ("uniform", "log_uniform"):
+            raise ValueError("a drawn value is a table {uniform = [low, high]} or {log_uniform = [low, high]}")
+        kind, bounds = next(iter(value.items()))
+        if not isinstance(bounds, list) or len(bounds) != 2:
+            raise ValueError(f"{kind} needs a list of two bounds [low, high]")
+        low, high = (read(b) for b in bounds)
+        if not low < high:
+            raise ValueError(f"{kind} bounds need low < high, got [{low}, {high}]")
+        if kind == "log_uniform" and low <= 0:
+            raise ValueError("log_uniform bounds must be positive")
+        return Draw(kind=kind, low=low, high=high)
+
+    return parse
+
+
+def _at_least(bound: float, strict: bool = False):
+    """After-validator: a value, or both bounds of a draw, >= (or >) ``bound``."""
+    word = "positive" if (strict and bound == 0) else ("non-negative" if bound == 0 else f">= {bound}")
+
+    def check(value):
+        low = value.low if isinstance(value, Draw) else value
+        if low < bound or (strict and low == bound):
+            raise ValueError(f"must be {word}, got {low}")
+        return value
+
+    return check
+
+
+def Quantity(unit: str | None, *extra):
+    """Annotated float read in ``unit`` (``None`` for dimensionless)."""
+    return Annotated[float, BeforeValidator(_quantity(unit)), *extra]
+
+
+def Drawable(unit: str | None, *extra):
+    """Annotated fixed-or-drawn value read in ``unit``."""
+    return Annotated[Union[float, Draw], BeforeValidator(_drawable(unit)), *extra]
+
+
+Positive = AfterValidator(_at_least(0.0, strict=True))
+NonNegative = AfterValidator(_at_least(0.0))
+RightAscension = Annotated[float, BeforeValidator(parse_ra)]
+Declination = Annotated[float, BeforeValidator(parse_dec)]
+Gap = tuple[Quantity("d"), Quantity("d")]
+
+
+class _Section(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class RunSection(_Section):
+    """``[run]``: ``name`` labels outputs; ``seed`` (integer >= 0) makes the run reproducible.
+
+    Without a seed a fresh one is drawn and recorded in the dataset.
+    """
+
+    name: str = "ptares-run"
+    seed: Optional[int] = Field(default=None, ge=0)
+
+
+class WhiteNoise(_Section):
+    """``[noise.white]``: TOA errors become ``(scale * error)^2 + quadrature^2``.
+
+    ``scale`` dimensionless (default 1), ``quadrature`` in microseconds (default 0); both drawable.
+    """
+
+    scale: Drawable(None, Positive) = 1.0
+    quadrature: Drawable("us", NonNegative) = 0.0
+
+
+class RedNoise(_Section):
+    """``[noise.red]``: intrinsic power-law red noise of each pulsar (zero amplitude: none).
+
+    ``amplitude`` (dimensionless, at f = 1/yr) and ``gamma`` are drawable;
+    ``components`` is the number of Fourier frequencies k/T.
+    """
+
+    amplitude: Drawable(None, NonNegative) = 0.0
+    gamma: Drawable(None) = 13.0 / 3.0
+    components: int = Field(default=30, ge=1)
+
+
+class NoiseSection(_Section):
+    white: WhiteNoise = WhiteNoise()
+    red: RedNoise = RedNoise()
+
+
+class WhiteOverride(_Section):
+    scale: Optional[Drawable(None, Positive)] = None
+    quadrature: Optional[Drawable("us", NonNegative)] = None
+
+
+class RedOverride(_Section):
+    amplitude: Optional[Drawable(None, NonNegative)] = None
+    gamma: Optional[Drawable(None)] = None
+
+
+class Observing(_Section):
+    """``[observing]``: the schedule every pulsar follows unless it overrides a key.
+
+    ``start`` MJD; ``span`` years; ``cadence`` and ``cadence_jitter`` (standard
+    deviation of each epoch's offset) days; ``toa_error`` microseconds
+    (drawable); ``toa_error_scatter`` dex of log-normal scatter of each TOA's
+    error about it; ``gaps`` a list of ``[start, end]`` MJD ranges with no TOAs.
+    """
+
+    start: Quantity("d") = 53005.0
+    span: Quantity("yr", Positive) = 10.0
+    cadence: Quantity("d", Positive) = 14.0
+    cadence_jitter: Quantity("d", NonNegative) = 0.0
+    toa_error: Drawable("us", Positive) = 1.0
+    toa_error_scatter: Quantity(None, NonNegative) = 0.0
+    gaps: tuple[Gap, ...] = ()
+
+    @field_validator("gaps")
+    @classmethod
+    def _ordered_gaps(cls, gaps):
+        for start, end in gaps:
+            if not start < end:
+                raise ValueError(f"gap [{start}, {end}] must have start < end")
+        return gaps
+
+
+_OBSERVING_KEYS = ("start", "span", "cadence", "cadence_jitter", "toa_error", "toa_error_scatter", "gaps")
+
+
+class PulsarEntry(_Section):
+    """One pulsar of ``[array] pulsars``.
+
+    ``ra`` (degrees, or sexagesimal hours as a string) and ``dec`` (degrees, or
+    sexagesimal degrees); ``distance`` and ``distance_error`` in kpc.  Any
+    ``[observing]`` key given here overrides the default for this pulsar, and
+    ``white``/``red`` tables override ``[noise.white]``/``[noise.red]``.
+    """
+
+    name: str = Field(min_length=1)
+    ra: RightAscension
+    dec: Declination
+    distance: Quantity("kpc", Positive) = 1.0
+    distance_error: Quantity("kpc", NonNegative) = 0.0
+    start: Optional[Quantity("d")] = None
+    span: Optional[Quantity("yr", Positive)] = None
+    cadence: Optional[Quantity("d", Positive)] = None
+    cadence_jitter: Optional[Quantity("d", NonNegative)] = None
+    toa_error: Optional[Drawable("us", Positive)] = None
+    toa_error_scatter: Optional[Quantity(None, NonNegative)] = None
+    gaps: Optional[tuple[Gap, ...]] = None
+    white: WhiteOverride = WhiteOverride()
+    red: RedOverride = RedOverride()
+
+    @field_validator("name")
+    @classmethod
+    def _plain_name(cls, name):
+        if "/" in name or name.strip() != name:
+            raise ValueError(f"pulsar name {name!r} must not contain '/' or surrounding spaces")
+        return name
+
+
+class RandomArray(_Section):
+    """``[array] random``: ``count`` pulsars placed isotropically on the sky.
+
+    Named ``<prefix>001``...; ``distance`` and ``distance_error`` in kpc, drawable.
+    """
+
+    count: int = Field(ge=1)
+    prefix: str = "RP"
+    distance: Drawable("kpc", Positive) = 1.0
+    distance_error: Drawable("kpc", NonNegative) = 0.0
+
+
+class ArraySection(_Section):
+    """``[array]``: either a list of ``pulsars`` or a ``random`` array."""
+
+    pulsars: Optional[tuple[PulsarEntry, ...]] = None
+    random: Optional[RandomArray] = None
+
+    @model_validator(mode="after")
+    def _one_kind(self):
+        if (self.pulsars is None) == (self.random is None):
+            raise ValueError("give either 'pulsars' or 'random', not both or neither")
+        if self.pulsars is not None:
+            if not self.pulsars:
+                raise ValueError("the array has no pulsars")
+            names = [p.name for p in self.pulsars]
+            repeated = sorted({n for n in names if names.count(n) > 1})
+            if repeated:
+                raise ValueError(f"pulsar names repeat: {', '.join(repeated)}")
+        return self
+
+
+class TimingModel(_Section):
+    """``[timing_model]``: the terms fitted out of each pulsar's residuals."""
+
+    fit: tuple[Literal[TIMING_TERMS], ...] = ("offset", "spin_frequency", "spin_down")
+
+    @field_validator("fit")
+    @classmethod
+    def _unique(cls, terms):
+        if len(set(terms)) != len(terms):
+            raise ValueError("a term is listed twice")
+        return terms
+
+
+class Background(_Section):
+    """``[gwb]``: a stochastic background with a power-law spectrum.
+
+    ``amplitude`` of the characteristic strain at f = 1/yr; ``gamma`` the
+    residual spectral index (13/3 for circular binaries); ``components`` the
+    number of Fourier frequencies k/T; ``correlation`` the inter-pulsar pattern.
+    """
+
+    amplitude: Quantity(None, NonNegative)
+    gamma: Quantity(None) = 13.0 / 3.0
+    components: int = Field(default=30, ge=1)
+    correlation: Literal[CORRELATIONS] = "hellings-downs"
+    source: Literal["gaussian"] = "gaussian"
+
+
+class Config(_Section):
+    """A whole validated run configuration."""
+
+    run: RunSection = RunSection()
+    array: ArraySection
+    observing: Observing = Observing()
+    noise: NoiseSection = NoiseSection()
+    timing_model: TimingModel = TimingModel()
+    gwb: Optional[Background] = None
+    cw: Optional[tuple[dict, ...]] = None
+
+    _text: str = PrivateAttr(default="")
+    _path: Optional[Path] = PrivateAttr(default=None)
+
+    @field_validator("cw")
+    @classmethod
+    def _reserved(cls, value):
+        if value is not None:
+            raise ValueError("continuous-wave sources are reserved for a later version of ptares")
+        return value
+
+    @property
+    def source_text(self) -> str:
+        """The TOML text this config was read from."""
+        return self._text
+
+    @property
+    def source_path(self) -> Optional[Path]:
+        """The file this config was read from, if any."""
+        return self._path
+
+    def observing_for(self, pulsar: PulsarEntry) -> Observing:
+        """The ``[observing]`` settings with ``pulsar``'s overrides applied."""
+        overrides = {k: getattr(pulsar, k) for k in _OBSERVING_KEYS if getattr(pulsar, k) is not None}
+        return self.observing.model_copy(update=overrides)
+
+
+def _location(loc: tuple, raw: dict) -> str:
+    """``('array', 'pulsars', 2, 'dec')`` -> ``array.pulsars[2] (NAME).dec``."""
+    text = ""
+    node: Any = raw
+    for part in loc:
+        if isinstance(part, int):
+            text += f"[{part}]"
+            try:
+                node = node[part]
+                if isinstance(node, dict) and "name" in node:
+                    text += f" ({node['name']})"
+            except (IndexError, KeyError, TypeError):
+                node = None
+        else:
+            text += ("." if text else "") + str(part)
+            node = node.get(part) if isinstance(node, dict) else None
+    return text
+
+
+def _message(error: dict) -> str:
+    kind = error["type"]
+    if kind == "extra_forbidden":
+        return "unknown key"
+    if kind == "missing":
+        return "required key is missing"
+    message = error["msg"]
+    for prefix in ("Value error, ", "Assertion failed, "):
+        if message.startswith(prefix):
+            message = message[len(prefix):]
+    return message
+
+
+def _check_schedules(config: Config) -> None:
+    """Cross-field checks that name the offending key."""
+    entries = config.array.pulsars or ()
+    where = [("observing", config.observing)] + [
+        (f"array.pulsars[{i}] ({p.name})", config.observing_for(p)) for i, p in enumerate(entries)
+    ]
+    for path, obs in where:
+        if obs.span * 365.25 <= obs.cadence:
+            raise InputError(f"span ({obs.span} yr) is not longer than the cadence ({obs.cadence} d)", f"{path}.span")
+
+
+def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None) -> Config:
+    """Validate TOML ``text``; ``where`` names it in error messages."""
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML: {exc}", where) from None
+    try:
+        config = Config.model_validate(raw)
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        loc = tuple(p for p in first["loc"] if not (isinstance(p, str) and p.startswith("function-")))
+        raise InputError(_message(first), f"{where}: {_location(loc, raw)}" if loc else where) from None
+    try:
+        _check_schedules(config)
+    except InputError as exc:
+        raise InputError(exc.message, f"{where}: {exc.where}") from None
+    config._text = text
+    config._path = path
+    return config
+
+
+def load_config(path) -> Config:
+    """Read and validate the TOML config at ``path``."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("file not found", str(path)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read file ({exc.__class__.__name__}: {exc})", str(path)) from None
+    return parse_config(text, where=str(path), path=path)

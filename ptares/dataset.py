@@ -1,0 +1,199 @@
+"""The dataset: timing residuals of an array, in memory and as an HDF5 file.
+
+File layout (also in the README)::
+
+    /                       attrs: config (TOML text), seed, ptares_version, created,
+                                   start_mjd (origin of the Fourier basis), span (s)
+    /pulsars/<name>         attrs: ra, dec (rad), distance, distance_error (kpc)
+        mjd                 (n,) days
+        residuals           (n,) s, after the timing-model fit
+        errors              (n,) s, quoted TOA uncertainties
+        design_matrix       (n, m), attrs: columns (names)
+        injected/<component>  (n,) s, before the fit: white, red, gwb
+        injected            attrs: white_scale, white_quadrature (s),
+                                   red_amplitude, red_gamma (the injected noise)
+    /signals/<component>    attrs: the component's parameters (e.g. gwb amplitude)
+
+Pulsars keep their array order.  Files are written under a temporary name
+and renamed into place, so a crash never leaves a partial file under the
+final name.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from .errors import InputError
+from .sky import unit_vector
+
+__all__ = ["PulsarData", "Dataset", "write_dataset", "load_dataset", "atomic_path"]
+
+
+@dataclass
+class PulsarData:
+    """One pulsar's timing data and injected truth."""
+
+    name: str
+    ra: float  #: radians
+    dec: float  #: radians
+    distance: float  #: kpc
+    distance_error: float  #: kpc
+    mjd: np.ndarray  #: days
+    residuals: np.ndarray  #: s, after the timing-model fit
+    errors: np.ndarray  #: s, quoted TOA uncertainties
+    design_matrix: np.ndarray
+    design_columns: list = field(default_factory=list)
+    injected: dict = field(default_factory=dict)  #: component name -> (n,) s, before the fit
+    noise: dict = field(default_factory=dict)  #: injected noise parameters
+
+    @property
+    def position(self) -> np.ndarray:
+        """Unit vector towards the pulsar."""
+        return unit_vector(self.ra, self.dec)
+
+    @property
+    def toa_count(self) -> int:
+        return int(self.mjd.size)
+
+
+@dataclass
+class Dataset:
+    """An array's residuals with the run's provenance."""
+
+    pulsars: list
+    config: str = ""
+    seed: int = 0
+    ptares_version: str = ""
+    created: str = ""
+    start_mjd: float = 0.0
+    span: float = 0.0  #: s
+    signals: dict = field(default_factory=dict)  #: component name -> parameters
+
+    @property
+    def names(self) -> list:
+        return [p.name for p in self.pulsars]
+
+    def pulsar(self, name: str) -> PulsarData:
+        for p in self.pulsars:
+            if p.name == name:
+                return p
+        raise KeyError(name)
+
+
+class atomic_path:
+    """Context manager yielding a temporary path that is renamed to ``path`` on success.
+
+    On an exception the temporary file is removed and ``path`` is untouched.
+    """
+
+    def __init__(self, path):
+        self.path = Path(path)
+
+    def __enter__(self) -> Path:
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        handle, name = tempfile.mkstemp(prefix=f".{self.path.name}.", suffix=".tmp", dir=self.path.parent)
+        os.close(handle)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(name, 0o666 & ~umask)  # mkstemp makes owner-only files; use the usual mode
+        self.temporary = Path(name)
+        return self.temporary
+
+    def __exit__(self, kind, value, traceback):
+        if kind is None:
+            os.replace(self.temporary, self.path)
+        else:
+            self.temporary.unlink(missing_ok=True)
+        return False
+
+
+def write_dataset(dataset: Dataset, path) -> Path:
+    """Write ``dataset`` to the HDF5 file ``path`` atomically; returns the path."""
+    path = Path(path)
+    with atomic_path(path) as temporary:
+        with h5py.File(temporary, "w") as f:
+            f.attrs["config"] = dataset.config
+            f.attrs["seed"] = dataset.seed
+            f.attrs["ptares_version"] = dataset.ptares_version
+            f.attrs["created"] = dataset.created
+            f.attrs["start_mjd"] = dataset.start_mjd
+            f.attrs["span"] = dataset.span
+            group = f.create_group("pulsars", track_order=True)
+            for p in dataset.pulsars:
+                g = group.create_group(p.name)
+                for key in ("ra", "dec", "distance", "distance_error"):
+                    g.attrs[key] = getattr(p, key)
+                g["mjd"] = p.mjd
+                g["residuals"] = p.residuals
+                g["errors"] = p.errors
+                g["design_matrix"] = p.design_matrix
+                g["design_matrix"].attrs["columns"] = list(p.design_columns)
+                injected = g.create_group("injected", track_order=True)
+                for name, values in p.injected.items():
+                    injected[name] = values
+                for key, value in p.noise.items():
+                    injected.attrs[key] = value
+            signals = f.create_group("signals", track_order=True)
+            for name, parameters in dataset.signals.items():
+                s = signals.create_group(name)
+                for key, value in parameters.items():
+                    s.attrs[key] = value
+    return path
+
+
+def _plain(value):
+    """HDF5 attribute -> plain Python value."""
+    if isinstance(value, bytes):
+        return value.decode()
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return [_plain(v) for v in value]
+    return value
+
+
+def load_dataset(path) -> Dataset:
+    """Read a dataset written by :func:`write_dataset`."""
+    path = Path(path)
+    if not path.is_file():
+        raise InputError("dataset file not found", str(path))
+    try:
+        with h5py.File(path, "r") as f:
+            pulsars = []
+            for name, g in f["pulsars"].items():
+                injected = g.get("injected")
+                pulsars.append(
+                    PulsarData(
+                        name=name,
+                        ra=float(g.attrs["ra"]),
+                        dec=float(g.attrs["dec"]),
+                        distance=float(g.attrs["distance"]),
+                        distance_error=float(g.attrs["distance_error"]),
+                        mjd=g["mjd"][()],
+                        residuals=g["residuals"][()],
+                        errors=g["errors"][()],
+                        design_matrix=g["design_matrix"][()],
+                        design_columns=_plain(g["design_matrix"].attrs.get("columns", [])),
+                        injected={k: v[()] for k, v in injected.items()} if injected else {},
+                        noise={k: _plain(v) for k, v in injected.attrs.items()} if injected else {},
+                    )
+                )
+            signals = {name: {k: _plain(v) for k, v in s.attrs.items()} for name, s in f.get("signals", {}).items()}
+            return Dataset(
+                pulsars=pulsars,
+                config=_plain(f.attrs.get("config", "")),
+                seed=int(f.attrs.get("seed", 0)),
+                ptares_version=_plain(f.attrs.get("ptares_version", "")),
+                created=_plain(f.attrs.get("created", "")),
+                start_mjd=float(f.attrs.get("start_mjd", 0.0)),
+                span=float(f.attrs.get("span", 0.0)),
+                signals=signals,
+            )
+    except (OSError, KeyError) as exc:
+        raise InputError(f"not a readable ptares dataset ({exc})", str(path)) from None

@@ -1,0 +1,105 @@
+"""Reading physical quantities from configuration values.
+
+A config value may be a plain number, taken in the field's documented default
+unit, or a string with a unit that astropy.units understands (``"15 yr"``,
+``"200 ns"``, ``"1.2 kpc"``, ``"8 nHz"``).  Everything is converted to one
+float in the default unit at the boundary; inside ptares, code works in SI
+(see :mod:`ptares.constants`).  Angles have their own reader because right
+ascension is commonly written in sexagesimal hours.
+"""
+
+from __future__ import annotations
+
+import math
+from fractions import Fraction
+
+import astropy.units as u
+from astropy.coordinates import Angle
+
+__all__ = ["to_unit", "parse_ra", "parse_dec", "parse_number"]
+
+
+def _finite(value: float, text: object) -> float:
+    if not math.isfinite(value):
+        raise ValueError(f"{text!r} is not a finite number")
+    return value
+
+
+def parse_number(value: object) -> float:
+    """A dimensionless number: int, float, or a string such as ``"13/3"``."""
+    if isinstance(value, bool):
+        raise ValueError(f"expected a number, got {value!r}")
+    if isinstance(value, (int, float)):
+        return _finite(float(value), value)
+    if isinstance(value, str):
+        try:
+            return _finite(float(Fraction(value.strip())), value)
+        except (ValueError, ZeroDivisionError):
+            pass
+        try:
+            return _finite(float(value), value)
+        except ValueError:
+            raise ValueError(f"{value!r} is not a number") from None
+    raise ValueError(f"expected a number, got {type(value).__name__}")
+
+
+def to_unit(value: object, unit: str) -> float:
+    """Value in ``unit``: a plain number is taken to be in ``unit`` already.
+
+    Raises ``ValueError`` with a readable message when the string does not
+    parse or its unit does not convert.
+    """
+    if isinstance(value, bool):
+        raise ValueError(f"expected a number or a quantity in {unit}, got {value!r}")
+    if isinstance(value, (int, float)):
+        return _finite(float(value), value)
+    if not isinstance(value, str):
+        raise ValueError(f"expected a number or a quantity in {unit}, got {type(value).__name__}")
+    try:
+        quantity = u.Quantity(value)
+    except (TypeError, ValueError):
+        raise ValueError(f"cannot read {value!r} as a quantity (e.g. '15 yr', '200 ns')") from None
+    if quantity.unit == u.dimensionless_unscaled:
+        return _finite(float(quantity.value), value)
+    try:
+        return _finite(float(quantity.to_value(unit)), value)
+    except u.UnitConversionError:
+        raise ValueError(f"{value!r} does not convert to {unit}") from None
+
+
+def _angle(value: object, string_unit: u.UnitBase, what: str) -> float:
+    """An angle in degrees from degrees (number) or a string in ``string_unit``."""
+    if isinstance(value, bool):
+        raise ValueError(f"expected {what} in degrees or sexagesimal, got {value!r}")
+    if isinstance(value, (int, float)):
+        return _finite(float(value), value)
+    if not isinstance(value, str):
+        raise ValueError(f"expected {what} in degrees or sexagesimal, got {type(value).__name__}")
+    text = value.strip()
+    has_unit = any(c.isalpha() for c in text)
+    try:
+        angle = Angle(text) if has_unit else Angle(text, unit=string_unit)
+    except (ValueError, u.UnitsError):
+        raise ValueError(f"cannot read {value!r} as {what}") from None
+    return _finite(float(angle.to_value(u.deg)), value)
+
+
+def parse_ra(value: object) -> float:
+    """Right ascension in degrees, in [0, 360).
+
+    Numbers are degrees; strings without a unit are sexagesimal hours
+    (``"04:37:15.9"`` or ``"4 37 15.9"``); strings with units are read by
+    astropy (``"4h37m15.9s"``, ``"69.3 deg"``).
+    """
+    degrees = _angle(value, u.hourangle, "right ascension")
+    if not 0.0 <= degrees < 360.0:
+        raise ValueError(f"right ascension {value!r} is outside [0, 360) degrees")
+    return degrees
+
+
+def parse_dec(value: object) -> float:
+    """Declination in degrees, in [-90, 90]; strings without a unit are sexagesimal degrees."""
+    degrees = _angle(value, u.deg, "declination")
+    if not -90.0 <= degrees <= 90.0:
+        raise ValueError(f"declination {value!r} is outside [-90, 90] degrees")
+    return degrees

@@ -1,0 +1,59 @@
+"""Shared helpers for the ptares tests."""
+
+from __future__ import annotations
+
+import copy
+
+import pytest
+
+from ptares.config import Config
+
+
+def small_config(**overrides) -> Config:
+    """A quick random-array config; ``overrides`` replace whole top-level sections."""
+    raw = {
+        "run": {"name": "test", "seed": 11},
+        "array": {"random": {"count": 6}},
+        "observing": {"start": 53000.0, "span": 6.0, "cadence": 30.0, "toa_error": 0.5},
+        "gwb": {"amplitude": 2e-15, "components": 10},
+    }
+    raw.update(copy.deepcopy(overrides))
+    raw = {k: v for k, v in raw.items() if v is not None}
+    return Config.model_validate(raw)
+
+
+@pytest.fixture
+def config_factory():
+    return small_config
+
+
+SMALL_TOML = """\
+[run]
+name = "cli-test"
+seed = 5
+
+[array]
+pulsars = [
+  { name = "Aa", ra = "01:00:00", dec = "10:00:00", distance = "1 kpc" },
+  { name = "Bb", ra = 200.0, dec = -30.0, red = { amplitude = 1e-14, gamma = 4.0 } },
+  { name = "Cc", ra = 300.0, dec = 60.0, toa_error = "900 ns", start = 54000 },
+]
+
+[observing]
+start = 53000
+span = "5 yr"
+cadence = "30 d"
+cadence_jitter = "2 d"
+toa_error = "300 ns"
+
+[gwb]
+amplitude = 3e-15
+components = 8
+"""
+
+
+@pytest.fixture
+def small_toml(tmp_path):
+    path = tmp_path / "small.toml"
+    path.write_text(SMALL_TOML)
+    return path

@@ -1,0 +1,84 @@
+"""The command line: what a user sees, exit codes, and nothing written on bad input."""
+
+import subprocess
+import sys
+
+import h5py
+import pytest
+
+from ptares.cli import main
+
+from conftest import SMALL_TOML
+
+
+def run_cli(*args):
+    return subprocess.run([sys.executable, "-m", "ptares", *map(str, args)], capture_output=True, text=True)
+
+
+def test_simulate_writes_dataset_and_figures(small_toml, tmp_path):
+    out = tmp_path / "out"
+    result = run_cli("simulate", small_toml, "--out", out)
+    assert result.returncode == 0, result.stderr
+    for name in ("dataset.h5", "residuals.png", "sky.png", "correlation.png"):
+        assert (out / name).stat().st_size > 0
+        assert (out / name).read_bytes()[:4] in (b"\x89PNG", b"\x89HDF")
+    assert not list(out.glob(".*.tmp"))
+    with h5py.File(out / "dataset.h5") as f:
+        assert list(f["pulsars"]) == ["Aa", "Bb", "Cc"]
+
+
+@pytest.mark.parametrize(
+    "old, new, words",
+    [
+        ("[gwb]", "[gwb]\ncolour = 3", "gwb.colour: unknown key"),
+        ('dec = "10:00:00"', "dec = 99", "array.pulsars[0] (Aa).dec: declination 99 is outside"),
+        ("amplitude = 3e-15", "amplitude = nan", "gwb.amplitude"),
+        ('span = "5 yr"', 'span = "3 d"', "observing.span"),
+        ('toa_error = "300 ns"', 'toa_error = "3 m"', "observing.toa_error: '3 m' does not convert"),
+    ],
+)
+def test_bad_config_one_line_exit_2_nothing_written(tmp_path, capsys, old, new, words):
+    config = tmp_path / "bad.toml"
+    config.write_text(SMALL_TOML.replace(old, new, 1))
+    out = tmp_path / "out"
+    assert main(["simulate", str(config), "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and err.startswith("ptares: error: ")
+    assert words in err
+    assert "Traceback" not in err
+    assert not out.exists()
+
+
+def test_missing_config_file(tmp_path, capsys):
+    assert main(["check", str(tmp_path / "nope.toml")]) == 2
+    err = capsys.readouterr().err
+    assert err.strip() == f"ptares: error: {tmp_path / 'nope.toml'}: file not found"
+
+
+def test_real_process_exit_status_and_no_traceback(tmp_path):
+    config = tmp_path / "bad.toml"
+    config.write_text("[array]\npulsars = []\n")
+    result = run_cli("simulate", config, "--out", tmp_path / "out")
+    assert result.returncode == 2
+    assert result.stderr.strip().endswith("array: the array has no pulsars")
+    assert "Traceback" not in result.stderr
+    assert not (tmp_path / "out").exists()
+
+
+def test_check_prints_summary(small_toml, capsys):
+    assert main(["check", str(small_toml)]) == 0
+    out = capsys.readouterr().out
+    assert "valid" in out
+    assert "pulsars    3" in out
+    assert "background A = 3e-15" in out
+    assert "red noise in 1 pulsars" in out
+
+
+def test_existing_dataset_is_not_overwritten_without_flag(small_toml, tmp_path, capsys):
+    out = tmp_path / "out"
+    assert main(["simulate", str(small_toml), "--out", str(out), "--no-figures"]) == 0
+    before = (out / "dataset.h5").read_bytes()
+    assert main(["simulate", str(small_toml), "--out", str(out), "--no-figures"]) == 2
+    assert "--overwrite" in capsys.readouterr().err
+    assert (out / "dataset.h5").read_bytes() == before
+    assert main(["simulate", str(small_toml), "--out", str(out), "--no-figures", "--overwrite"]) == 0

@@ -1,0 +1,149 @@
+"""Config parsing: units, defaults, overrides, and one clear error per bad input."""
+
+import numpy as np
+import pytest
+
+from ptares.array import build_array
+from ptares.config import Draw, load_config, parse_config
+from ptares.errors import InputError
+
+from conftest import SMALL_TOML
+
+
+def test_small_config_parses_with_units(small_toml):
+    config = load_config(small_toml)
+    assert config.observing.span == pytest.approx(5.0)
+    assert config.observing.toa_error == pytest.approx(0.3)  # microseconds
+    a, b, c = config.array.pulsars
+    assert a.ra == pytest.approx(15.0) and a.dec == pytest.approx(10.0)
+    assert b.red.amplitude == 1e-14
+    assert c.toa_error == pytest.approx(0.9)
+    assert config.source_text == SMALL_TOML
+    assert config.gwb.gamma == pytest.approx(13 / 3)
+
+
+@pytest.mark.parametrize(
+    "text, unit, expected",
+    [
+        ('span = "15 yr"', "span", 15.0),
+        ('span = "5478.75 d"', "span", 15.0),
+        ("span = 15", "span", 15.0),
+        ('cadence = "2 week"', "cadence", 14.0),
+        ('toa_error = "200 ns"', "toa_error", 0.2),
+        ('toa_error = "1e-6 s"', "toa_error", 1.0),
+    ],
+)
+def test_quantities_convert_to_default_units(text, unit, expected):
+    """Reference: astropy.units conversions (Julian year, 7-day week)."""
+    config = parse_config(f"[array]\nrandom = {{count = 2}}\n[observing]\n{text}\n")
+    assert getattr(config.observing, unit) == pytest.approx(expected)
+
+
+def test_drawn_values_and_per_pulsar_overrides():
+    text = """
+[array]
+pulsars = [{name = "x", ra = 0, dec = 0, white = {scale = 2.0}, red = {gamma = 3.0}},
+           {name = "y", ra = 1, dec = 1}]
+[noise.white]
+quadrature = "100 ns"
+[noise.red]
+amplitude = {log_uniform = [1e-16, 1e-14]}
+gamma = {uniform = [2, 6]}
+"""
+    config = parse_config(text)
+    assert isinstance(config.noise.red.amplitude, Draw)
+    x, y = build_array(config, 3)
+    assert x.white_scale == 2.0 and y.white_scale == 1.0
+    assert x.white_quadrature == pytest.approx(1e-7)
+    assert x.red_gamma == 3.0 and 2 <= y.red_gamma <= 6
+    assert 1e-16 <= x.red_amplitude <= 1e-14 and x.red_amplitude != y.red_amplitude
+    # the same seed draws the same values
+    assert build_array(config, 3) == [x, y]
+
+
+def test_sexagesimal_and_degree_positions_agree():
+    """Reference: 01h00m00s = 15 degrees; -30:30:00 = -30.5 degrees (sexagesimal arithmetic)."""
+    text = '[array]\npulsars = [{name = "a", ra = "01:00:00", dec = "-30:30:00"}, {name = "b", ra = "1h0m0s", dec = -30.5}]'
+    a, b = parse_config(text).array.pulsars
+    assert a.ra == pytest.approx(15.0) and b.ra == pytest.approx(15.0)
+    assert a.dec == pytest.approx(-30.5) and b.dec == pytest.approx(-30.5)
+
+
+BASE = SMALL_TOML
+
+
+@pytest.mark.parametrize(
+    "old, new, where, words",
+    [
+        ("[gwb]", "[gwb]\ncolour = 3", "gwb.colour", "unknown key"),
+        ("[run]", "[run]\nspeed = 1", "run.speed", "unknown key"),
+        ("seed = 5", 'seed = "five"', "run.seed", "integer"),
+        ("components = 8", "components = 2.5", "gwb.components", "integer"),
+        ("amplitude = 3e-15", "amplitude = -3e-15", "gwb.amplitude", "non-negative"),
+        ("amplitude = 3e-15", "amplitude = nan", "gwb.amplitude", "finite"),
+        ("amplitude = 1e-14", "amplitude = -1e-14", "array.pulsars[1] (Bb).red.amplitude", "non-negative"),
+        ('dec = "10:00:00"', "dec = 91.0", "array.pulsars[0] (Aa).dec", "outside [-90, 90]"),
+        ('dec = "10:00:00"', 'dec = "-95:00:00"', "array.pulsars[0] (Aa).dec", "outside [-90, 90]"),
+        ('span = "5 yr"', 'span = "20 d"', "observing.span", "not longer than the cadence"),
+        ('start = 54000', 'start = 54000, span = "10 d"', "array.pulsars[2] (Cc).span", "not longer than the cadence"),
+        ('toa_error = "300 ns"', 'toa_error = "300 kg"', "observing.toa_error", "does not convert"),
+        ('span = "5 yr"', 'span = "five years"', "observing.span", "cannot read"),
+        ('distance = "1 kpc"', 'distance = "0 kpc"', "array.pulsars[0] (Aa).distance", "positive"),
+        ("components = 8", 'components = 8\ncorrelation = "quadrupole"', "gwb.correlation", "hellings-downs"),
+        ('[observing]', '[observing]\ngaps = [[54000, 53000]]', "observing.gaps", "start < end"),
+        ('{ name = "Bb"', '{ name = "Aa"', "array", "repeat"),
+        ('[gwb]', '[[cw]]\nchirp_mass = 1e9\n[gwb]', "cw", "reserved"),
+        ('cadence = "30 d"', 'cadence = "-30 d"', "observing.cadence", "positive"),
+    ],
+)
+def test_bad_input_names_the_field(old, new, where, words):
+    assert old in BASE
+    with pytest.raises(InputError) as caught:
+        parse_config(BASE.replace(old, new, 1), where="cfg.toml")
+    line = caught.value.line()
+    assert "\n" not in line
+    assert line.startswith(f"cfg.toml: {where}"), line
+    assert words in line
+
+
+def test_empty_array_is_an_error():
+    with pytest.raises(InputError, match="array: the array has no pulsars"):
+        parse_config("[array]\npulsars = []\n")
+
+
+def test_array_needs_exactly_one_kind():
+    with pytest.raises(InputError, match="either 'pulsars' or 'random'"):
+        parse_config("[array]\n")
+    with pytest.raises(InputError, match="required key is missing"):
+        parse_config("[run]\nseed = 1\n")
+
+
+def test_invalid_toml_names_the_file():
+    with pytest.raises(InputError, match="^x.toml: not valid TOML"):
+        parse_config("[array\n", where="x.toml")
+
+
+def test_missing_and_unreadable_files(tmp_path):
+    with pytest.raises(InputError, match="file not found"):
+        load_config(tmp_path / "absent.toml")
+    with pytest.raises(InputError, match="cannot read file"):
+        load_config(tmp_path)  # a directory
+    binary = tmp_path / "binary.toml"
+    binary.write_bytes(b"\xff\xfe\x00garbage")
+    with pytest.raises(InputError, match="cannot read file"):
+        load_config(binary)
+
+
+def test_config_is_immutable(small_toml):
+    config = load_config(small_toml)
+    with pytest.raises(Exception):
+        config.observing.span = 3.0
+
+
+def test_random_array_is_isotropic():
+    """An isotropic array has uniform sin(dec) and uniform ra (mean of unit vectors ~ 0)."""
+    config = parse_config("[array]\nrandom = {count = 4000}\n")
+    pulsars = build_array(config, 9)
+    vectors = np.array([p.position for p in pulsars])
+    np.testing.assert_array_less(np.abs(vectors.mean(axis=0)), 4 / np.sqrt(3 * 4000))
+    assert np.mean(vectors[:, 2] ** 2) == pytest.approx(1 / 3, abs=4 * np.sqrt(4 / 45 / 4000))
