@@ -1,7 +1,7 @@
 """ptares: simulate pulsar-timing-array residuals and recover gravitational-wave signals.
 
 The pipeline runs one way: config (:mod:`ptares.config`) -> pulsar array
-(:mod:`ptares.array`) -> signals and noise (:mod:`ptares.signals`) -> dataset
+(:mod:`ptares.pulsar_array`) -> signals and noise (:mod:`ptares.signals`) -> dataset
 (:mod:`ptares.dataset`) -> figures (:mod:`ptares.figures`).  Physics lives in
 :mod:`ptares.sky`, :mod:`ptares.correlations` and :mod:`ptares.spectra`.
 """

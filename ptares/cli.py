@@ -18,7 +18,7 @@ __all__ = ["main"]
 
 def _summary(config) -> str:
     """A short description of what a config will simulate."""
-    from .array import build_array, observe
+    from .pulsar_array import build_array, observe
     from .simulate import run_seed
     from .signals import build_components
 

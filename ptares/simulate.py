@@ -1,6 +1,6 @@
 """From a validated config to a simulated dataset.
 
-The steps, in order: resolve the array (:mod:`ptares.array`), draw each
+The steps, in order: resolve the array (:mod:`ptares.pulsar_array`), draw each
 pulsar's TOAs, draw every component (:mod:`ptares.signals`) on them, add the
 components, and fit the timing model out of the sum.  Components are stored
 before the fit (``injected``), the sum after it (``residuals``).
@@ -14,7 +14,7 @@ import numpy as np
 from tqdm.auto import tqdm
 
 from . import __version__
-from .array import build_array, observe
+from .pulsar_array import build_array, observe
 from .config import Config
 from .dataset import Dataset, PulsarData
 from .errors import InputError

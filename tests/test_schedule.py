@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from ptares.array import build_array, observe
+from ptares.pulsar_array import build_array, observe
 from ptares.constants import YEAR
 from ptares.schedule import observation_epochs, toa_uncertainties
 

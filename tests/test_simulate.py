@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from ptares.array import build_array
+from ptares.pulsar_array import build_array
 from ptares.config import Config
 from ptares.errors import InputError
 from ptares.signals.background import lower_factor

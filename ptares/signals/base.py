@@ -14,7 +14,7 @@ from typing import Protocol
 
 import numpy as np
 
-from ..array import Observations, PulsarSetup
+from ..pulsar_array import Observations, PulsarSetup
 from ..kernels import synthesise
 
 __all__ = ["Context", "Component", "synthesise_array"]
