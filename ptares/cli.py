@@ -8,10 +8,13 @@ from __future__ import annotations
 
 import argparse
 import sys
+import warnings
 from pathlib import Path
 
 from . import __version__
-from .errors import InputError
+from .errors import InputError, PhysicsWarning
+
+_default_showwarning = warnings.showwarning
 
 __all__ = ["main"]
 
@@ -22,9 +25,12 @@ def _summary(config) -> str:
     from .simulate import run_seed
     from .signals import build_components
 
+    from .signals import Context
+
     seed = run_seed(config)
     pulsars = build_array(config, seed)
     observations = observe(pulsars, seed)
+    context = Context(pulsars=tuple(pulsars), observations=observations, seed=seed)
     counts = [m.size for m in observations.mjd]
     lines = [
         f"run        {config.run.name} (seed {config.run.seed if config.run.seed is not None else 'fresh each run'})",
@@ -40,10 +46,20 @@ def _summary(config) -> str:
             n = sum(p.red_amplitude > 0 for p in pulsars)
             lines.append(f"signal     red noise in {n} pulsars, {component.components} frequencies")
         elif component.name == "gwb":
+            described = component.describe(context)
+            made = (
+                f"{len(described['sources'])} binaries" if described["source"] == "binaries" else "Gaussian"
+            )
             lines.append(
                 f"signal     background A = {component.amplitude:.3g}, gamma = {component.gamma:.3g}, "
-                f"{component.components} frequencies, {component.correlation}"
+                f"{component.components} frequencies, {described['correlation']}, {made}"
             )
+        elif component.name == "cw":
+            for b in component.binaries:
+                lines.append(
+                    f"signal     binary {b.name}: f = {b.frequency * 1e9:.3g} nHz, h0 = {b.strain:.3g}, "
+                    f"{'evolving' if b.evolve else 'fixed frequency'}, {'with' if b.pulsar_term else 'no'} pulsar term"
+                )
     return "\n".join(lines)
 
 
@@ -96,7 +112,16 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _one_line_warning(message, category, filename, lineno, file=None, line=None):
+    """Physics warnings as one line each, like errors."""
+    if issubclass(category, PhysicsWarning):
+        print(f"ptares: warning: {message}", file=sys.stderr if file is None else file)
+    else:
+        _default_showwarning(message, category, filename, lineno, file, line)
+
+
 def main(argv=None) -> int:
+    warnings.showwarning = _one_line_warning
     args = build_parser().parse_args(argv)
     try:
         return args.run(args)

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 import sys
+import warnings
 from pathlib import Path
 from typing import Annotated, Any, Literal, Optional, Union
 
@@ -29,7 +30,7 @@ from pydantic import (
     model_validator,
 )
 
-from .errors import InputError
+from .errors import InputError, PhysicsWarning
 from .units import parse_dec, parse_number, parse_ra, to_unit
 
 if sys.version_info >= (3, 11):
@@ -39,6 +40,7 @@ else:  # pragma: no cover
 
 __all__ = [
     "Config",
+    "ContinuousWave",
     "Draw",
     "load_config",
     "parse_config",
@@ -247,10 +249,15 @@ class RandomArray(_Section):
 
 
 class ArraySection(_Section):
-    """``[array]``: either a list of ``pulsars`` or a ``random`` array."""
+    """``[array]``: either a list of ``pulsars`` or a ``random`` array.
+
+    ``vary_distances``: draw each pulsar's true distance (used by pulsar terms)
+    from a normal distribution of the catalogued ``distance`` and ``distance_error``.
+    """
 
     pulsars: Optional[tuple[PulsarEntry, ...]] = None
     random: Optional[RandomArray] = None
+    vary_distances: bool = False
 
     @model_validator(mode="after")
     def _one_kind(self):
@@ -285,13 +292,74 @@ class Background(_Section):
     ``amplitude`` of the characteristic strain at f = 1/yr; ``gamma`` the
     residual spectral index (13/3 for circular binaries); ``components`` the
     number of Fourier frequencies k/T; ``correlation`` the inter-pulsar pattern.
+    ``source = "binaries"`` builds it from about ``binaries`` circular binaries
+    across the band instead of Gaussian Fourier coefficients;
+    ``loudness_spread`` (dex) scatters their amplitudes log-normally.
     """
 
     amplitude: Quantity(None, NonNegative)
     gamma: Quantity(None) = 13.0 / 3.0
     components: int = Field(default=30, ge=1)
     correlation: Literal[CORRELATIONS] = "hellings-downs"
-    source: Literal["gaussian"] = "gaussian"
+    source: Literal["gaussian", "binaries"] = "gaussian"
+    binaries: int = Field(default=1000, ge=1)
+    loudness_spread: Quantity(None, NonNegative) = 0.0
+
+    @model_validator(mode="after")
+    def _binaries_are_hellings_downs(self):
+        if self.source == "binaries" and self.correlation != "hellings-downs":
+            raise ValueError("a background of binaries has the hellings-downs correlation; drop 'correlation'")
+        return self
+
+
+class ContinuousWave(_Section):
+    """One ``[[cw]]`` source: a circular supermassive black-hole binary.
+
+    ``chirp_mass`` in solar masses; ``distance`` (luminosity) in Mpc, or the
+    strain amplitude ``strain`` (h0) instead; ``frequency`` (GW, twice the
+    orbital) or ``orbital_frequency`` in nHz, at the array's first epoch;
+    ``ra``/``dec`` as for pulsars; ``inclination`` (in [0, pi]),
+    ``polarization`` and ``phase`` (orbital phase at the first epoch) in
+    radians; ``evolve`` switches radiation-reaction evolution, ``pulsar_term``
+    the pulsar term.
+    """
+
+    name: Optional[str] = None
+    chirp_mass: Optional[Quantity("solMass", Positive)] = None
+    distance: Optional[Quantity("Mpc", Positive)] = None
+    strain: Optional[Quantity(None, Positive)] = None
+    frequency: Optional[Quantity("nHz", Positive)] = None
+    orbital_frequency: Optional[Quantity("nHz", Positive)] = None
+    ra: RightAscension
+    dec: Declination
+    inclination: Quantity("rad") = 0.0
+    polarization: Quantity("rad") = 0.0
+    phase: Quantity("rad") = 0.0
+    evolve: bool = True
+    pulsar_term: bool = True
+
+    @field_validator("inclination")
+    @classmethod
+    def _inclination_range(cls, value):
+        if not 0.0 <= value <= math.pi:
+            raise ValueError(f"inclination {value} rad is outside [0, pi]")
+        return value
+
+    @model_validator(mode="after")
+    def _complete(self):
+        if (self.frequency is None) == (self.orbital_frequency is None):
+            raise ValueError("give either 'frequency' (GW) or 'orbital_frequency', not both or neither")
+        if (self.distance is None) == (self.strain is None):
+            raise ValueError("give either 'distance' or 'strain', not both or neither")
+        if self.chirp_mass is None and (self.distance is not None or self.evolve):
+            need = "'distance'" if self.distance is not None else "'evolve = true'"
+            raise ValueError(f"'chirp_mass' is needed with {need}")
+        return self
+
+    @property
+    def gw_frequency_hz(self) -> float:
+        """GW frequency in Hz (twice the orbital frequency)."""
+        return (self.frequency if self.frequency is not None else 2.0 * self.orbital_frequency) * 1e-9
 
 
 class Config(_Section):
@@ -303,17 +371,10 @@ class Config(_Section):
     noise: NoiseSection = NoiseSection()
     timing_model: TimingModel = TimingModel()
     gwb: Optional[Background] = None
-    cw: Optional[tuple[dict, ...]] = None
+    cw: tuple[ContinuousWave, ...] = ()
 
     _text: str = PrivateAttr(default="")
     _path: Optional[Path] = PrivateAttr(default=None)
-
-    @field_validator("cw")
-    @classmethod
-    def _reserved(cls, value):
-        if value is not None:
-            raise ValueError("continuous-wave sources are reserved for a later version of ptares")
-        return value
 
     @property
     def source_text(self) -> str:
@@ -329,6 +390,16 @@ class Config(_Section):
         """The ``[observing]`` settings with ``pulsar``'s overrides applied."""
         overrides = {k: getattr(pulsar, k) for k in _OBSERVING_KEYS if getattr(pulsar, k) is not None}
         return self.observing.model_copy(update=overrides)
+
+    def schedules(self) -> list[Observing]:
+        """Each pulsar's observing settings (one entry for a random array: all share it)."""
+        if self.array.pulsars is None:
+            return [self.observing]
+        return [self.observing_for(p) for p in self.array.pulsars]
+
+    def cw_name(self, index: int) -> str:
+        """The name of ``[[cw]]`` source ``index``: its own, or ``cw<index + 1>``."""
+        return self.cw[index].name or f"cw{index + 1}"
 
 
 def _location(loc: tuple, raw: dict) -> str:
@@ -374,6 +445,36 @@ def _check_schedules(config: Config) -> None:
             raise InputError(f"span ({obs.span} yr) is not longer than the cadence ({obs.cadence} d)", f"{path}.span")
 
 
+def _check_sources(config: Config) -> None:
+    """Continuous-wave sources against the array's span and cadence (errors), and unusual physics (warnings)."""
+    from .binaries import time_to_coalescence
+    from .constants import DAY, M_SUN, YEAR
+
+    schedules = config.schedules()
+    first = min(s.start for s in schedules)
+    span = max(s.start + s.span * YEAR / DAY for s in schedules) - first  # days
+    nyquist = 1.0 / (2.0 * min(s.cadence for s in schedules) * DAY)
+    names = [config.cw_name(i) for i in range(len(config.cw))]
+    for i, source in enumerate(config.cw):
+        path = f"cw[{i}] ({config.cw_name(i)})"
+        if names.count(names[i]) > 1 or "/" in names[i]:
+            raise InputError("source names must be unique and contain no '/'", f"{path}.name")
+        key = "frequency" if source.frequency is not None else "orbital_frequency"
+        f = source.gw_frequency_hz
+        if f * span * DAY < 1.0:
+            raise InputError(f"GW frequency {f * 1e9:.4g} nHz completes no full cycle in the {span / 365.25:.3g}-yr span", f"{path}.{key}")
+        if f > nyquist:
+            raise InputError(f"GW frequency {f * 1e9:.4g} nHz is above the cadence's Nyquist frequency {nyquist * 1e9:.4g} nHz", f"{path}.{key}")
+        if source.evolve:
+            tau = float(time_to_coalescence(source.chirp_mass * M_SUN, f))
+            if tau <= span * DAY:
+                raise InputError(f"the binary merges {tau / YEAR:.3g} yr after the first epoch, within the span", f"{path}.chirp_mass")
+            if tau < 10 * span * DAY:
+                warnings.warn(f"{path}: the binary merges {tau / YEAR:.3g} yr after the first epoch; its frequency evolves strongly", PhysicsWarning, stacklevel=2)
+        if source.chirp_mass is not None and source.chirp_mass > 1e11:
+            warnings.warn(f"{path}: chirp mass {source.chirp_mass:.3g} solar masses is unusually large", PhysicsWarning, stacklevel=2)
+
+
 def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None) -> Config:
     """Validate TOML ``text``; ``where`` names it in error messages."""
     try:
@@ -388,6 +489,7 @@ def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None
         raise InputError(_message(first), f"{where}: {_location(loc, raw)}" if loc else where) from None
     try:
         _check_schedules(config)
+        _check_sources(config)
     except InputError as exc:
         raise InputError(exc.message, f"{where}: {exc.where}") from None
     config._text = text

@@ -9,10 +9,12 @@ File layout (also in the README)::
         residuals           (n,) s, after the timing-model fit
         errors              (n,) s, quoted TOA uncertainties
         design_matrix       (n, m), attrs: columns (names)
-        injected/<component>  (n,) s, before the fit: white, red, gwb
+        injected/<component>  (n,) s, before the fit: white, red, gwb, cw
         injected            attrs: white_scale, white_quadrature (s),
-                                   red_amplitude, red_gamma (the injected noise)
-    /signals/<component>    attrs: the component's parameters (e.g. gwb amplitude)
+                                   red_amplitude, red_gamma (the injected noise),
+                                   distance (kpc, used by pulsar terms)
+    /signals/<component>    attrs: the component's parameters (e.g. gwb amplitude);
+        sources             table of binaries (cw, and a gwb built from binaries)
 
 Pulsars keep their array order.  Files are written under a temporary name
 and renamed into place, so a crash never leaves a partial file under the
@@ -143,7 +145,10 @@ def write_dataset(dataset: Dataset, path) -> Path:
             for name, parameters in dataset.signals.items():
                 s = signals.create_group(name)
                 for key, value in parameters.items():
-                    s.attrs[key] = value
+                    if isinstance(value, np.ndarray):
+                        s[key] = value
+                    else:
+                        s.attrs[key] = value
     return path
 
 
@@ -184,7 +189,10 @@ def load_dataset(path) -> Dataset:
                         noise={k: _plain(v) for k, v in injected.attrs.items()} if injected else {},
                     )
                 )
-            signals = {name: {k: _plain(v) for k, v in s.attrs.items()} for name, s in f.get("signals", {}).items()}
+            signals = {
+                name: {**{k: _plain(v) for k, v in s.attrs.items()}, **{k: v[()] for k, v in s.items()}}
+                for name, s in f.get("signals", {}).items()
+            }
             return Dataset(
                 pulsars=pulsars,
                 config=_plain(f.attrs.get("config", "")),

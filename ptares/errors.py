@@ -9,7 +9,7 @@ ordinary exceptions with their tracebacks.
 
 from __future__ import annotations
 
-__all__ = ["InputError"]
+__all__ = ["InputError", "PhysicsWarning"]
 
 
 class InputError(Exception):
@@ -31,3 +31,7 @@ class InputError(Exception):
     def line(self) -> str:
         """The fault as one line: ``where: message``."""
         return f"{self.where}: {self.message}" if self.where else self.message
+
+
+class PhysicsWarning(UserWarning):
+    """Input that is valid but physically unusual (a binary close to merger, say)."""

@@ -44,6 +44,7 @@ class PulsarSetup:
     white_quadrature: float  #: s
     red_amplitude: float
     red_gamma: float
+    true_distance: float  #: kpc, the distance pulsar terms use (drawn when the config varies distances)
 
     @property
     def position(self) -> np.ndarray:
@@ -70,6 +71,18 @@ def _resolve(value, seed: int, name: str, field: str, scale: float = 1.0) -> flo
     if isinstance(value, Draw):
         value = value.sample(stream(seed, "parameter", name, field))
     return float(value) * scale
+
+
+def _true_distance(distance: float, error: float, vary: bool, seed: int, name: str) -> float:
+    """The catalogued distance, or a positive draw from N(distance, error) on the pulsar's own stream."""
+    if not vary or error == 0:
+        return distance
+    rng = stream(seed, "distance", name)
+    for _ in range(1000):
+        value = rng.normal(distance, error)
+        if value > 0:
+            return float(value)
+    return distance  # error >> distance: keep the catalogue value rather than loop forever
 
 
 def _first(*values):
@@ -136,6 +149,9 @@ def build_array(config: Config, seed: int) -> list[PulsarSetup]:
                 ),
                 red_amplitude=_resolve(_first(red and red.amplitude, noise.red.amplitude), seed, name, "red_amplitude"),
                 red_gamma=_resolve(_first(red and red.gamma, noise.red.gamma), seed, name, "red_gamma"),
+                true_distance=_true_distance(
+                    float(entry["distance"]), float(entry["distance_error"]), config.array.vary_distances, seed, name
+                ),
             )
         )
     return setups

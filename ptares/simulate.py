@@ -79,6 +79,7 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
                     "white_quadrature": p.white_quadrature,
                     "red_amplitude": p.red_amplitude,
                     "red_gamma": p.red_gamma,
+                    "distance": p.true_distance,
                 },
             )
         )
@@ -90,5 +91,5 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
         created=datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
         start_mjd=observations.start,
         span=observations.span,
-        signals={c.name: c.describe() for c in components},
+        signals={c.name: c.describe(context) for c in components},
     )

@@ -92,7 +92,8 @@ BASE = SMALL_TOML
         ("components = 8", 'components = 8\ncorrelation = "quadrupole"', "gwb.correlation", "hellings-downs"),
         ('[observing]', '[observing]\ngaps = [[54000, 53000]]', "observing.gaps", "start < end"),
         ('{ name = "Bb"', '{ name = "Aa"', "array", "repeat"),
-        ('[gwb]', '[[cw]]\nchirp_mass = 1e9\n[gwb]', "cw", "reserved"),
+        ("[gwb]", "[[cw]]\nchirp_mass = 1e9\n[gwb]", "cw[0].ra", "required key is missing"),
+        ("components = 8", 'components = 8\nsource = "binaries"\ncorrelation = "monopole"', "gwb", "hellings-downs"),
         ('cadence = "30 d"', 'cadence = "-30 d"', "observing.cadence", "positive"),
     ],
 )

@@ -9,7 +9,7 @@ one line to :data:`BUILDERS`.
 
 from __future__ import annotations
 
-from . import background, red, white
+from . import background, continuous, red, white
 from .base import Component, Context
 
 __all__ = ["BUILDERS", "build_components", "Component", "Context"]
@@ -19,6 +19,7 @@ BUILDERS = {
     "white": white.from_config,
     "red": red.from_config,
     "gwb": background.from_config,
+    "cw": continuous.from_config,
 }
 
 

@@ -60,7 +60,7 @@ class GaussianBackground:
         coefficients = np.einsum("ab,bck->cak", factor, z) * sd
         return synthesise_array(context.observations, coefficients[0], coefficients[1])
 
-    def describe(self) -> dict:
+    def describe(self, context: Context) -> dict:
         return {
             "amplitude": self.amplitude,
             "gamma": self.gamma,
@@ -71,8 +71,12 @@ class GaussianBackground:
 
 
 def from_config(config, pulsars):
-    """The background of ``[gwb]``, if the config has one."""
+    """The background of ``[gwb]``, if the config has one: Gaussian, or from a binary population."""
     gwb = config.gwb
     if gwb is None:
         return None
+    if gwb.source == "binaries":
+        from . import population
+
+        return population.from_config(config, pulsars)
     return GaussianBackground(gwb.amplitude, gwb.gamma, gwb.components, gwb.correlation)

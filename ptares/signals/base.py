@@ -1,8 +1,9 @@
 """What every signal or noise component sees, and what it must provide.
 
-A component has a ``name`` (the dataset key under ``injected/``) and a
+A component has a ``name`` (the dataset key under ``injected/``), a
 ``draw(context)`` method returning one residual series (s, before the
-timing-model fit) per pulsar.  Each draws from its own random streams
+timing-model fit) per pulsar, and ``describe(context)`` returning what the
+dataset records about it.  Each draws from its own random streams
 (:func:`ptares.rng.stream` with the component's name and the pulsar's), so
 components and pulsars are independent of one another's draws.
 """
@@ -36,8 +37,11 @@ class Component(Protocol):
         """Residuals (s) of this component for every pulsar, in array order."""
         ...
 
-    def describe(self) -> dict:
-        """Parameters recorded in the dataset under ``/signals/<name>``."""
+    def describe(self, context: Context) -> dict:
+        """Parameters recorded in the dataset under ``/signals/<name>``.
+
+        Scalars and strings become attributes; arrays (e.g. a table of sources) become datasets.
+        """
         ...
 
 

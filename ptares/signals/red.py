@@ -32,7 +32,7 @@ class RedNoise:
                 coefficients[:, a] = sd * stream(context.seed, self.name, pulsar.name).standard_normal((2, self.components))
         return synthesise_array(context.observations, coefficients[0], coefficients[1])
 
-    def describe(self) -> dict:
+    def describe(self, context: Context) -> dict:
         return {"components": self.components}
 
 

@@ -32,7 +32,7 @@ class WhiteNoise:
             out.append(stream(context.seed, self.name, pulsar.name).normal(0.0, sigma))
         return out
 
-    def describe(self) -> dict:
+    def describe(self, context: Context) -> dict:
         return {}
 
 
