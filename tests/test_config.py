@@ -148,3 +148,11 @@ def test_random_array_is_isotropic():
     vectors = np.array([p.position for p in pulsars])
     np.testing.assert_array_less(np.abs(vectors.mean(axis=0)), 4 / np.sqrt(3 * 4000))
     assert np.mean(vectors[:, 2] ** 2) == pytest.approx(1 / 3, abs=4 * np.sqrt(4 / 45 / 4000))
+
+
+@pytest.mark.parametrize("name", ["demo.toml", "random-array.toml", "binaries.toml"])
+def test_shipped_configs_are_valid(name):
+    from pathlib import Path
+
+    config = load_config(Path(__file__).parent.parent / "configs" / name)
+    assert config.run.seed is not None
