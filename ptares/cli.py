@@ -7,6 +7,7 @@ with status 2; nothing is written for a run that fails its checks.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import warnings
 from pathlib import Path
@@ -72,6 +73,24 @@ def _check(args) -> int:
     return 0
 
 
+OUTPUTS = ("dataset.h5", "residuals.png", "sky.png", "correlation.png")
+
+
+def _check_output_directory(out: Path, overwrite: bool) -> None:
+    """Fail before any work if ``out`` cannot take the outputs or would lose earlier ones."""
+    existing = out
+    while not existing.exists():
+        existing = existing.parent
+    if not existing.is_dir():
+        raise InputError("exists and is not a directory", str(existing))
+    if not os.access(existing, os.W_OK | os.X_OK):
+        raise InputError("directory is not writable", str(existing))
+    if not overwrite:
+        present = [name for name in OUTPUTS if (out / name).exists()] + sorted(p.name for p in out.glob("residuals-*.png"))
+        if present:
+            raise InputError(f"already holds {', '.join(present)}; pass --overwrite to replace them", str(out))
+
+
 def _simulate(args) -> int:
     from .config import load_config
     from .dataset import write_dataset
@@ -80,17 +99,17 @@ def _simulate(args) -> int:
 
     config = load_config(args.config)
     out = Path(args.out)
-    target = out / "dataset.h5"
-    if out.exists() and not out.is_dir():
-        raise InputError("exists and is not a directory", str(out))
-    if target.exists() and not args.overwrite:
-        raise InputError("already exists; pass --overwrite to replace it", str(target))
+    _check_output_directory(out, args.overwrite)
     dataset = simulate(config, progress=True)
-    write_dataset(dataset, target)
-    print(f"wrote {target} ({len(dataset.pulsars)} pulsars, seed {dataset.seed})")
-    if not args.no_figures:
-        for path in dataset_figures(dataset, out):
-            print(f"wrote {path}")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        target = write_dataset(dataset, out / "dataset.h5")
+        print(f"wrote {target} ({len(dataset.pulsars)} pulsars, seed {dataset.seed})")
+        if not args.no_figures:
+            for path in dataset_figures(dataset, out):
+                print(f"wrote {path}")
+    except OSError as exc:
+        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
     return 0
 
 

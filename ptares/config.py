@@ -12,6 +12,7 @@ fault into one :class:`~ptares.errors.InputError` naming the key.
 from __future__ import annotations
 
 import math
+import re
 import sys
 import warnings
 from pathlib import Path
@@ -20,6 +21,7 @@ from typing import Annotated, Any, Literal, Optional, Union
 import numpy as np
 from pydantic import (
     AfterValidator,
+    Strict,
     BaseModel,
     BeforeValidator,
     ConfigDict,
@@ -117,6 +119,37 @@ def Drawable(unit: str | None, *extra):
     return Annotated[Union[float, Draw], BeforeValidator(_drawable(unit)), *extra]
 
 
+def _at_most(bound: float):
+    """After-validator: a value, or both bounds of a draw, <= ``bound``."""
+
+    def check(value):
+        high = value.high if isinstance(value, Draw) else value
+        if high > bound:
+            raise ValueError(f"must be at most {bound:g}, got {high:g}")
+        return value
+
+    return check
+
+
+def _safe_name(name: str) -> str:
+    """A name usable as an HDF5 group and a file-name part: letters, digits and ``_ + - .``."""
+    if not NAME_PATTERN.fullmatch(name):
+        raise ValueError(
+            f"name {name!r} must be 1-64 characters of letters, digits, '_', '+', '-', '.', "
+            "starting with a letter or digit"
+        )
+    return name
+
+
+NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9_+\-.]{0,63}")
+SafeName = Annotated[str, AfterValidator(_safe_name)]
+MAX_COMPONENTS = 10_000
+MAX_TOAS = 1_000_000  #: per pulsar
+MJD_RANGE = (15_000.0, 100_000.0)  #: 1899 to 2132
+MaxAmplitude = AfterValidator(_at_most(1e-9))  # beyond this residuals exceed a second: surely a typo
+SpectralIndex = AfterValidator(lambda v: _at_least(-10.0)(_at_most(10.0)(v)))
+StartRange = AfterValidator(lambda v: _at_least(MJD_RANGE[0])(_at_most(MJD_RANGE[1])(v)))
+Count = Annotated[int, Strict()]
 Positive = AfterValidator(_at_least(0.0, strict=True))
 NonNegative = AfterValidator(_at_least(0.0))
 RightAscension = Annotated[float, BeforeValidator(parse_ra)]
@@ -135,7 +168,7 @@ class RunSection(_Section):
     """
 
     name: str = "ptares-run"
-    seed: Optional[int] = Field(default=None, ge=0)
+    seed: Optional[Count] = Field(default=None, ge=0, le=2**63 - 1)
 
 
 class WhiteNoise(_Section):
@@ -155,9 +188,9 @@ class RedNoise(_Section):
     ``components`` is the number of Fourier frequencies k/T.
     """
 
-    amplitude: Drawable(None, NonNegative) = 0.0
-    gamma: Drawable(None) = 13.0 / 3.0
-    components: int = Field(default=30, ge=1)
+    amplitude: Drawable(None, NonNegative, MaxAmplitude) = 0.0
+    gamma: Drawable(None, SpectralIndex) = 13.0 / 3.0
+    components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
 
 
 class NoiseSection(_Section):
@@ -171,8 +204,8 @@ class WhiteOverride(_Section):
 
 
 class RedOverride(_Section):
-    amplitude: Optional[Drawable(None, NonNegative)] = None
-    gamma: Optional[Drawable(None)] = None
+    amplitude: Optional[Drawable(None, NonNegative, MaxAmplitude)] = None
+    gamma: Optional[Drawable(None, SpectralIndex)] = None
 
 
 class Observing(_Section):
@@ -184,12 +217,12 @@ class Observing(_Section):
     error about it; ``gaps`` a list of ``[start, end]`` MJD ranges with no TOAs.
     """
 
-    start: Quantity("d") = 53005.0
+    start: Quantity("d", StartRange) = 53005.0
     span: Quantity("yr", Positive) = 10.0
     cadence: Quantity("d", Positive) = 14.0
     cadence_jitter: Quantity("d", NonNegative) = 0.0
     toa_error: Drawable("us", Positive) = 1.0
-    toa_error_scatter: Quantity(None, NonNegative) = 0.0
+    toa_error_scatter: Quantity(None, NonNegative, AfterValidator(_at_most(2.0))) = 0.0
     gaps: tuple[Gap, ...] = ()
 
     @field_validator("gaps")
@@ -213,27 +246,20 @@ class PulsarEntry(_Section):
     ``white``/``red`` tables override ``[noise.white]``/``[noise.red]``.
     """
 
-    name: str = Field(min_length=1)
+    name: SafeName
     ra: RightAscension
     dec: Declination
     distance: Quantity("kpc", Positive) = 1.0
     distance_error: Quantity("kpc", NonNegative) = 0.0
-    start: Optional[Quantity("d")] = None
+    start: Optional[Quantity("d", StartRange)] = None
     span: Optional[Quantity("yr", Positive)] = None
     cadence: Optional[Quantity("d", Positive)] = None
     cadence_jitter: Optional[Quantity("d", NonNegative)] = None
     toa_error: Optional[Drawable("us", Positive)] = None
-    toa_error_scatter: Optional[Quantity(None, NonNegative)] = None
+    toa_error_scatter: Optional[Quantity(None, NonNegative, AfterValidator(_at_most(2.0)))] = None
     gaps: Optional[tuple[Gap, ...]] = None
     white: WhiteOverride = WhiteOverride()
     red: RedOverride = RedOverride()
-
-    @field_validator("name")
-    @classmethod
-    def _plain_name(cls, name):
-        if "/" in name or name.strip() != name:
-            raise ValueError(f"pulsar name {name!r} must not contain '/' or surrounding spaces")
-        return name
 
 
 class RandomArray(_Section):
@@ -242,8 +268,8 @@ class RandomArray(_Section):
     Named ``<prefix>001``...; ``distance`` and ``distance_error`` in kpc, drawable.
     """
 
-    count: int = Field(ge=1)
-    prefix: str = "RP"
+    count: Count = Field(ge=1, le=100_000)
+    prefix: SafeName = "RP"
     distance: Drawable("kpc", Positive) = 1.0
     distance_error: Drawable("kpc", NonNegative) = 0.0
 
@@ -297,12 +323,12 @@ class Background(_Section):
     ``loudness_spread`` (dex) scatters their amplitudes log-normally.
     """
 
-    amplitude: Quantity(None, NonNegative)
-    gamma: Quantity(None) = 13.0 / 3.0
-    components: int = Field(default=30, ge=1)
+    amplitude: Quantity(None, NonNegative, MaxAmplitude)
+    gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
+    components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
     correlation: Literal[CORRELATIONS] = "hellings-downs"
     source: Literal["gaussian", "binaries"] = "gaussian"
-    binaries: int = Field(default=1000, ge=1)
+    binaries: Count = Field(default=1000, ge=1, le=1_000_000)
     loudness_spread: Quantity(None, NonNegative) = 0.0
 
     @model_validator(mode="after")
@@ -324,7 +350,7 @@ class ContinuousWave(_Section):
     the pulsar term.
     """
 
-    name: Optional[str] = None
+    name: Optional[SafeName] = None
     chirp_mass: Optional[Quantity("solMass", Positive)] = None
     distance: Optional[Quantity("Mpc", Positive)] = None
     strain: Optional[Quantity(None, Positive)] = None
@@ -375,6 +401,13 @@ class Config(_Section):
 
     _text: str = PrivateAttr(default="")
     _path: Optional[Path] = PrivateAttr(default=None)
+
+    @model_validator(mode="after")
+    def _consistent(self):
+        # InputError is not wrapped by pydantic: it reaches the caller with its field path
+        _check_schedules(self)
+        _check_sources(self)
+        return self
 
     @property
     def source_text(self) -> str:
@@ -434,15 +467,48 @@ def _message(error: dict) -> str:
     return message
 
 
+def _nominal_epochs(obs: Observing) -> int:
+    """Epochs a schedule has before jitter, outside its gaps."""
+    span_days = obs.span * 365.25
+    count = int(math.floor(span_days / obs.cadence)) + 1
+    if count > MAX_TOAS:
+        return count
+    epochs = obs.start + obs.cadence * np.arange(count)
+    keep = np.ones(count, dtype=bool)
+    for gap_start, gap_end in obs.gaps:
+        keep &= ~((epochs >= gap_start) & (epochs <= gap_end))
+    return int(keep.sum())
+
+
 def _check_schedules(config: Config) -> None:
-    """Cross-field checks that name the offending key."""
-    entries = config.array.pulsars or ()
-    where = [("observing", config.observing)] + [
-        (f"array.pulsars[{i}] ({p.name})", config.observing_for(p)) for i, p in enumerate(entries)
-    ]
-    for path, obs in where:
+    """Cross-field checks of every pulsar's schedule, naming the offending key."""
+    from .timing_model import column_names
+
+    columns = len(column_names(config.timing_model.fit))
+    entries = config.array.pulsars or (None,)
+    for i, pulsar in enumerate(entries):
+        obs = config.observing if pulsar is None else config.observing_for(pulsar)
+
+        def where(key):  # the pulsar's own key if it overrides it, else the [observing] default
+            if pulsar is not None and getattr(pulsar, key) is not None:
+                return f"array.pulsars[{i}] ({pulsar.name}).{key}"
+            return f"observing.{key}"
+
         if obs.span * 365.25 <= obs.cadence:
-            raise InputError(f"span ({obs.span} yr) is not longer than the cadence ({obs.cadence} d)", f"{path}.span")
+            raise InputError(f"span ({obs.span} yr) is not longer than the cadence ({obs.cadence} d)", where("span"))
+        count = _nominal_epochs(obs)
+        if count > MAX_TOAS:
+            raise InputError(f"{count} TOAs per pulsar is more than ptares handles ({MAX_TOAS})", where("cadence"))
+        if obs.cadence_jitter > obs.cadence:
+            raise InputError(
+                f"cadence_jitter ({obs.cadence_jitter} d) is larger than the cadence ({obs.cadence} d)", where("cadence_jitter")
+            )
+        if count <= columns:
+            name = "" if pulsar is None else f" for {pulsar.name}"
+            raise InputError(
+                f"leaves {count} TOAs{name}, not more than the {columns} timing-model columns",
+                where("gaps" if obs.gaps else "span"),
+            )
 
 
 def _check_sources(config: Config) -> None:
@@ -457,8 +523,8 @@ def _check_sources(config: Config) -> None:
     names = [config.cw_name(i) for i in range(len(config.cw))]
     for i, source in enumerate(config.cw):
         path = f"cw[{i}] ({config.cw_name(i)})"
-        if names.count(names[i]) > 1 or "/" in names[i]:
-            raise InputError("source names must be unique and contain no '/'", f"{path}.name")
+        if names.count(names[i]) > 1:
+            raise InputError("source names must be unique", f"{path}.name")
         key = "frequency" if source.frequency is not None else "orbital_frequency"
         f = source.gw_frequency_hz
         if f * span * DAY < 1.0:
@@ -487,9 +553,6 @@ def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None
         first = exc.errors()[0]
         loc = tuple(p for p in first["loc"] if not (isinstance(p, str) and p.startswith("function-")))
         raise InputError(_message(first), f"{where}: {_location(loc, raw)}" if loc else where) from None
-    try:
-        _check_schedules(config)
-        _check_sources(config)
     except InputError as exc:
         raise InputError(exc.message, f"{where}: {exc.where}") from None
     config._text = text

@@ -26,7 +26,7 @@ __all__ = ["residuals_figure", "sky_figure", "correlation_figure", "save_figure"
 #: Colour of each injected component, shared by all figures.
 COMPONENT_COLOURS = {"white": "#9a9a9a", "red": "#b8553a", "gwb": "#2a6f97", "cw": "#6a994e"}
 RESIDUAL_COLOUR = "#1b1b1b"
-MAX_STACKED = 60
+PER_PAGE = 50  #: pulsars per residuals figure; larger arrays get residuals-2.png and so on
 
 
 def _year(mjd):
@@ -40,14 +40,14 @@ def _after_fit(p, series):
     return fit_timing_model(series, p.design_matrix, weights)[0]
 
 
-def residuals_figure(dataset: Dataset):
-    """Residuals of every pulsar in its own row, with the injected red noise and background.
+def residuals_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE):
+    """Residuals of pulsars ``first`` to ``first + count``, each in its own row, with the injected signals.
 
     Each row has its own vertical scale (its range is printed at the right).
     The injected components are drawn with the timing model fitted out of
     them, so they lie over the residuals they helped make.
     """
-    pulsars = dataset.pulsars[:MAX_STACKED]
+    pulsars = dataset.pulsars[first : first + count]
     fig, axes = plt.subplots(len(pulsars), 1, sharex=True, squeeze=False,
                              figsize=(9.0, max(3.0, 0.55 * len(pulsars) + 1.2)))
     labelled = set()
@@ -68,8 +68,8 @@ def residuals_figure(dataset: Dataset):
         ax.text(1.005, 0.5, f"{high - low:.2g} µs", transform=ax.transAxes, fontsize=6, va="center")
         ax.grid(axis="x", alpha=0.3)
     title = f"Timing residuals after the timing-model fit: {len(dataset.pulsars)} pulsars"
-    if len(dataset.pulsars) > MAX_STACKED:
-        title += f" (first {MAX_STACKED} shown)"
+    if len(pulsars) < len(dataset.pulsars):
+        title += f" ({first + 1} to {first + len(pulsars)} here)"
     axes[0, 0].set_title(title + " (row height in µs at right)", fontsize=10)
     axes[-1, 0].set_xlabel("year")
     fig.legend(loc="upper right", fontsize=7, ncol=3, frameon=False)
@@ -119,13 +119,11 @@ def _pair_correlations(dataset: Dataset, component: str, grid_points: int = 512)
         for b in range(a + 1, n):
             lo = max(series[a][0][0], series[b][0][0])
             hi = min(series[a][0][-1], series[b][0][-1])
-            if hi <= lo:
-                rho.append(np.nan)
-                continue
             grid = np.linspace(lo, hi, grid_points)
             x = np.interp(grid, *series[a])
             y = np.interp(grid, *series[b])
-            rho.append(np.mean(x * y) / np.sqrt(np.mean(x * x) * np.mean(y * y)))
+            norm = np.sqrt(np.mean(x * x) * np.mean(y * y))
+            rho.append(np.mean(x * y) / norm if hi > lo and norm > 0 else np.nan)
     return np.array(rho)
 
 
@@ -140,7 +138,7 @@ def correlation_figure(dataset: Dataset, bins: int = 10):
     fig, ax = plt.subplots(figsize=(8.0, 5.0))
     ax.axhline(0.0, color="k", lw=0.6)
     ax.plot(np.degrees(curve_angle), pattern_function(pattern)(curve_angle), color="#1b1b1b", lw=1.6, label=f"{pattern} pattern")
-    if gwb and len(angles):
+    if gwb and len(angles) and gwb.get("amplitude", 0) > 0:
         rho = _pair_correlations(dataset, "gwb")
         ax.scatter(np.degrees(angles), rho, s=6, color=COMPONENT_COLOURS["gwb"], alpha=0.35, label="pairs (this realisation)")
         edges = np.linspace(0.0, np.pi, bins + 1)
@@ -174,10 +172,16 @@ def save_figure(fig, path) -> Path:
 
 
 def dataset_figures(dataset: Dataset, directory) -> list:
-    """Write the three dataset figures into ``directory``; returns their paths."""
+    """Write the dataset figures into ``directory``; returns their paths.
+
+    ``residuals.png`` (then ``residuals-2.png``... for every further
+    :data:`PER_PAGE` pulsars), ``sky.png`` and ``correlation.png``.
+    """
     directory = Path(directory)
-    return [
-        save_figure(residuals_figure(dataset), directory / "residuals.png"),
-        save_figure(sky_figure(dataset), directory / "sky.png"),
-        save_figure(correlation_figure(dataset), directory / "correlation.png"),
-    ]
+    paths = []
+    for page, first in enumerate(range(0, len(dataset.pulsars), PER_PAGE), start=1):
+        name = "residuals.png" if page == 1 else f"residuals-{page}.png"
+        paths.append(save_figure(residuals_figure(dataset, first), directory / name))
+    paths.append(save_figure(sky_figure(dataset), directory / "sky.png"))
+    paths.append(save_figure(correlation_figure(dataset), directory / "correlation.png"))
+    return paths

@@ -16,14 +16,16 @@ import numpy as np
 __all__ = ["stream", "fresh_seed"]
 
 
-def _word(name: str) -> int:
-    """A stable 32-bit integer for a name (Python's ``hash`` is salted per process)."""
-    return int.from_bytes(hashlib.blake2b(name.encode("utf-8"), digest_size=4).digest(), "little")
+def _words(name: str) -> tuple:
+    """Four stable 32-bit words for a name (a 128-bit digest: collisions are out of reach;
+    Python's ``hash`` would be salted per process)."""
+    digest = hashlib.blake2b(name.encode("utf-8"), digest_size=16).digest()
+    return tuple(int.from_bytes(digest[i : i + 4], "little") for i in range(0, 16, 4))
 
 
 def stream(seed: int, *names: str) -> np.random.Generator:
     """Random generator for the stream ``names`` under run ``seed``."""
-    key = tuple(_word(name) for name in names)
+    key = tuple(word for name in names for word in _words(name))
     return np.random.default_rng(np.random.SeedSequence(seed, spawn_key=key))
 
 

@@ -1,8 +1,8 @@
 """Observing schedules: when each pulsar is observed and how well.
 
 Epochs fall every ``cadence`` days from ``start`` over ``span``, each moved by a
-Gaussian offset of standard deviation ``cadence_jitter`` (kept inside the
-window), with epochs inside ``gaps`` removed.  Each TOA's quoted uncertainty is
+Gaussian offset of standard deviation ``cadence_jitter``; epochs moved outside
+the window, or inside ``gaps``, are dropped.  Each TOA's quoted uncertainty is
 the pulsar's ``toa_error`` times a log-normal factor of ``toa_error_scatter``
 dex.  All times are MJD (days), uncertainties seconds.
 """
@@ -19,8 +19,8 @@ def observation_epochs(start, span_days, cadence, jitter, gaps, rng: np.random.G
     end = start + span_days
     nominal = start + cadence * np.arange(int(np.floor(span_days / cadence)) + 1)
     offsets = rng.normal(0.0, jitter, nominal.size) if jitter > 0 else np.zeros(nominal.size)
-    epochs = np.clip(nominal + offsets, start, end)
-    keep = np.ones(epochs.size, dtype=bool)
+    epochs = nominal + offsets
+    keep = (epochs >= start) & (epochs <= end)
     for gap_start, gap_end in gaps:
         keep &= ~((epochs >= gap_start) & (epochs <= gap_end))
     return np.unique(epochs[keep])

@@ -43,9 +43,10 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
     terms = config.timing_model.fit
     columns = column_names(terms)
     for p, mjd in zip(pulsars, observations.mjd):
-        if mjd.size <= len(columns):
+        if mjd.size <= len(columns):  # the config's check counts epochs before jitter; jitter can drop a few
             raise InputError(
-                f"only {mjd.size} TOAs, not more than the {len(columns)} timing-model columns", f"pulsar {p.name}"
+                f"only {mjd.size} TOAs after jitter and gaps, not more than the {len(columns)} timing-model columns",
+                f"pulsar {p.name}",
             )
 
     context = Context(pulsars=tuple(pulsars), observations=observations, seed=seed)
@@ -53,6 +54,8 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
     injected = {}
     for component in tqdm(components, desc="simulating", unit="signal", disable=None if progress else True, leave=False):
         injected[component.name] = component.draw(context)
+        if not all(np.all(np.isfinite(series)) for series in injected[component.name]):
+            raise InputError("produced non-finite residuals; check its amplitude and spectral index", f"signal {component.name}")
 
     data = []
     for a, p in enumerate(pulsars):

@@ -11,6 +11,7 @@ ascension is commonly written in sexagesimal hours.
 from __future__ import annotations
 
 import math
+import warnings
 from fractions import Fraction
 
 import astropy.units as u
@@ -77,9 +78,17 @@ def _angle(value: object, string_unit: u.UnitBase, what: str) -> float:
         raise ValueError(f"expected {what} in degrees or sexagesimal, got {type(value).__name__}")
     text = value.strip()
     has_unit = any(c.isalpha() for c in text)
+    sexagesimal = ":" in text or len(text.split()) > 1
     try:
-        angle = Angle(text) if has_unit else Angle(text, unit=string_unit)
-    except (ValueError, u.UnitsError):
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")  # astropy warns (rather than fails) on e.g. 60 minutes
+            if has_unit:
+                angle = Angle(text)
+            elif sexagesimal:
+                angle = Angle(text, unit=string_unit)
+            else:
+                angle = Angle(float(text), unit=u.deg)  # a bare number in quotes is degrees, as unquoted
+    except (ValueError, u.UnitsError, Warning):
         raise ValueError(f"cannot read {value!r} as {what}") from None
     return _finite(float(angle.to_value(u.deg)), value)
 
@@ -87,18 +96,18 @@ def _angle(value: object, string_unit: u.UnitBase, what: str) -> float:
 def parse_ra(value: object) -> float:
     """Right ascension in degrees, in [0, 360).
 
-    Numbers are degrees; strings without a unit are sexagesimal hours
-    (``"04:37:15.9"`` or ``"4 37 15.9"``); strings with units are read by
-    astropy (``"4h37m15.9s"``, ``"69.3 deg"``).
+    Numbers (also quoted ones) are degrees; sexagesimal strings without a unit
+    are hours (``"04:37:15.9"`` or ``"4 37 15.9"``); strings with units are
+    read by astropy (``"4h37m15.9s"``, ``"69.3 deg"``).
     """
     degrees = _angle(value, u.hourangle, "right ascension")
-    if not 0.0 <= degrees < 360.0:
+    if not 0.0 <= degrees < 360.0 - 1e-9:
         raise ValueError(f"right ascension {value!r} is outside [0, 360) degrees")
     return degrees
 
 
 def parse_dec(value: object) -> float:
-    """Declination in degrees, in [-90, 90]; strings without a unit are sexagesimal degrees."""
+    """Declination in degrees, in [-90, 90]; sexagesimal strings without a unit are degrees."""
     degrees = _angle(value, u.deg, "declination")
     if not -90.0 <= degrees <= 90.0:
         raise ValueError(f"declination {value!r} is outside [-90, 90] degrees")

@@ -82,3 +82,35 @@ def test_existing_dataset_is_not_overwritten_without_flag(small_toml, tmp_path, 
     assert "--overwrite" in capsys.readouterr().err
     assert (out / "dataset.h5").read_bytes() == before
     assert main(["simulate", str(small_toml), "--out", str(out), "--no-figures", "--overwrite"]) == 0
+
+
+def test_unusable_output_directory_is_one_line(small_toml, tmp_path, capsys):
+    blocker = tmp_path / "file"
+    blocker.write_text("x")
+    assert main(["simulate", str(small_toml), "--out", str(blocker / "sub")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "exists and is not a directory" in err
+
+
+def test_check_and_simulate_agree_on_an_empty_schedule(tmp_path, capsys):
+    """Gaps covering a pulsar's whole window are caught by `check` itself, naming the key."""
+    config = tmp_path / "gaps.toml"
+    config.write_text(SMALL_TOML.replace("start = 54000", "start = 54000, gaps = [[50000, 60000]]"))
+    for command in (["check", str(config)], ["simulate", str(config), "--out", str(tmp_path / "o")]):
+        assert main(command) == 2
+        assert "array.pulsars[2] (Cc).gaps: leaves 0 TOAs" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()
+
+
+def test_zero_amplitude_background_and_many_pulsars_figures(tmp_path, recwarn):
+    """Every pulsar appears in a residuals figure (50 per page); a silent background draws no warnings."""
+    config = tmp_path / "many.toml"
+    config.write_text(
+        '[run]\nseed = 1\n[array]\nrandom = {count = 55}\n[observing]\nspan = 3\ncadence = 60\n'
+        "[gwb]\namplitude = 0\ncomponents = 3\n"
+    )
+    out = tmp_path / "out"
+    assert main(["simulate", str(config), "--out", str(out)]) == 0
+    assert (out / "residuals.png").exists() and (out / "residuals-2.png").exists()
+    assert not [w for w in recwarn if issubclass(w.category, RuntimeWarning)]
+    assert main(["simulate", str(config), "--out", str(out)]) == 2  # outputs present, no --overwrite

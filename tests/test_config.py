@@ -93,6 +93,21 @@ BASE = SMALL_TOML
         ('[observing]', '[observing]\ngaps = [[54000, 53000]]', "observing.gaps", "start < end"),
         ('{ name = "Bb"', '{ name = "Aa"', "array", "repeat"),
         ("[gwb]", "[[cw]]\nchirp_mass = 1e9\n[gwb]", "cw[0].ra", "required key is missing"),
+        ('name = "Aa"', 'name = "."', "array.pulsars[0] (.).name", "letters, digits"),
+        ('name = "Aa"', 'name = "a/b"', "array.pulsars[0] (a/b).name", "letters, digits"),
+        ('name = "Aa"', 'name = "A\\u0000b"', "array.pulsars[0]", "letters, digits"),
+        ("seed = 5", "seed = 99999999999999999999", "run.seed", ""),
+        ("seed = 5", "seed = 5.0", "run.seed", "integer"),
+        ("components = 8", "components = 100000000", "gwb.components", "less than or equal"),
+        ("amplitude = 3e-15", "amplitude = 1e300", "gwb.amplitude", "at most"),
+        ("components = 8", "components = 8\ngamma = 1000", "gwb.gamma", "at most"),
+        ('toa_error = "300 ns"', 'toa_error = "300 ns"\ntoa_error_scatter = 400', "observing.toa_error_scatter", "at most"),
+        ('cadence = "30 d"', "cadence = 1e-9", "observing.cadence", "more than ptares handles"),
+        ('cadence_jitter = "2 d"', 'cadence_jitter = "40 d"', "observing.cadence_jitter", "larger than the cadence"),
+        ("start = 53000", "start = 1e300", "observing.start", "at most"),
+        ('start = 54000', 'start = 54000, gaps = [[53000, 60000]]', "array.pulsars[2] (Cc).gaps", "leaves 0 TOAs"),
+        ('ra = "01:00:00"', 'ra = "24:00:00"', "array.pulsars[0] (Aa).ra", "'24:00:00'"),
+        ('ra = "01:00:00"', 'ra = "01:60:00"', "array.pulsars[0] (Aa).ra", "cannot read"),
         ("components = 8", 'components = 8\nsource = "binaries"\ncorrelation = "monopole"', "gwb", "hellings-downs"),
         ('cadence = "30 d"', 'cadence = "-30 d"', "observing.cadence", "positive"),
     ],
@@ -110,6 +125,23 @@ def test_bad_input_names_the_field(old, new, where, words):
 def test_empty_array_is_an_error():
     with pytest.raises(InputError, match="array: the array has no pulsars"):
         parse_config("[array]\npulsars = []\n")
+
+
+def test_random_array_count_and_prefix_are_checked():
+    with pytest.raises(InputError, match="array.random.prefix: name 'a/b'"):
+        parse_config('[array]\nrandom = {count = 3, prefix = "a/b"}\n')
+    with pytest.raises(InputError, match="array.random.count"):
+        parse_config("[array]\nrandom = {count = 1000000000}\n")
+    with pytest.raises(InputError, match="array.random.count"):
+        parse_config('[array]\nrandom = {count = "5"}\n')
+
+
+def test_quoted_bare_number_is_degrees_for_right_ascension():
+    """Only sexagesimal strings are hours: "15" means 15 degrees, like 15; "01 00 00" means 15 degrees too."""
+    entries = '[{name = "a", ra = "15", dec = 0}, {name = "b", ra = "01 00 00", dec = "-10 30 00"}]'
+    a, b = parse_config(f"[array]\npulsars = {entries}\n").array.pulsars
+    assert a.ra == pytest.approx(15.0) and b.ra == pytest.approx(15.0)
+    assert b.dec == pytest.approx(-10.5)
 
 
 def test_array_needs_exactly_one_kind():
@@ -136,8 +168,10 @@ def test_missing_and_unreadable_files(tmp_path):
 
 
 def test_config_is_immutable(small_toml):
+    from pydantic import ValidationError
+
     config = load_config(small_toml)
-    with pytest.raises(Exception):
+    with pytest.raises(ValidationError, match="frozen"):
         config.observing.span = 3.0
 
 

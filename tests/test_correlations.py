@@ -73,6 +73,8 @@ def test_monopole_and_dipole_patterns():
 
 @pytest.mark.parametrize("pattern", sorted(PATTERNS))
 def test_correlation_matrix_unit_diagonal_symmetric_semidefinite(pattern):
+    """A correlation matrix is symmetric, has unit diagonal (autocorrelation with the pulsar term, PHYSICS.md)
+    and is positive semi-definite (numpy eigvalsh): HD, monopole and dipole are all sky averages of products."""
     rng = np.random.default_rng(3)
     positions = unit_vector(rng.uniform(0, 2 * np.pi, 30), np.arcsin(rng.uniform(-1, 1, 30)))
     gamma = correlation_matrix(positions, pattern)
@@ -82,6 +84,7 @@ def test_correlation_matrix_unit_diagonal_symmetric_semidefinite(pattern):
 
 
 def test_correlation_matrix_off_diagonal_is_pattern_of_separation():
+    """Off the diagonal, the pattern at the pair's angle; the dipole matrix is p_a . p_b (common practice)."""
     positions = unit_vector(np.array([0.0, 1.0]), np.array([0.0, 0.0]))
     gamma = correlation_matrix(positions, "hellings-downs")
     assert gamma[0, 1] == pytest.approx(float(ptares.hellings_downs(1.0)))

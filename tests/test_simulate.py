@@ -9,8 +9,6 @@ from ptares.errors import InputError
 from ptares.signals.background import lower_factor
 from ptares.correlations import correlation_matrix
 from ptares.simulate import simulate
-from ptares.timing_model import fit_timing_model
-from ptares.signals.white import effective_uncertainties
 
 from conftest import small_config
 
@@ -58,13 +56,19 @@ def test_adding_a_pulsar_leaves_the_others_unchanged():
         np.testing.assert_array_equal(p.injected["red"], q.injected["red"])
 
 
-def test_residuals_are_fitted_sum_of_components():
+def test_residuals_are_weighted_least_squares_remainder_of_the_sum():
+    """Weighted least squares (common practice) is characterised without any solver: the removed part
+    lies in the span of the design matrix, and what is left is N^-1-orthogonal to every column."""
     data = simulate(_config(LISTED))
     for p in data.pulsars:
         total = sum(p.injected.values())
-        weights = effective_uncertainties(p.errors, p.noise["white_scale"], p.noise["white_quadrature"])
-        np.testing.assert_allclose(p.residuals, fit_timing_model(total, p.design_matrix, weights)[0], atol=1e-18)
-        assert abs(np.sum(p.residuals / weights**2)) < 1e-6 * np.sum(np.abs(p.residuals) / weights**2)
+        sigma = np.sqrt((p.noise["white_scale"] * p.errors) ** 2 + p.noise["white_quadrature"] ** 2)
+        removed = total - p.residuals
+        coefficients = np.linalg.lstsq(p.design_matrix, removed, rcond=None)[0]
+        np.testing.assert_allclose(p.design_matrix @ coefficients, removed, atol=1e-12 * np.abs(total).max())
+        projections = p.design_matrix.T @ (p.residuals / sigma**2)
+        scale = np.abs(p.design_matrix).T @ (np.abs(p.residuals) / sigma**2)
+        np.testing.assert_array_less(np.abs(projections), 1e-9 * scale)
 
 
 def test_white_noise_scatter_matches_scaled_errors():
@@ -85,7 +89,6 @@ def test_white_noise_scatter_matches_scaled_errors():
 
 @pytest.mark.parametrize("pattern", ["hellings-downs", "monopole", "dipole", "uncorrelated"])
 def test_lower_factor_reproduces_correlation_matrix(pattern):
-    rng = np.random.default_rng(6)
     positions = np.array([p.position for p in build_array(small_config(array={"random": {"count": 25}}), 3)])
     gamma = correlation_matrix(positions, pattern)
     factor = lower_factor(gamma)
@@ -99,9 +102,10 @@ def test_lower_factor_rejects_indefinite_matrix():
 
 
 def test_too_few_toas_for_the_timing_model():
-    config = small_config(observing={"span": 0.2, "cadence": 30.0})
-    with pytest.raises(InputError, match="timing-model columns"):
-        simulate(config)
+    """Three epochs cannot constrain three timing-model columns plus noise: rejected when the config is read."""
+    with pytest.raises(InputError, match="timing-model columns") as caught:
+        small_config(observing={"span": 0.2, "cadence": 30.0})
+    assert caught.value.where == "observing.span"
 
 
 def test_fresh_seed_is_recorded():
@@ -111,3 +115,30 @@ def test_fresh_seed_is_recorded():
     assert isinstance(data.seed, int)
     again = simulate(Config.model_validate(raw), seed=data.seed)
     np.testing.assert_array_equal(again.pulsars[0].residuals, data.pulsars[0].residuals)
+
+
+def test_dataset_files_identical_but_for_creation_time(tmp_path):
+    """Same config and seed: every dataset and attribute in the HDF5 file is equal, except `created`."""
+    import h5py
+
+    from ptares.dataset import write_dataset
+
+    config = _config(LISTED)
+    paths = [write_dataset(simulate(config), tmp_path / f"{i}.h5") for i in range(2)]
+
+    def contents(path):
+        items = {}
+        with h5py.File(path) as f:
+            def visit(name, node):
+                items[name] = node[()].tobytes() if isinstance(node, h5py.Dataset) else None
+                for key, value in node.attrs.items():
+                    items[f"{name}@{key}"] = repr(np.asarray(value).tolist())
+            f.visititems(visit)
+            for key, value in f.attrs.items():
+                if key != "created":
+                    items[f"@{key}"] = repr(np.asarray(value).tolist())
+        return items
+
+    first, second = (contents(p) for p in paths)
+    assert first == second
+    assert len(first) > 20

@@ -24,6 +24,7 @@ def test_fit_removes_injected_quadratic_exactly(schedule):
 
 
 def test_yearly_term_removes_annual_sinusoid(schedule):
+    """Any sinusoid of period one Julian year is a combination of the yearly sine and cosine columns."""
     mjd, sigma = schedule
     annual = 4e-7 * np.sin(2 * np.pi * mjd / 365.25 + 0.8)
     post, _ = fit_timing_model(annual, design_matrix(mjd, ["offset", "yearly"]), sigma)
