@@ -209,3 +209,21 @@ def test_close_to_merger_warns():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         parse_config(BASE)
+
+
+def test_vary_distances_draws_recorded_pulsar_distances():
+    """With [array] vary_distances the pulsar term uses a distance drawn from N(distance, distance_error),
+    recorded in the dataset; without it, the catalogue distance."""
+    pulsar = {"name": "A", "ra": 40.0, "dec": 20.0, "distance": 1.0, "distance_error": 0.2}
+    source = {"chirp_mass": 1e9, "distance": 50.0, "frequency": 10.0, "ra": 150.0, "dec": -30.0}
+    fixed = simulate(cw_config(pulsar, source))
+    raw = cw_config(pulsar, source).model_dump(exclude_none=True)
+    raw["array"]["vary_distances"] = True
+    from ptares.config import Config
+
+    drawn = simulate(Config.model_validate(raw))
+    again = simulate(Config.model_validate(raw))
+    assert fixed.pulsars[0].noise["distance"] == 1.0
+    assert drawn.pulsars[0].noise["distance"] != 1.0
+    assert drawn.pulsars[0].noise["distance"] == again.pulsars[0].noise["distance"]
+    assert not np.allclose(drawn.pulsars[0].injected["cw"], fixed.pulsars[0].injected["cw"])
