@@ -76,7 +76,7 @@ def _check(args) -> int:
 OUTPUTS = ("dataset.h5", "residuals.png", "sky.png", "correlation.png")
 
 
-def _check_output_directory(out: Path, overwrite: bool) -> None:
+def _check_output_directory(out: Path, overwrite: bool, outputs=OUTPUTS) -> None:
     """Fail before any work if ``out`` cannot take the outputs or would lose earlier ones."""
     existing = out
     while not existing.exists():
@@ -86,7 +86,9 @@ def _check_output_directory(out: Path, overwrite: bool) -> None:
     if not os.access(existing, os.W_OK | os.X_OK):
         raise InputError("directory is not writable", str(existing))
     if not overwrite:
-        present = [name for name in OUTPUTS if (out / name).exists()] + sorted(p.name for p in out.glob("residuals-*.png"))
+        present = [name for name in outputs if (out / name).exists()]
+        if outputs is OUTPUTS:
+            present += sorted(p.name for p in out.glob("residuals-*.png"))
         if present:
             raise InputError(f"already holds {', '.join(present)}; pass --overwrite to replace them", str(out))
 
@@ -113,6 +115,66 @@ def _simulate(args) -> int:
     return 0
 
 
+def _correlate(args) -> int:
+    from .config import CorrelateSection, load_correlate_section
+    from .correlate import correlate
+    from .dataset import load_dataset
+    from .figures import correlations_figure, nulls_figure, save_figure
+    from .noise_model import noise_from_dataset, noise_from_values
+
+    section = load_correlate_section(args.config) if args.config else CorrelateSection()
+    overrides = {k: getattr(args, k) for k in ("gamma", "components", "noise", "bins", "scrambles", "phase_shifts", "seed")
+                 if getattr(args, k) is not None}
+    if args.overlays:
+        overrides["overlays"] = True
+    if overrides:
+        from pydantic import ValidationError
+
+        try:
+            section = CorrelateSection.model_validate({**section.model_dump(), **overrides})
+        except ValidationError as exc:
+            first = exc.errors()[0]
+            raise InputError(first["msg"], "--" + str(first["loc"][0]).replace("_", "-")) from None
+    dataset = load_dataset(args.dataset)
+    if section.noise == "injected":
+        noise = noise_from_dataset(dataset, gamma=section.gamma)
+    else:
+        values = section.noise_values
+        noise = noise_from_values(
+            dataset,
+            white_scale=values.white_scale,
+            white_quadrature=values.white_quadrature * 1e-6,
+            red_amplitude=values.red_amplitude,
+            red_gamma=values.red_gamma,
+            red_components=values.red_components,
+            common_amplitude=values.common_amplitude,
+            common_gamma=values.common_gamma,
+            pulsars={
+                name: {k: v * 1e-6 if k == "white_quadrature" else v for k, v in table.items()}
+                for name, table in values.pulsars.items()
+            },
+        )
+    out = Path(args.out)
+    outputs = ("correlations.json", "correlations.png", "nulls.png")
+    _check_output_directory(out, args.overwrite, outputs)
+    result = correlate(dataset, noise, section, progress=True)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        result.write(out / "correlations.json")
+        print(f"wrote {out / 'correlations.json'}")
+        save_figure(correlations_figure(result), out / "correlations.png")
+        print(f"wrote {out / 'correlations.png'}")
+        if result.nulls:
+            save_figure(nulls_figure(result), out / "nulls.png")
+            print(f"wrote {out / 'nulls.png'}")
+    except OSError as exc:
+        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
+    hd = result.estimates["hellings-downs"]
+    p_text = f", p = {hd['p_value']:.3g}" if "p_value" in hd else ""
+    print(f"hellings-downs: A^2 = {hd['amplitude2']:.3g} +/- {hd['sigma']:.3g}, S/N = {hd['snr']:.2f}{p_text}")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="ptares", description="Pulsar-timing-array residual modeller.")
     parser.add_argument("--version", action="version", version=f"ptares {__version__}")
@@ -128,6 +190,21 @@ def build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--overwrite", action="store_true", help="replace an existing dataset.h5")
     sim.add_argument("--no-figures", action="store_true", help="write the dataset only")
     sim.set_defaults(run=_simulate)
+
+    cor = commands.add_parser("correlate", help="pair cross-correlations, optimal statistics and nulls of a dataset")
+    cor.add_argument("dataset", help="HDF5 dataset (from ptares simulate)")
+    cor.add_argument("--out", required=True, help="output directory (correlations.json, correlations.png, nulls.png)")
+    cor.add_argument("--config", help="TOML file whose [correlate] table holds the settings")
+    cor.add_argument("--gamma", type=float, help="spectral index of the template (default: injected, else 13/3)")
+    cor.add_argument("--components", type=int, help="Fourier frequencies of the template")
+    cor.add_argument("--noise", choices=["injected", "values"], help="noise model: dataset truth or [correlate.noise_values]")
+    cor.add_argument("--bins", type=int, help="angular bins (default 8)")
+    cor.add_argument("--scrambles", type=int, help="sky-scramble null trials (default 100; 0 for none)")
+    cor.add_argument("--phase-shifts", type=int, help="phase-shift null trials (default 100; 0 for none)")
+    cor.add_argument("--seed", type=int, help="seed of the null trials (default 0)")
+    cor.add_argument("--overlays", action="store_true", help="also draw the monopole and dipole fits")
+    cor.add_argument("--overwrite", action="store_true", help="replace earlier outputs")
+    cor.set_defaults(run=_correlate)
     return parser
 
 

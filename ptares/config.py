@@ -388,6 +388,45 @@ class ContinuousWave(_Section):
         return (self.frequency if self.frequency is not None else 2.0 * self.orbital_frequency) * 1e-9
 
 
+class CorrelateNoise(_Section):
+    """``[correlate.noise_values]``: noise values when ``noise = "values"`` (quadrature in microseconds).
+
+    ``pulsars`` maps pulsar names to tables overriding any of the per-pulsar keys.
+    """
+
+    white_scale: Quantity(None, Positive) = 1.0
+    white_quadrature: Quantity("us", NonNegative) = 0.0
+    red_amplitude: Quantity(None, NonNegative, MaxAmplitude) = 0.0
+    red_gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
+    red_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    common_amplitude: Quantity(None, NonNegative, MaxAmplitude) = 0.0
+    common_gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
+    pulsars: dict[str, dict[str, float]] = {}
+
+
+class CorrelateSection(_Section):
+    """``[correlate]``: settings of ``ptares correlate``.
+
+    ``gamma`` and ``components`` shape the template (default: the injected
+    background's, else 13/3 and 30); ``noise`` is ``"injected"`` (the dataset's
+    truth) or ``"values"`` (``[correlate.noise_values]``); ``bins`` angular bins;
+    ``scrambles`` and ``phase_shifts`` null trials (0 for none) with
+    ``scramble_threshold`` the largest match a kept scramble may have; ``seed``
+    for the nulls.
+    """
+
+    gamma: Optional[Quantity(None, SpectralIndex)] = None
+    components: Optional[Count] = Field(default=None, ge=1, le=MAX_COMPONENTS)
+    noise: Literal["injected", "values"] = "injected"
+    bins: Count = Field(default=8, ge=2, le=90)
+    scrambles: Count = Field(default=100, ge=0, le=100_000)
+    phase_shifts: Count = Field(default=100, ge=0, le=100_000)
+    scramble_threshold: Quantity(None, Positive, AfterValidator(_at_most(1.0))) = 0.1
+    seed: Count = Field(default=0, ge=0, le=2**63 - 1)
+    overlays: bool = False
+    noise_values: CorrelateNoise = CorrelateNoise()
+
+
 class Config(_Section):
     """A whole validated run configuration."""
 
@@ -398,6 +437,7 @@ class Config(_Section):
     timing_model: TimingModel = TimingModel()
     gwb: Optional[Background] = None
     cw: tuple[ContinuousWave, ...] = ()
+    correlate: CorrelateSection = CorrelateSection()
 
     _text: str = PrivateAttr(default="")
     _path: Optional[Path] = PrivateAttr(default=None)
@@ -541,6 +581,31 @@ def _check_sources(config: Config) -> None:
             warnings.warn(f"{path}: chirp mass {source.chirp_mass:.3g} solar masses is unusually large", PhysicsWarning, stacklevel=2)
 
 
+def _validation_error(exc: ValidationError, raw: dict, where: str, prefix: tuple = ()) -> InputError:
+    first = exc.errors()[0]
+    loc = prefix + tuple(p for p in first["loc"] if not (isinstance(p, str) and p.startswith("function-")))
+    return InputError(_message(first), f"{where}: {_location(loc, raw)}" if loc else where)
+
+
+def load_correlate_section(path) -> CorrelateSection:
+    """The ``[correlate]`` table of the TOML file at ``path`` (other tables are not read)."""
+    path = Path(path)
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError("file not found", str(path)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read file ({exc.__class__.__name__}: {exc})", str(path)) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML: {exc}", str(path)) from None
+    if "correlate" not in raw:
+        raise InputError("has no [correlate] table", str(path))
+    try:
+        return CorrelateSection.model_validate(raw["correlate"])
+    except ValidationError as exc:
+        raise _validation_error(exc, raw, str(path), ("correlate",)) from None
+
+
 def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None) -> Config:
     """Validate TOML ``text``; ``where`` names it in error messages."""
     try:
@@ -550,9 +615,7 @@ def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None
     try:
         config = Config.model_validate(raw)
     except ValidationError as exc:
-        first = exc.errors()[0]
-        loc = tuple(p for p in first["loc"] if not (isinstance(p, str) and p.startswith("function-")))
-        raise InputError(_message(first), f"{where}: {_location(loc, raw)}" if loc else where) from None
+        raise _validation_error(exc, raw, where) from None
     except InputError as exc:
         raise InputError(exc.message, f"{where}: {exc.where}") from None
     config._text = text

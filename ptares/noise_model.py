@@ -1,0 +1,102 @@
+"""The noise model an analysis assumes: white noise, red noise and a common process per pulsar.
+
+An estimator needs each pulsar's auto-covariance.  :class:`NoiseModel` holds the
+parameters that build it, one value per pulsar (white-noise scale and
+quadrature in seconds, red-noise amplitude and index) plus the common process
+(amplitude and index of a background shared by all pulsars, uncorrelated in this
+role).  It comes from the dataset's injected truth (:func:`noise_from_dataset`),
+from values in a config (:func:`noise_from_values`), or, for a noise-marginalised
+analysis, from posterior draws (a list of models).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .dataset import Dataset
+from .errors import InputError
+
+__all__ = ["NoiseModel", "noise_from_dataset", "noise_from_values"]
+
+
+@dataclass(frozen=True)
+class NoiseModel:
+    """Per-pulsar noise parameters (arrays of length P) and the common process."""
+
+    white_scale: np.ndarray
+    white_quadrature: np.ndarray  #: s
+    red_amplitude: np.ndarray
+    red_gamma: np.ndarray
+    red_components: int
+    common_amplitude: float
+    common_gamma: float
+
+    def white_sigma(self, index: int, toa_errors: np.ndarray) -> np.ndarray:
+        """White-noise standard deviation (s) of each TOA of pulsar ``index``."""
+        return np.sqrt((self.white_scale[index] * toa_errors) ** 2 + self.white_quadrature[index] ** 2)
+
+
+def noise_from_dataset(dataset: Dataset, gamma: float | None = None) -> NoiseModel:
+    """The injected noise of a simulated dataset, with the injected background as the common process.
+
+    ``gamma`` overrides the common process's index (default: the injected one, else 13/3).
+    """
+    try:
+        noise = [p.noise for p in dataset.pulsars]
+        white_scale = np.array([n["white_scale"] for n in noise], dtype=float)
+        white_quadrature = np.array([n["white_quadrature"] for n in noise], dtype=float)
+        red_amplitude = np.array([n["red_amplitude"] for n in noise], dtype=float)
+        red_gamma = np.array([n["red_gamma"] for n in noise], dtype=float)
+    except KeyError as exc:
+        raise InputError(f"has no injected noise parameter {exc} (not simulated by ptares?)", "dataset") from None
+    red = dataset.signals.get("red", {})
+    gwb = dataset.signals.get("gwb", {})
+    return NoiseModel(
+        white_scale=white_scale,
+        white_quadrature=white_quadrature,
+        red_amplitude=red_amplitude,
+        red_gamma=red_gamma,
+        red_components=int(red.get("components", 30)),
+        common_amplitude=float(gwb.get("amplitude", 0.0)),
+        common_gamma=float(gamma if gamma is not None else gwb.get("gamma", 13.0 / 3.0)),
+    )
+
+
+def noise_from_values(
+    dataset: Dataset,
+    white_scale=1.0,
+    white_quadrature=0.0,
+    red_amplitude=0.0,
+    red_gamma=13.0 / 3.0,
+    red_components=30,
+    common_amplitude=0.0,
+    common_gamma=13.0 / 3.0,
+    pulsars: dict | None = None,
+) -> NoiseModel:
+    """Noise given as values: defaults for every pulsar, ``pulsars`` maps names to per-pulsar overrides.
+
+    ``white_quadrature`` in seconds.
+    """
+    count = len(dataset.pulsars)
+    columns = {
+        "white_scale": np.full(count, float(white_scale)),
+        "white_quadrature": np.full(count, float(white_quadrature)),
+        "red_amplitude": np.full(count, float(red_amplitude)),
+        "red_gamma": np.full(count, float(red_gamma)),
+    }
+    names = dataset.names
+    for name, overrides in (pulsars or {}).items():
+        if name not in names:
+            raise InputError(f"pulsar {name!r} is not in the dataset", "correlate.noise.pulsars")
+        for key, value in overrides.items():
+            if key not in columns:
+                raise InputError(f"unknown noise parameter {key!r}", f"correlate.noise.pulsars.{name}")
+            columns[key][names.index(name)] = float(value)
+    return NoiseModel(
+        red_components=int(red_components),
+        common_amplitude=float(common_amplitude),
+        common_gamma=float(common_gamma),
+        **columns,
+    )
