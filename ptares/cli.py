@@ -175,6 +175,67 @@ def _correlate(args) -> int:
     return 0
 
 
+def _fit(args) -> int:
+    import json
+
+    from .config import FitSection, load_config, load_section
+    from .dataset import atomic_path, load_dataset, write_dataset
+    from .figures import corner_figure, save_figure, trace_figure
+    from .fit_model import FitModel
+    from .sampling import run_sampler, summarise
+    from .simulate import simulate
+
+    source = Path(args.source)
+    out = Path(args.out)
+    if source.suffix.lower() in (".h5", ".hdf5"):
+        dataset = load_dataset(source)
+        section = load_section(args.config, "fit", FitSection) if args.config else FitSection()
+        write_copy = False
+    else:
+        config = load_config(source)
+        section = config.fit
+        if args.config:
+            section = load_section(args.config, "fit", FitSection)
+        dataset = None
+        write_copy = True
+    overrides = {k: getattr(args, k) for k in ("max_steps", "walkers", "workers", "seed") if getattr(args, k) is not None}
+    if overrides:
+        section = section.model_copy(update=overrides)
+    # chains.h5 is resumed, not overwritten; the other outputs are rewritten at the end of every run
+    _check_output_directory(out, True)
+    if dataset is None:
+        dataset = simulate(config, progress=True)
+    model = FitModel(dataset, section)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        if write_copy and not (out / "dataset.h5").exists():
+            write_dataset(dataset, out / "dataset.h5")
+        chains = out / "chains.h5"
+        print(f"fitting {model.ndim} parameters ({', '.join(model.names[:6])}{', ...' if model.ndim > 6 else ''}) "
+              f"to {len(model.dataset.pulsars)} pulsars; chains in {chains}")
+        try:
+            run = run_sampler(model, chains, progress=True, overwrite=args.overwrite)
+        except KeyboardInterrupt:
+            print(f"ptares: interrupted; the chains so far are in {chains}; run the same command to resume",
+                  file=sys.stderr)
+            return 130
+        summary = summarise(model, run)
+        with atomic_path(out / "posterior.json") as temporary:
+            temporary.write_text(json.dumps(summary, indent=1))
+        samples = run.chain[summary["burn"] :: section.thin].reshape(-1, model.ndim)
+        save_figure(corner_figure(samples, model.names, model.injected), out / "corner.png")
+        save_figure(trace_figure(run.chain, model.names, summary["burn"], model.injected), out / "trace.png")
+    except OSError as exc:
+        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
+    state = "converged" if summary["converged"] else "NOT converged (raise max_steps and rerun to continue)"
+    print(f"{run.steps} steps, {state}; wrote {out / 'posterior.json'}, corner.png, trace.png")
+    for name in model.names[:8]:
+        entry = summary["parameters"][name]
+        low, high = entry["interval68"]
+        print(f"  {name:28s} {entry['median']:+.4g}  68%: [{low:+.4g}, {high:+.4g}]")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="ptares", description="Pulsar-timing-array residual modeller.")
     parser.add_argument("--version", action="version", version=f"ptares {__version__}")
@@ -205,6 +266,17 @@ def build_parser() -> argparse.ArgumentParser:
     cor.add_argument("--overlays", action="store_true", help="also draw the monopole and dipole fits")
     cor.add_argument("--overwrite", action="store_true", help="replace earlier outputs")
     cor.set_defaults(run=_correlate)
+
+    fit = commands.add_parser("fit", help="Bayesian fit of noise, background and continuous waves with emcee")
+    fit.add_argument("source", help="a TOML config (simulated, then fitted with its [fit]) or an HDF5 dataset")
+    fit.add_argument("--out", required=True, help="output directory (chains.h5, posterior.json, corner.png, trace.png)")
+    fit.add_argument("--config", help="TOML file whose [fit] table holds the settings")
+    fit.add_argument("--max-steps", type=int, help="most steps to run (rerun with more to extend)")
+    fit.add_argument("--walkers", type=int, help="number of walkers (default: automatic)")
+    fit.add_argument("--workers", type=int, help="processes for likelihood calls")
+    fit.add_argument("--seed", type=int, help="seed of the sampler")
+    fit.add_argument("--overwrite", action="store_true", help="start the chains afresh instead of resuming")
+    fit.set_defaults(run=_fit)
     return parser
 
 

@@ -427,6 +427,80 @@ class CorrelateSection(_Section):
     noise_values: CorrelateNoise = CorrelateNoise()
 
 
+class Prior(BaseModel):
+    """A prior: exactly one of ``uniform = [low, high]``, ``log_uniform = [low, high]``
+    (density 1/x) or ``normal = [mean, sd]`` (optionally truncated to ``bounds = [low, high]``)."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+    uniform: Optional[tuple[float, float]] = None
+    log_uniform: Optional[tuple[float, float]] = None
+    normal: Optional[tuple[float, float]] = None
+    bounds: Optional[tuple[float, float]] = None
+
+    @model_validator(mode="after")
+    def _one_kind(self):
+        given = [k for k in ("uniform", "log_uniform", "normal") if getattr(self, k) is not None]
+        if len(given) != 1:
+            raise ValueError("a prior is exactly one of uniform, log_uniform or normal")
+        kind = given[0]
+        first, second = getattr(self, kind)
+        if kind == "normal":
+            if second <= 0:
+                raise ValueError(f"normal prior needs a positive sd, got {second}")
+            if self.bounds is not None and not self.bounds[0] < self.bounds[1]:
+                raise ValueError(f"bounds need lower < upper, got {list(self.bounds)}")
+        else:
+            if self.bounds is not None:
+                raise ValueError("'bounds' goes with a normal prior only")
+            if not first < second:
+                raise ValueError(f"{kind} prior needs lower < upper, got [{first}, {second}]")
+            if kind == "log_uniform" and first <= 0:
+                raise ValueError("log_uniform bounds must be positive")
+        return self
+
+
+class FitSection(_Section):
+    """``[fit]``: the model ``ptares fit`` samples and how.
+
+    ``common``: the common process, ``"uncorrelated"``, ``"hellings-downs"`` or
+    ``"none"``, on ``components`` frequencies; ``red``: each pulsar's red noise
+    ``"free"``, ``"injected"`` (fixed at the dataset's truth) or ``"none"``, on
+    ``red_components`` frequencies; ``white``: ``"injected"`` or ``"free"``;
+    ``cw``: fit a continuous wave, with parameters ``cw_free`` free and the rest
+    from ``cw_values`` (else the dataset's first injected source).  ``fixed``
+    pins any parameter to a value; ``priors`` replaces default priors (keys are
+    parameter names, or a per-pulsar name without the pulsar, e.g.
+    ``red_log10_A``).  Sampler: ``walkers`` (0: automatic), ``max_steps``, stop
+    when the chain is longer than ``autocorr_factor`` autocorrelation times,
+    ``thin``, ``burn`` (default two autocorrelation times), ``start`` at draws
+    from the prior or near the maximum posterior, ``seed``, ``workers``
+    (processes for likelihood calls; 1: none).  ``pulsars`` limits the fit to
+    those pulsars.
+    """
+
+    common: Literal["uncorrelated", "hellings-downs", "none"] = "uncorrelated"
+    components: Optional[Count] = Field(default=None, ge=1, le=MAX_COMPONENTS)
+    red: Optional[Literal["free", "injected", "none"]] = None
+    red_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    white: Literal["injected", "free"] = "injected"
+    cw: bool = False
+    cw_free: tuple[Literal["log10_h0", "phase", "cos_inclination", "polarization", "ra", "sin_dec", "log10_frequency"], ...] = (
+        "log10_h0", "phase", "cos_inclination", "polarization")
+    cw_values: dict[str, float] = {}
+    cw_pulsar_term: bool = False
+    fixed: dict[str, float] = {}
+    priors: dict[str, Prior] = {}
+    pulsars: Optional[tuple[str, ...]] = None
+    walkers: Count = Field(default=0, ge=0, le=10_000)
+    max_steps: Count = Field(default=20_000, ge=10, le=10_000_000)
+    autocorr_factor: Quantity(None, Positive) = 50.0
+    thin: Count = Field(default=1, ge=1)
+    burn: Optional[Count] = Field(default=None, ge=0)
+    start: Literal["prior", "map"] = "prior"
+    seed: Count = Field(default=0, ge=0, le=2**63 - 1)
+    workers: Count = Field(default=1, ge=1, le=256)
+
+
 class Config(_Section):
     """A whole validated run configuration."""
 
@@ -438,6 +512,7 @@ class Config(_Section):
     gwb: Optional[Background] = None
     cw: tuple[ContinuousWave, ...] = ()
     correlate: CorrelateSection = CorrelateSection()
+    fit: FitSection = FitSection()
 
     _text: str = PrivateAttr(default="")
     _path: Optional[Path] = PrivateAttr(default=None)
@@ -589,6 +664,11 @@ def _validation_error(exc: ValidationError, raw: dict, where: str, prefix: tuple
 
 def load_correlate_section(path) -> CorrelateSection:
     """The ``[correlate]`` table of the TOML file at ``path`` (other tables are not read)."""
+    return load_section(path, "correlate", CorrelateSection)
+
+
+def load_section(path, name: str, model):
+    """The ``[name]`` table of the TOML file at ``path`` validated by ``model`` (other tables are not read)."""
     path = Path(path)
     try:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
@@ -598,12 +678,12 @@ def load_correlate_section(path) -> CorrelateSection:
         raise InputError(f"cannot read file ({exc.__class__.__name__}: {exc})", str(path)) from None
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"not valid TOML: {exc}", str(path)) from None
-    if "correlate" not in raw:
-        raise InputError("has no [correlate] table", str(path))
+    if name not in raw:
+        raise InputError(f"has no [{name}] table", str(path))
     try:
-        return CorrelateSection.model_validate(raw["correlate"])
+        return model.model_validate(raw[name])
     except ValidationError as exc:
-        raise _validation_error(exc, raw, str(path), ("correlate",)) from None
+        raise _validation_error(exc, raw, str(path), (name,)) from None
 
 
 def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None) -> Config:
