@@ -123,8 +123,8 @@ def _correlate(args) -> int:
     from .noise_model import noise_from_dataset, noise_from_values
 
     section = load_correlate_section(args.config) if args.config else CorrelateSection()
-    overrides = {k: getattr(args, k) for k in ("gamma", "components", "noise", "bins", "scrambles", "phase_shifts", "seed")
-                 if getattr(args, k) is not None}
+    overrides = {k: getattr(args, k) for k in ("gamma", "components", "noise", "chains", "draws", "bins", "scrambles",
+                                               "phase_shifts", "seed") if getattr(args, k) is not None}
     if args.overlays:
         overrides["overlays"] = True
     if overrides:
@@ -138,6 +138,13 @@ def _correlate(args) -> int:
     dataset = load_dataset(args.dataset)
     if section.noise == "injected":
         noise = noise_from_dataset(dataset, gamma=section.gamma)
+    elif section.noise == "posterior":
+        from .noise_model import noise_from_chains
+
+        chains = Path(section.chains)
+        if args.config and not chains.is_absolute():
+            chains = Path(args.config).parent / chains
+        noise = noise_from_chains(dataset, chains, section.draws, section.seed)
     else:
         values = section.noise_values
         noise = noise_from_values(
@@ -258,7 +265,10 @@ def build_parser() -> argparse.ArgumentParser:
     cor.add_argument("--config", help="TOML file whose [correlate] table holds the settings")
     cor.add_argument("--gamma", type=float, help="spectral index of the template (default: injected, else 13/3)")
     cor.add_argument("--components", type=int, help="Fourier frequencies of the template")
-    cor.add_argument("--noise", choices=["injected", "values"], help="noise model: dataset truth or [correlate.noise_values]")
+    cor.add_argument("--noise", choices=["injected", "values", "posterior"],
+                     help="noise model: dataset truth, [correlate.noise_values], or posterior draws of a fit")
+    cor.add_argument("--chains", help="chains.h5 of a ptares fit (with --noise posterior)")
+    cor.add_argument("--draws", type=int, help="posterior draws to average over (default 50)")
     cor.add_argument("--bins", type=int, help="angular bins (default 8)")
     cor.add_argument("--scrambles", type=int, help="sky-scramble null trials (default 100; 0 for none)")
     cor.add_argument("--phase-shifts", type=int, help="phase-shift null trials (default 100; 0 for none)")

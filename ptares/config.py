@@ -409,7 +409,9 @@ class CorrelateSection(_Section):
 
     ``gamma`` and ``components`` shape the template (default: the injected
     background's, else 13/3 and 30); ``noise`` is ``"injected"`` (the dataset's
-    truth) or ``"values"`` (``[correlate.noise_values]``); ``bins`` angular bins;
+    truth), ``"values"`` (``[correlate.noise_values]``) or ``"posterior"``
+    (``draws`` samples of a ``ptares fit`` whose ``chains.h5`` is ``chains``: the
+    noise-marginalised statistic); ``bins`` angular bins;
     ``scrambles`` and ``phase_shifts`` null trials (0 for none) with
     ``scramble_threshold`` the largest match a kept scramble may have; ``seed``
     for the nulls.
@@ -417,7 +419,9 @@ class CorrelateSection(_Section):
 
     gamma: Optional[Quantity(None, SpectralIndex)] = None
     components: Optional[Count] = Field(default=None, ge=1, le=MAX_COMPONENTS)
-    noise: Literal["injected", "values"] = "injected"
+    noise: Literal["injected", "values", "posterior"] = "injected"
+    chains: Optional[str] = None
+    draws: Count = Field(default=50, ge=1, le=100_000)
     bins: Count = Field(default=8, ge=2, le=90)
     scrambles: Count = Field(default=100, ge=0, le=100_000)
     phase_shifts: Count = Field(default=100, ge=0, le=100_000)
@@ -425,6 +429,12 @@ class CorrelateSection(_Section):
     seed: Count = Field(default=0, ge=0, le=2**63 - 1)
     overlays: bool = False
     noise_values: CorrelateNoise = CorrelateNoise()
+
+    @model_validator(mode="after")
+    def _chains_for_posterior(self):
+        if self.noise == "posterior" and not self.chains:
+            raise ValueError("noise = 'posterior' needs 'chains', the chains.h5 of a ptares fit")
+        return self
 
 
 class Prior(BaseModel):

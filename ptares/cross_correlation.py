@@ -48,6 +48,10 @@ __all__ = [
 ]
 
 
+#: Largest working memory (bytes) the analyses allow themselves before refusing.
+MEMORY_LIMIT = 4e9
+
+
 def fourier_basis(times, span: float, components: int) -> np.ndarray:
     """Columns ``sin(2 pi k t / T), cos(2 pi k t / T)`` interleaved, k = 1..components; ``times`` in s."""
     phase = 2.0 * np.pi * np.outer(times, np.arange(1, components + 1)) / span
@@ -96,6 +100,10 @@ def check_dataset(dataset: Dataset) -> None:
 def fourier_products(dataset: Dataset, noise: NoiseModel, components: int, gamma: float) -> FourierProducts:
     """``X_a`` and ``Z_a`` of every pulsar for a template of ``components`` frequencies and index ``gamma``."""
     span = dataset.span
+    memory = len(dataset.pulsars) * (2 * components) ** 2 * 8
+    if memory > MEMORY_LIMIT:
+        raise InputError(f"{components} frequencies for {len(dataset.pulsars)} pulsars need {memory / 1e9:.1f} GB; "
+                         f"use fewer (at most {MEMORY_LIMIT / 1e9:.0f} GB is allowed)", "components")
     basis_size = max(components, noise.red_components)
     phi = unit_template(span, components, gamma)
     X = np.empty((len(dataset.pulsars), 2 * components))

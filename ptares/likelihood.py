@@ -27,7 +27,7 @@ import numpy as np
 import scipy.linalg
 
 from .correlations import correlation_matrix
-from .cross_correlation import fourier_basis
+from .cross_correlation import MEMORY_LIMIT, fourier_basis
 from .errors import InputError
 from .spectra import coefficient_variance
 
@@ -71,6 +71,10 @@ class Likelihood:
         self.red_components = int(red_components)
         self.size = 2 * max(self.components, self.red_components)
         self.correlated = bool(correlated)
+        core = (len(dataset.pulsars) * self.size) ** 2 * 8 if correlated else len(dataset.pulsars) * self.size**2 * 8
+        if core > MEMORY_LIMIT:
+            raise InputError(f"{self.size // 2} frequencies for {len(dataset.pulsars)} pulsars need {core / 1e9:.1f} GB; "
+                             "use fewer", "fit.components")
         self.pulsars = []
         for p in dataset.pulsars:
             times = (p.mjd - dataset.start_mjd) * 86400.0
@@ -108,7 +112,10 @@ class Likelihood:
         if M.shape[1]:
             MN = M.T * weights
             MNM = MN @ M
-            factor = scipy.linalg.cho_factor(MNM)
+            try:
+                factor = scipy.linalg.cho_factor(MNM)
+            except np.linalg.LinAlgError:
+                raise NotPositiveDefinite(f"M^T N^-1 M of pulsar {index} is not positive definite (degenerate timing model?)") from None
             MNF = MN @ F
             MNr = MN @ r
             FNF = FNF - MNF.T @ scipy.linalg.cho_solve(factor, MNF)
@@ -196,23 +203,33 @@ class Likelihood:
             block = slice(a * columns, (a + 1) * columns)
             sigma[block, block] = piece[0][:columns, :columns]
             d[block] = piece[1][:columns]
-        log_det_phi = 0.0
-        kept = np.zeros((P, columns), dtype=bool)  # (pulsar, column) pairs with prior power
-        for j in range(columns):
-            variances = red[:, j] + common[j]
-            present = np.flatnonzero(variances > 0)
-            if present.size == 0:
-                continue
-            kept[present, j] = True
-            phi = self.gamma_matrix[np.ix_(present, present)] * common[j] + np.diag(red[present, j])
+        variances = red[:, :columns] + common[None, :columns]  # (P, columns)
+        kept = variances > 0
+        if kept.all():  # the usual case: all P x P blocks at once
+            phi = self.gamma_matrix[None, :, :] * common[:columns, None, None]
+            phi[:, np.arange(P), np.arange(P)] += red[:, :columns].T
             try:
-                factor = scipy.linalg.cho_factor(phi, lower=True, check_finite=False)
+                lower = np.linalg.cholesky(phi)
             except np.linalg.LinAlgError:
-                raise NotPositiveDefinite(f"Phi at basis column {j} is not positive definite") from None
-            log_det_phi += 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
-            rows = present * columns + j
-            sigma[np.ix_(rows, rows)] += scipy.linalg.cho_solve(factor, np.eye(present.size), check_finite=False)
-        if not kept.all():
+                raise NotPositiveDefinite("Phi of the correlated model is not positive definite") from None
+            log_det_phi = 2.0 * float(np.sum(np.log(np.diagonal(lower, axis1=1, axis2=2))))
+            inverse = np.linalg.inv(phi)
+            rows = np.arange(P)[None, :] * columns + np.arange(columns)[:, None]  # (columns, P)
+            sigma[rows[:, :, None], rows[:, None, :]] += inverse
+        else:
+            log_det_phi = 0.0
+            for j in range(columns):
+                present = np.flatnonzero(kept[:, j])
+                if present.size == 0:
+                    continue
+                phi = self.gamma_matrix[np.ix_(present, present)] * common[j] + np.diag(red[present, j])
+                try:
+                    factor = scipy.linalg.cho_factor(phi, lower=True, check_finite=False)
+                except np.linalg.LinAlgError:
+                    raise NotPositiveDefinite(f"Phi at basis column {j} is not positive definite") from None
+                log_det_phi += 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
+                rows = present * columns + j
+                sigma[np.ix_(rows, rows)] += scipy.linalg.cho_solve(factor, np.eye(present.size), check_finite=False)
             keep = kept.ravel()
             sigma, d = sigma[np.ix_(keep, keep)], d[keep]
         try:

@@ -18,7 +18,7 @@ import numpy as np
 from .dataset import Dataset
 from .errors import InputError
 
-__all__ = ["NoiseModel", "noise_from_dataset", "noise_from_values"]
+__all__ = ["NoiseModel", "noise_from_dataset", "noise_from_values", "noise_from_chains"]
 
 
 @dataclass(frozen=True)
@@ -100,3 +100,60 @@ def noise_from_values(
         common_gamma=float(common_gamma),
         **columns,
     )
+
+
+def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) -> list:
+    """Noise models from ``draws`` random posterior samples of a ``ptares fit`` (its ``chains.h5``).
+
+    Parameters the fit held fixed take the dataset's injected values; the fit's
+    common process (``gwb_log10_A``, ``gwb_gamma``) becomes the common process.
+    The first half of the chain is discarded as burn-in.
+    """
+    import h5py
+
+    from pathlib import Path
+
+    path = Path(path)
+    if not path.is_file():
+        raise InputError("chains file not found", str(path))
+    try:
+        with h5py.File(path, "r") as f:
+            names = [n.decode() if isinstance(n, bytes) else str(n) for n in f.attrs["parameter_names"]]
+            group = f["chains"]
+            steps = int(group.attrs["iteration"])
+            chain = group["chain"][steps // 2 : steps]
+    except (OSError, KeyError) as exc:
+        raise InputError(f"not a ptares chains file ({exc})", str(path)) from None
+    if chain.size == 0:
+        raise InputError("holds no samples yet", str(path))
+    samples = chain.reshape(-1, len(names))
+    rng = np.random.default_rng(seed)
+    picked = samples[rng.choice(samples.shape[0], size=min(draws, samples.shape[0]), replace=False)]
+    base = noise_from_dataset(dataset)
+    models = []
+    for row in picked:
+        values = dict(zip(names, row))
+        columns = {
+            "white_scale": base.white_scale.copy(),
+            "white_quadrature": base.white_quadrature.copy(),
+            "red_amplitude": base.red_amplitude.copy(),
+            "red_gamma": base.red_gamma.copy(),
+        }
+        for a, name in enumerate(dataset.names):
+            if f"{name}_white_scale" in values:
+                columns["white_scale"][a] = values[f"{name}_white_scale"]
+            if f"{name}_white_log10_quadrature" in values:
+                columns["white_quadrature"][a] = 10 ** values[f"{name}_white_log10_quadrature"]
+            if f"{name}_red_log10_A" in values:
+                columns["red_amplitude"][a] = 10 ** values[f"{name}_red_log10_A"]
+            if f"{name}_red_gamma" in values:
+                columns["red_gamma"][a] = values[f"{name}_red_gamma"]
+        models.append(
+            NoiseModel(
+                red_components=base.red_components,
+                common_amplitude=10 ** values["gwb_log10_A"] if "gwb_log10_A" in values else base.common_amplitude,
+                common_gamma=values.get("gwb_gamma", base.common_gamma),
+                **columns,
+            )
+        )
+    return models
