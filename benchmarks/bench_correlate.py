@@ -19,7 +19,7 @@ import time
 
 import numpy as np
 
-from ptares.config import Config
+from common import regular_array
 from ptares.correlations import correlation_matrix
 from ptares.cross_correlation import fourier_basis, fourier_products, optimal_statistic, pair_correlations, unit_template
 from ptares.noise_model import noise_from_dataset
@@ -49,16 +49,7 @@ def naive_pair(data, noise, a, b, template):
 
 
 def main():
-    span_days = 10 * 365.25
-    config = Config.model_validate(
-        {
-            "run": {"seed": 2},
-            "array": {"random": {"count": PULSARS}},
-            "observing": {"start": 53000, "span": 10.0, "cadence": span_days / (TOAS - 1), "toa_error": 0.5},
-            "noise": {"red": {"amplitude": 1e-15, "components": COMPONENTS}},
-            "gwb": {"amplitude": 2.4e-15, "components": COMPONENTS},
-        }
-    )
+    config = regular_array(PULSARS, TOAS, COMPONENTS, seed=2, toa_error_us=0.5)
     data = simulate(config)
     noise = noise_from_dataset(data)
     positions = np.array([p.position for p in data.pulsars])

@@ -15,23 +15,16 @@ Run: ``python benchmarks/bench_cw.py``
 
 from __future__ import annotations
 
-import time
 
 import numpy as np
+
+from common import best_of
 
 from ptares.constants import YEAR
 from ptares.kernels import cw_residuals, cw_residuals_reference
 
 PULSARS, TOAS, SOURCES = 100, 2000, 1000
 
-
-def best_of(function, repeats=3):
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        function()
-        times.append(time.perf_counter() - start)
-    return min(times)
 
 
 def inputs(pulsars, rng):

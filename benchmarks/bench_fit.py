@@ -14,12 +14,11 @@ Run: ``python benchmarks/bench_fit.py``
 
 from __future__ import annotations
 
-import time
 
 import numpy as np
 import scipy.linalg
 
-from ptares.config import Config
+from common import best_of, regular_array
 from ptares.cross_correlation import fourier_basis
 from ptares.likelihood import Likelihood
 from ptares.simulate import simulate
@@ -28,26 +27,9 @@ from ptares.spectra import coefficient_variance
 PULSARS, TOAS, COMPONENTS = 30, 1000, 30
 
 
-def best_of(function, repeats=5):
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        function()
-        times.append(time.perf_counter() - start)
-    return min(times)
-
 
 def main():
-    span_days = 10 * 365.25
-    config = Config.model_validate(
-        {
-            "run": {"seed": 3},
-            "array": {"random": {"count": PULSARS}},
-            "observing": {"start": 53000, "span": 10.0, "cadence": span_days / (TOAS - 1), "toa_error": 0.5},
-            "noise": {"red": {"amplitude": 1e-15, "components": COMPONENTS}},
-            "gwb": {"amplitude": 2.4e-15, "components": COMPONENTS},
-        }
-    )
+    config = regular_array(PULSARS, TOAS, COMPONENTS, seed=3, toa_error_us=0.5)
     data = simulate(config)
     ones, zeros = np.ones(PULSARS), np.zeros(PULSARS)
     red_amplitude, red_gamma = np.full(PULSARS, 1e-15), np.full(PULSARS, 13 / 3)

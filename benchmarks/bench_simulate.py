@@ -15,37 +15,19 @@ Run: ``python benchmarks/bench_simulate.py``
 
 from __future__ import annotations
 
-import time
 
 import numpy as np
 
-from ptares.config import Config
+from common import best_of, regular_array
 from ptares.kernels import synthesise, synthesise_reference
 from ptares.simulate import simulate
 
 PULSARS, TOAS, FREQUENCIES = 100, 1000, 30
 
 
-def best_of(function, repeats=5):
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        function()
-        times.append(time.perf_counter() - start)
-    return min(times)
-
 
 def main():
-    span_days = 10 * 365.25
-    config = Config.model_validate(
-        {
-            "run": {"seed": 1},
-            "array": {"random": {"count": PULSARS}},
-            "observing": {"start": 53000, "span": 10.0, "cadence": span_days / (TOAS - 1), "toa_error": 0.3},
-            "noise": {"red": {"amplitude": 1e-15, "components": FREQUENCIES}},
-            "gwb": {"amplitude": 2.4e-15, "components": FREQUENCIES},
-        }
-    )
+    config = regular_array(PULSARS, TOAS, FREQUENCIES, seed=1, toa_error_us=0.3)
     dataset = simulate(config)  # compile and warm caches
     toas = sum(p.toa_count for p in dataset.pulsars)
     times = [(p.mjd - dataset.start_mjd) * 86400.0 for p in dataset.pulsars]

@@ -133,11 +133,13 @@ def _correlate(args) -> int:
         try:
             section = CorrelateSection.model_validate({**section.model_dump(), **overrides})
         except ValidationError as exc:
+            from .config import _message
+
             first = exc.errors()[0]
-            raise InputError(first["msg"], "--" + str(first["loc"][0]).replace("_", "-")) from None
+            raise InputError(_message(first), "--" + str(first["loc"][0]).replace("_", "-")) from None
     dataset = load_dataset(args.dataset)
     if section.noise == "injected":
-        noise = noise_from_dataset(dataset, gamma=section.gamma)
+        noise = noise_from_dataset(dataset)
     elif section.noise == "posterior":
         from .noise_model import noise_from_chains
 
@@ -156,8 +158,9 @@ def _correlate(args) -> int:
             red_components=values.red_components,
             common_amplitude=values.common_amplitude,
             common_gamma=values.common_gamma,
+            common_components=values.common_components,
             pulsars={
-                name: {k: v * 1e-6 if k == "white_quadrature" else v for k, v in table.items()}
+                name: {k: v * 1e-6 if k == "white_quadrature" else v for k, v in table.given().items()}
                 for name, table in values.pulsars.items()
             },
         )
@@ -177,7 +180,9 @@ def _correlate(args) -> int:
     except OSError as exc:
         raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
     hd = result.estimates["hellings-downs"]
-    p_text = f", p = {hd['p_value']:.3g}" if "p_value" in hd else ""
+    p_text = ""
+    if "p_value" in hd:
+        p_text = f", p {'<=' if hd['p_value_is_bound'] else '='} {hd['p_value']:.3g}"
     print(f"hellings-downs: A^2 = {hd['amplitude2']:.3g} +/- {hd['sigma']:.3g}, S/N = {hd['snr']:.2f}{p_text}")
     return 0
 
@@ -243,10 +248,17 @@ def _fit(args) -> int:
     return 0
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse, but a usage mistake is one line on stderr and exit status 2 like every other input error."""
+
+    def error(self, message):
+        self.exit(2, f"{self.prog}: error: {message} (see --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="ptares", description="Pulsar-timing-array residual modeller.")
+    parser = _Parser(prog="ptares", description="Pulsar-timing-array residual modeller.")
     parser.add_argument("--version", action="version", version=f"ptares {__version__}")
-    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=_Parser)
 
     check = commands.add_parser("check", help="validate a config and summarise what it simulates")
     check.add_argument("config", help="TOML config file")

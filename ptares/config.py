@@ -111,12 +111,12 @@ def _at_least(bound: float, strict: bool = False):
 
 def Quantity(unit: str | None, *extra):
     """Annotated float read in ``unit`` (``None`` for dimensionless)."""
-    return Annotated[float, BeforeValidator(_quantity(unit)), *extra]
+    return Annotated[(float, BeforeValidator(_quantity(unit)), *extra)]
 
 
 def Drawable(unit: str | None, *extra):
     """Annotated fixed-or-drawn value read in ``unit``."""
-    return Annotated[Union[float, Draw], BeforeValidator(_drawable(unit)), *extra]
+    return Annotated[(Union[float, Draw], BeforeValidator(_drawable(unit)), *extra)]
 
 
 def _at_most(bound: float):
@@ -353,7 +353,7 @@ class ContinuousWave(_Section):
     name: Optional[SafeName] = None
     chirp_mass: Optional[Quantity("solMass", Positive)] = None
     distance: Optional[Quantity("Mpc", Positive)] = None
-    strain: Optional[Quantity(None, Positive)] = None
+    strain: Optional[Quantity(None, Positive, MaxAmplitude)] = None
     frequency: Optional[Quantity("nHz", Positive)] = None
     orbital_frequency: Optional[Quantity("nHz", Positive)] = None
     ra: RightAscension
@@ -388,6 +388,18 @@ class ContinuousWave(_Section):
         return (self.frequency if self.frequency is not None else 2.0 * self.orbital_frequency) * 1e-9
 
 
+class PulsarNoise(_Section):
+    """Per-pulsar overrides in ``[correlate.noise_values.pulsars.<name>]`` (quadrature in microseconds)."""
+
+    white_scale: Optional[Quantity(None, Positive)] = None
+    white_quadrature: Optional[Quantity("us", NonNegative)] = None
+    red_amplitude: Optional[Quantity(None, NonNegative, MaxAmplitude)] = None
+    red_gamma: Optional[Quantity(None, SpectralIndex)] = None
+
+    def given(self) -> dict:
+        return {k: v for k, v in self.model_dump().items() if v is not None}
+
+
 class CorrelateNoise(_Section):
     """``[correlate.noise_values]``: noise values when ``noise = "values"`` (quadrature in microseconds).
 
@@ -401,7 +413,8 @@ class CorrelateNoise(_Section):
     red_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
     common_amplitude: Quantity(None, NonNegative, MaxAmplitude) = 0.0
     common_gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
-    pulsars: dict[str, dict[str, float]] = {}
+    common_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    pulsars: dict[str, "PulsarNoise"] = {}
 
 
 class CorrelateSection(_Section):
@@ -413,8 +426,9 @@ class CorrelateSection(_Section):
     (``draws`` samples of a ``ptares fit`` whose ``chains.h5`` is ``chains``: the
     noise-marginalised statistic); ``bins`` angular bins;
     ``scrambles`` and ``phase_shifts`` null trials (0 for none) with
-    ``scramble_threshold`` the largest match a kept scramble may have; ``seed``
-    for the nulls.
+    ``scramble_threshold`` the largest match a kept scramble may have;
+    ``fit_trials`` simulations that calibrate the fit-quality p-value; ``seed``
+    for the nulls and those simulations.
     """
 
     gamma: Optional[Quantity(None, SpectralIndex)] = None
@@ -426,6 +440,7 @@ class CorrelateSection(_Section):
     scrambles: Count = Field(default=100, ge=0, le=100_000)
     phase_shifts: Count = Field(default=100, ge=0, le=100_000)
     scramble_threshold: Quantity(None, Positive, AfterValidator(_at_most(1.0))) = 0.1
+    fit_trials: Count = Field(default=500, ge=0, le=1_000_000)
     seed: Count = Field(default=0, ge=0, le=2**63 - 1)
     overlays: bool = False
     noise_values: CorrelateNoise = CorrelateNoise()
@@ -639,7 +654,7 @@ def _check_schedules(config: Config) -> None:
 def _check_sources(config: Config) -> None:
     """Continuous-wave sources against the array's span and cadence (errors), and unusual physics (warnings)."""
     from .binaries import time_to_coalescence
-    from .constants import DAY, M_SUN, YEAR
+    from .constants import DAY, KPC, M_SUN, YEAR
 
     schedules = config.schedules()
     first = min(s.start for s in schedules)
@@ -662,6 +677,12 @@ def _check_sources(config: Config) -> None:
                 raise InputError(f"the binary merges {tau / YEAR:.3g} yr after the first epoch, within the span", f"{path}.chirp_mass")
             if tau < 10 * span * DAY:
                 warnings.warn(f"{path}: the binary merges {tau / YEAR:.3g} yr after the first epoch; its frequency evolves strongly", PhysicsWarning, stacklevel=2)
+        if source.distance is not None:
+            from .binaries import strain_amplitude
+
+            h0 = float(strain_amplitude(source.chirp_mass * M_SUN, f, source.distance * 1e3 * KPC))
+            if h0 > 1e-9:
+                raise InputError(f"chirp mass and distance give h0 = {h0:.3g}, above 1e-9: surely a typo", f"{path}.distance")
         if source.chirp_mass is not None and source.chirp_mass > 1e11:
             warnings.warn(f"{path}: chirp mass {source.chirp_mass:.3g} solar masses is unusually large", PhysicsWarning, stacklevel=2)
 

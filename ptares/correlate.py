@@ -18,7 +18,7 @@ from tqdm.auto import tqdm
 
 from . import __version__
 from .config import CorrelateSection
-from .correlation_scatter import BinnedCorrelations, bin_pairs, binned_covariance, fit_quality
+from .correlation_scatter import BinnedCorrelations, bin_pairs, binned_covariance, covariance_method, fit_quality
 from .correlations import correlation_matrix, pattern_function
 from .cross_correlation import (
     PairCorrelations,
@@ -68,14 +68,27 @@ class CorrelationResult:
                 "band": self.band.tolist(),
                 "pairs": [int(m.size) for m in self.binned.members],
             },
-            "fit_quality": {**self.fit, "band_method": self.band_method},
+            "fit_quality": {**self.fit, "band_method": self.band_method,
+                            "note": "amplitude2 refitted to the binned values; p from the chi-squared table "
+                                    "(approximate: bins are not Gaussian), p_calibrated from simulations of the fitted model"},
             "injected_amplitude2": self.injected_amplitude2,
         }
 
     def write(self, path) -> None:
-        """Write ``to_json()`` atomically."""
+        """Write ``to_json()`` atomically; non-finite numbers become null (JSON has no NaN)."""
         with atomic_path(path) as temporary:
-            temporary.write_text(json.dumps(self.to_json(), indent=1))
+            temporary.write_text(json.dumps(_finite(self.to_json()), indent=1, allow_nan=False))
+
+
+def _finite(value):
+    """``value`` with every non-finite float replaced by None."""
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite(v) for v in value]
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    return value
 
 
 def template_settings(dataset: Dataset, section: CorrelateSection) -> tuple:
@@ -93,6 +106,39 @@ def _draws(dataset, noise_models, components, gamma, positions, progress):
         products = fourier_products(dataset, noise, components, gamma)
         draws.append((products, pair_correlations(products, positions)))
     return draws
+
+
+def _calibrated_p(products, pairs, binned, shape, gamma_matrix, covariance_at, fit, model_amplitude2, trials, rng):
+    """The fit's p-value from ``trials`` Gaussian-ensemble simulations at the fitted amplitude.
+
+    Binned correlations are quadratic in the data and far from Gaussian when few frequencies
+    dominate, and the covariance is evaluated at an amplitude estimated from the same data; so
+    each simulated data set goes through the same refit, and the share of simulated chi-squared
+    values at or above the observed one is the tail probability.
+    """
+    from .cross_correlation import pair_matrices
+    from .correlation_scatter import ensemble_draws, fit_quality
+
+    size = products.Z.shape[0] * products.Z.shape[1]
+    if size**2 * 8 > 4e9:
+        return {"p_calibrated": None}
+    _, denominator = pair_matrices(products)
+    X = ensemble_draws(products, gamma_matrix, max(fit["amplitude2"], 0.0), model_amplitude2, trials, rng)
+    numerator = np.einsum("tak,k,tbk->tab", X, products.phi, X)[:, pairs.a, pairs.b]
+    rho = numerator / denominator[pairs.a, pairs.b]
+    simulated = np.column_stack([rho[:, m] @ w for m, w in zip(binned.members, binned.weights)])
+    start = float(fit["amplitude2"])
+    values = np.array([
+        fit_quality(_Binned(row), shape, covariance_at, start)["chi2"] for row in simulated
+    ])
+    return {"p_calibrated": float((1 + np.sum(values >= fit["chi2"])) / (1 + trials)), "trials": int(trials)}
+
+
+@dataclass
+class _Binned:
+    """Just the binned values, for re-running :func:`fit_quality` on a simulation."""
+
+    rho: np.ndarray
 
 
 def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = CorrelateSection(),
@@ -134,18 +180,34 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
     for name in PATTERN_NAMES:
         found = {kind: p_value(estimates[name]["snr"], values[name]) for kind, values in nulls.items() if name in values}
         if found:
-            estimates[name]["p_value"] = found.get("phase_shifts", found.get("sky_scrambles"))
+            kind = "phase_shifts" if "phase_shifts" in found else "sky_scrambles"
+            estimates[name]["p_value"] = found[kind]
+            # no null trial reached the observation: the p-value is only bounded by 1 / (trials + 1)
+            estimates[name]["p_value_is_bound"] = bool(found[kind] == 1.0 / (1 + nulls[kind][name].size))
             estimates[name]["null_p_values"] = found
 
     binned = bin_pairs(pairs, section.bins)
-    amplitude2 = max(estimates["hellings-downs"]["amplitude2"], 0.0)
-    covariance, method = binned_covariance(
-        products, draws[0][1], binned, correlation_matrix(positions, "hellings-downs"), amplitude2,
-        noise_models[0].common_amplitude**2,
-    )
     curve = pattern_function("hellings-downs")
-    expected = np.array([np.sum(w * curve(pairs.angle[m])) for m, w in zip(binned.members, binned.weights)])
-    fit = fit_quality(binned, estimates["hellings-downs"]["amplitude2"] * expected, covariance)
+    shape = np.array([np.sum(w * curve(pairs.angle[m])) for m, w in zip(binned.members, binned.weights)])
+    gamma_matrix = correlation_matrix(positions, "hellings-downs")
+
+    # the binned covariance is a quadratic polynomial in A^2 (Isserlis: products of terms linear in A^2),
+    # so three evaluations give it at every amplitude
+    model_amplitude2 = noise_models[0].common_amplitude**2
+    scale = max(abs(estimates["hellings-downs"]["amplitude2"]), model_amplitude2, 1e-300)
+    c0, c1, c2 = (binned_covariance(products, draws[0][1], binned, gamma_matrix, a, model_amplitude2)[0]
+                  for a in (0.0, scale, 2.0 * scale))
+    linear, quadratic = (4.0 * c1 - c2 - 3.0 * c0) / (2.0 * scale), (c2 - 2.0 * c1 + c0) / (2.0 * scale**2)
+
+    def covariance_at(amplitude2):
+        return c0 + amplitude2 * linear + amplitude2**2 * quadratic
+
+    fit = fit_quality(binned, shape, covariance_at, estimates["hellings-downs"]["amplitude2"])
+    fit.pop("covariance")
+    if section.fit_trials:
+        fit.update(_calibrated_p(products, draws[0][1], binned, shape, gamma_matrix, covariance_at, fit,
+                                 model_amplitude2, section.fit_trials, rng))
+    band = np.sqrt(np.diag(covariance_at(max(estimates["hellings-downs"]["amplitude2"], 0.0))))
 
     gwb = dataset.signals.get("gwb")
     return CorrelationResult(
@@ -153,8 +215,8 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
         pairs=pairs,
         estimates=estimates,
         binned=binned,
-        band=np.sqrt(np.diag(covariance)),
-        band_method=method,
+        band=band,
+        band_method=covariance_method(products),
         fit=fit,
         settings={
             "gamma": gamma,
@@ -167,6 +229,7 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
             "scramble_threshold": section.scramble_threshold,
             "seed": section.seed,
             "overlays": section.overlays,
+            "fit_trials": section.fit_trials,
         },
         nulls=nulls,
         injected_amplitude2=float(gwb["amplitude"]) ** 2 if gwb and "amplitude" in gwb else None,

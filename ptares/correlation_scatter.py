@@ -24,7 +24,7 @@ from scipy import stats
 
 from .cross_correlation import FourierProducts, PairCorrelations, pair_matrices
 
-__all__ = ["BinnedCorrelations", "bin_pairs", "binned_covariance", "fit_quality", "EXACT_LIMIT"]
+__all__ = ["BinnedCorrelations", "bin_pairs", "binned_covariance", "covariance_method", "fit_quality", "EXACT_LIMIT"]
 
 #: Largest P^2 (2K)^2 for which the exact pair-pair covariance is computed.
 EXACT_LIMIT = 2.5e7
@@ -90,10 +90,11 @@ def binned_covariance(products: FourierProducts, pairs: PairCorrelations, binned
     """
     count, size = products.Z.shape[0], products.Z.shape[1]
     _, denominator = pair_matrices(products)
+    exact = covariance_method(products) == "exact"
     Y, auto = _scaled_blocks(products, amplitude2, model_amplitude2)
     H = _pair_weights(binned, denominator, pairs, count)
     off = amplitude2 * (gamma_matrix - np.diag(np.diag(gamma_matrix)))
-    if count**2 * size**2 <= EXACT_LIMIT:
+    if exact:
         # all blocks Y_xy: P x P x (2K)^2, then <Y_ac, Y_bd> for every (a, c), (b, d)
         blocks = off[:, :, None, None] * np.einsum("aij,cjk->acik", Y, Y)
         blocks[np.arange(count), np.arange(count)] = auto
@@ -116,9 +117,48 @@ def binned_covariance(products: FourierProducts, pairs: PairCorrelations, binned
     return matrix, "frequency-diagonal"
 
 
-def fit_quality(binned: BinnedCorrelations, expected: np.ndarray, covariance: np.ndarray) -> dict:
-    """Chi-squared of the binned correlations about ``expected`` (one fitted amplitude)."""
-    residual = binned.rho - expected
+def covariance_method(products: FourierProducts) -> str:
+    """Which covariance :func:`binned_covariance` computes for these products: exact or frequency-diagonal."""
+    count, size = products.Z.shape[0], products.Z.shape[1]
+    return "exact" if count**2 * size**2 <= EXACT_LIMIT else "frequency-diagonal"
+
+
+def ensemble_draws(products: FourierProducts, gamma_matrix: np.ndarray, amplitude2: float, model_amplitude2: float,
+                   count: int, rng: np.random.Generator) -> np.ndarray:
+    """``count`` draws of all pulsars' ``X`` (count, P, 2K) from the Gaussian ensemble at ``amplitude2``.
+
+    The joint covariance has blocks ``Z_a + (A^2 - A_m^2) Z_a Phi Z_a`` and ``A^2 Gamma_ab Z_a Phi Z_b``.
+    """
+    Z, phi = products.Z, products.phi
+    P, size = Z.shape[0], Z.shape[1]
+    left = Z * phi[None, None, :]  # Z_a Phi
+    joint = amplitude2 * np.einsum("ab,aij,bjk->aibk", gamma_matrix, left, Z)
+    for a in range(P):
+        joint[a, :, a, :] = Z[a] + (amplitude2 - model_amplitude2) * left[a] @ Z[a]
+    joint = joint.reshape(P * size, P * size)
+    values, vectors = np.linalg.eigh(0.5 * (joint + joint.T))
+    root = vectors * np.sqrt(np.clip(values, 0.0, None))
+    return (rng.standard_normal((count, P * size)) @ root.T).reshape(count, P, size)
+
+
+def fit_quality(binned: BinnedCorrelations, shape: np.ndarray, covariance_at, start: float, iterations: int = 5) -> dict:
+    """Goodness of fit of ``A^2 * shape`` to the binned correlations.
+
+    The amplitude is refitted by generalised least squares with the binned
+    covariance evaluated at the current amplitude (``covariance_at(A2)``),
+    iterated from ``start`` (negative values are held at zero for the
+    covariance, which needs a non-negative power).  ``p`` is the chi-squared
+    tail probability with (bins - 1) degrees of freedom: approximate, since
+    binned correlations are not exactly Gaussian.
+    """
+    amplitude2 = start
+    for _ in range(iterations):
+        covariance = covariance_at(max(amplitude2, 0.0))
+        weighted = np.linalg.solve(covariance, shape)
+        amplitude2 = float(weighted @ binned.rho / (weighted @ shape))
+    covariance = covariance_at(max(amplitude2, 0.0))
+    residual = binned.rho - amplitude2 * shape
     chi2 = float(residual @ np.linalg.solve(covariance, residual))
     dof = max(len(residual) - 1, 1)
-    return {"chi2": chi2, "dof": dof, "p": float(stats.chi2.sf(chi2, dof))}
+    return {"chi2": chi2, "dof": dof, "p": float(stats.chi2.sf(chi2, dof)), "amplitude2": amplitude2,
+            "covariance": covariance}

@@ -79,8 +79,22 @@ def check_dataset(dataset: Dataset) -> None:
     """The faults an estimator cannot work around, each as one clear error."""
     if len(dataset.pulsars) < 2:
         raise InputError(f"has {len(dataset.pulsars)} pulsar(s); cross-correlation needs at least 2", "dataset")
+    if not (np.isfinite(dataset.span) and dataset.span > 0 and np.isfinite(dataset.start_mjd)):
+        raise InputError(f"span {dataset.span} s and start MJD {dataset.start_mjd} must be finite, the span positive", "dataset")
+    for name, parameters in dataset.signals.items():
+        for key, value in parameters.items():
+            if isinstance(value, float) and not np.isfinite(value):
+                raise InputError(f"signal parameter {key} is {value}", f"dataset signal {name}")
+        if "components" in parameters and not float(parameters["components"]).is_integer():
+            raise InputError(f"components must be a whole number, got {parameters['components']}", f"dataset signal {name}")
     for p in dataset.pulsars:
         where = f"dataset pulsar {p.name}"
+        if not all(np.isfinite(v) for v in (p.ra, p.dec, p.distance, p.distance_error)):
+            raise InputError("position or distance is not finite", where)
+        if not all(np.isfinite(float(v)) for v in p.noise.values() if isinstance(v, (int, float))):
+            raise InputError("an injected noise parameter is not finite", where)
+        if not np.all(np.isfinite(p.design_matrix)):
+            raise InputError("design matrix contains NaN or infinite values", where)
         n = p.mjd.size
         if p.residuals.shape != (n,) or p.errors.shape != (n,) or p.design_matrix.shape[0] != n:
             raise InputError(
@@ -104,13 +118,15 @@ def fourier_products(dataset: Dataset, noise: NoiseModel, components: int, gamma
     if memory > MEMORY_LIMIT:
         raise InputError(f"{components} frequencies for {len(dataset.pulsars)} pulsars need {memory / 1e9:.1f} GB; "
                          f"use fewer (at most {MEMORY_LIMIT / 1e9:.0f} GB is allowed)", "components")
-    basis_size = max(components, noise.red_components)
+    basis_size = max(components, noise.red_components, noise.common_components)
     phi = unit_template(span, components, gamma)
     X = np.empty((len(dataset.pulsars), 2 * components))
     Z = np.empty((len(dataset.pulsars), 2 * components, 2 * components))
     common = np.zeros(2 * basis_size)
     if noise.common_amplitude > 0:
-        common += np.repeat(coefficient_variance(span, basis_size, noise.common_amplitude, noise.common_gamma), 2)
+        common[: 2 * noise.common_components] = np.repeat(
+            coefficient_variance(span, noise.common_components, noise.common_amplitude, noise.common_gamma), 2
+        )
     for a, p in enumerate(dataset.pulsars):
         times = (p.mjd - dataset.start_mjd) * 86400.0
         F = fourier_basis(times, span, basis_size)

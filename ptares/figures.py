@@ -205,7 +205,8 @@ def correlations_figure(result):
                 color="#9a9a9a", lw=1.0, ls="--", label=f"injected A\u00b2 ({result.injected_amplitude2:.3g})")
     ax.errorbar(np.degrees(binned.centres), binned.rho / scale, yerr=binned.error / scale, fmt="o", ms=6,
                 color="#c1121f", capsize=3, zorder=5, label="binned pair correlations (noise-only errors)")
-    p_text = f", p = {hd['p_value']:.3g}" if "p_value" in hd else ""
+    relation = "\u2264" if hd.get("p_value_is_bound") else "="
+    p_text = f", p {relation} {hd['p_value']:.3g}" if "p_value" in hd else ""
     ax.set_title(f"Cross-correlations of {len(result.names)} pulsars, {result.pairs.rho.size} pairs: "
                  f"S/N = {hd['snr']:.2f}{p_text}; fit \u03c7\u00b2 = {result.fit['chi2']:.1f} / {result.fit['dof']}",
                  fontsize=10)

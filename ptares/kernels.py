@@ -111,7 +111,7 @@ for _m in range(1, _SERIES_TERMS):
 _H1, _H2, _H3, _H4, _H5, _H6, _H7, _H8, _H9, _H10, _H11, _H12, _H13 = _H[1:]
 
 
-@numba.njit(inline="always", cache=True)
+@numba.njit(inline="always", cache=True, error_model="numpy")
 def _sincos(x):  # pragma: no cover - compiled
     """sin x and cos x to about one ulp for |x| < 1.6e6, free of branches and calls so loops vectorise."""
     n = np.floor(x * _TWO_OVER_PI + 0.5)
@@ -133,7 +133,7 @@ def _sincos(x):  # pragma: no cover - compiled
     return sine, cosine
 
 
-@numba.njit(inline="always", cache=True)
+@numba.njit(inline="always", cache=True, error_model="numpy")
 def _h_series(x):  # pragma: no cover - compiled
     """h(x) = (1 - (1 - x)^(5/8)) / (5 x / 8) by its power series, for |x| < 0.05 (14 terms)."""
     h = _H13
@@ -152,7 +152,7 @@ def _h_series(x):  # pragma: no cover - compiled
     return h * x + 1.0
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def _add_term(out, times, theta0, angular, rate, amp, ep, ex, series):  # pragma: no cover
     """Add one Earth or pulsar term to ``out``; the three loops differ only in h and y.
 
@@ -173,11 +173,13 @@ def _add_term(out, times, theta0, angular, rate, amp, ep, ex, series):  # pragma
             x = rate * times[i]
             y = math.sqrt(math.sqrt(math.sqrt(1.0 - x)))
             y2 = y * y
-            sine, cosine = _sincos(theta0 + angular * times[i] * (1.0 - y2 * y2 * y) / (0.625 * x))
+            h = (1.0 - y2 * y2 * y) / (0.625 * x)  # numpy error model: x = 0 gives nan, replaced below
+            h = 1.0 if x == 0.0 else h
+            sine, cosine = _sincos(theta0 + angular * times[i] * h)
             out[i] += amp * y * (ep * sine + ex * cosine)
 
 
-@numba.njit(parallel=True, cache=True)
+@numba.njit(parallel=True, cache=True, error_model="numpy")
 def _cw_residuals(times, bounds, earth, pulsar, fplus, fcross, weights):  # pragma: no cover - compiled
     out = np.zeros(times.size)
     for a in numba.prange(bounds.size - 1):

@@ -31,7 +31,7 @@ from .cross_correlation import MEMORY_LIMIT, fourier_basis
 from .errors import InputError
 from .spectra import coefficient_variance
 
-__all__ = ["PulsarData", "Likelihood", "NotPositiveDefinite"]
+__all__ = ["Likelihood", "NotPositiveDefinite"]
 
 _LOG_2PI = np.log(2.0 * np.pi)
 
@@ -195,7 +195,7 @@ class Likelihood:
         )
 
     def _correlated(self, pieces, red, common):
-        P, size = len(pieces), self.size
+        P = len(pieces)
         columns = 2 * max(self.components, self.red_components if np.any(red) else 0)
         sigma = np.zeros((P * columns, P * columns))
         d = np.empty(P * columns)

@@ -32,17 +32,15 @@ class NoiseModel:
     red_components: int
     common_amplitude: float
     common_gamma: float
+    common_components: int = 30
 
     def white_sigma(self, index: int, toa_errors: np.ndarray) -> np.ndarray:
         """White-noise standard deviation (s) of each TOA of pulsar ``index``."""
         return np.sqrt((self.white_scale[index] * toa_errors) ** 2 + self.white_quadrature[index] ** 2)
 
 
-def noise_from_dataset(dataset: Dataset, gamma: float | None = None) -> NoiseModel:
-    """The injected noise of a simulated dataset, with the injected background as the common process.
-
-    ``gamma`` overrides the common process's index (default: the injected one, else 13/3).
-    """
+def noise_from_dataset(dataset: Dataset) -> NoiseModel:
+    """The injected noise of a simulated dataset, with the injected background as the common process."""
     try:
         noise = [p.noise for p in dataset.pulsars]
         white_scale = np.array([n["white_scale"] for n in noise], dtype=float)
@@ -60,7 +58,8 @@ def noise_from_dataset(dataset: Dataset, gamma: float | None = None) -> NoiseMod
         red_gamma=red_gamma,
         red_components=int(red.get("components", 30)),
         common_amplitude=float(gwb.get("amplitude", 0.0)),
-        common_gamma=float(gamma if gamma is not None else gwb.get("gamma", 13.0 / 3.0)),
+        common_gamma=float(gwb.get("gamma", 13.0 / 3.0)),
+        common_components=int(gwb.get("components", 30)),
     )
 
 
@@ -73,6 +72,7 @@ def noise_from_values(
     red_components=30,
     common_amplitude=0.0,
     common_gamma=13.0 / 3.0,
+    common_components=30,
     pulsars: dict | None = None,
 ) -> NoiseModel:
     """Noise given as values: defaults for every pulsar, ``pulsars`` maps names to per-pulsar overrides.
@@ -89,15 +89,16 @@ def noise_from_values(
     names = dataset.names
     for name, overrides in (pulsars or {}).items():
         if name not in names:
-            raise InputError(f"pulsar {name!r} is not in the dataset", "correlate.noise.pulsars")
+            raise InputError(f"pulsar {name!r} is not in the dataset", "correlate.noise_values.pulsars")
         for key, value in overrides.items():
             if key not in columns:
-                raise InputError(f"unknown noise parameter {key!r}", f"correlate.noise.pulsars.{name}")
+                raise InputError(f"unknown noise parameter {key!r}", f"correlate.noise_values.pulsars.{name}")
             columns[key][names.index(name)] = float(value)
     return NoiseModel(
         red_components=int(red_components),
         common_amplitude=float(common_amplitude),
         common_gamma=float(common_gamma),
+        common_components=int(common_components),
         **columns,
     )
 
@@ -153,6 +154,7 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
                 red_components=base.red_components,
                 common_amplitude=10 ** values["gwb_log10_A"] if "gwb_log10_A" in values else base.common_amplitude,
                 common_gamma=values.get("gwb_gamma", base.common_gamma),
+                common_components=base.common_components,
                 **columns,
             )
         )

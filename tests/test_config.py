@@ -12,14 +12,14 @@ from conftest import SMALL_TOML
 
 def test_small_config_parses_with_units(small_toml):
     config = load_config(small_toml)
-    assert config.observing.span == pytest.approx(5.0)
-    assert config.observing.toa_error == pytest.approx(0.3)  # microseconds
+    assert config.observing.span == pytest.approx(5.0, rel=1e-6, abs=0)
+    assert config.observing.toa_error == pytest.approx(0.3, rel=1e-6, abs=0)  # microseconds
     a, b, c = config.array.pulsars
-    assert a.ra == pytest.approx(15.0) and a.dec == pytest.approx(10.0)
+    assert a.ra == pytest.approx(15.0, rel=1e-6, abs=0) and a.dec == pytest.approx(10.0, rel=1e-6, abs=0)
     assert b.red.amplitude == 1e-14
-    assert c.toa_error == pytest.approx(0.9)
+    assert c.toa_error == pytest.approx(0.9, rel=1e-6, abs=0)
     assert config.source_text == SMALL_TOML
-    assert config.gwb.gamma == pytest.approx(13 / 3)
+    assert config.gwb.gamma == pytest.approx(13 / 3, rel=1e-6, abs=0)
 
 
 @pytest.mark.parametrize(
@@ -36,7 +36,7 @@ def test_small_config_parses_with_units(small_toml):
 def test_quantities_convert_to_default_units(text, unit, expected):
     """Reference: astropy.units conversions (Julian year, 7-day week)."""
     config = parse_config(f"[array]\nrandom = {{count = 2}}\n[observing]\n{text}\n")
-    assert getattr(config.observing, unit) == pytest.approx(expected)
+    assert getattr(config.observing, unit) == pytest.approx(expected, rel=1e-6, abs=0)
 
 
 def test_drawn_values_and_per_pulsar_overrides():
@@ -54,7 +54,7 @@ gamma = {uniform = [2, 6]}
     assert isinstance(config.noise.red.amplitude, Draw)
     x, y = build_array(config, 3)
     assert x.white_scale == 2.0 and y.white_scale == 1.0
-    assert x.white_quadrature == pytest.approx(1e-7)
+    assert x.white_quadrature == pytest.approx(1e-7, rel=1e-6, abs=0)
     assert x.red_gamma == 3.0 and 2 <= y.red_gamma <= 6
     assert 1e-16 <= x.red_amplitude <= 1e-14 and x.red_amplitude != y.red_amplitude
     # the same seed draws the same values
@@ -65,8 +65,8 @@ def test_sexagesimal_and_degree_positions_agree():
     """Reference: 01h00m00s = 15 degrees; -30:30:00 = -30.5 degrees (sexagesimal arithmetic)."""
     text = '[array]\npulsars = [{name = "a", ra = "01:00:00", dec = "-30:30:00"}, {name = "b", ra = "1h0m0s", dec = -30.5}]'
     a, b = parse_config(text).array.pulsars
-    assert a.ra == pytest.approx(15.0) and b.ra == pytest.approx(15.0)
-    assert a.dec == pytest.approx(-30.5) and b.dec == pytest.approx(-30.5)
+    assert a.ra == pytest.approx(15.0, rel=1e-6, abs=0) and b.ra == pytest.approx(15.0, rel=1e-6, abs=0)
+    assert a.dec == pytest.approx(-30.5, rel=1e-6, abs=0) and b.dec == pytest.approx(-30.5, rel=1e-6, abs=0)
 
 
 BASE = SMALL_TOML
@@ -140,8 +140,8 @@ def test_quoted_bare_number_is_degrees_for_right_ascension():
     """Only sexagesimal strings are hours: "15" means 15 degrees, like 15; "01 00 00" means 15 degrees too."""
     entries = '[{name = "a", ra = "15", dec = 0}, {name = "b", ra = "01 00 00", dec = "-10 30 00"}]'
     a, b = parse_config(f"[array]\npulsars = {entries}\n").array.pulsars
-    assert a.ra == pytest.approx(15.0) and b.ra == pytest.approx(15.0)
-    assert b.dec == pytest.approx(-10.5)
+    assert a.ra == pytest.approx(15.0, rel=1e-6, abs=0) and b.ra == pytest.approx(15.0, rel=1e-6, abs=0)
+    assert b.dec == pytest.approx(-10.5, rel=1e-6, abs=0)
 
 
 def test_array_needs_exactly_one_kind():

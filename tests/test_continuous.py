@@ -121,6 +121,7 @@ def test_kernel_equals_numpy_twin(seed):
     sources, pulsars, per = 40, 4, 300
     span = 15 * YEAR
     times = np.concatenate([np.sort(rng.uniform(0, span, per)) for _ in range(pulsars)])
+    times[:: per] = 0.0  # a TOA at the reference time in every pulsar (x = 0 on the closed-form branch)
     bounds = np.arange(pulsars + 1) * per
     frequency = rng.uniform(2e-9, 3e-7, sources)
     # rates: none, slow (series branch), fast (rate * span up to 0.9)
@@ -150,8 +151,8 @@ def test_sources_recorded_in_dataset():
     data = simulate(cw_config(pulsar, {"name": "Heron", "chirp_mass": 1e9, "distance": 100.0, "frequency": 10.0, **geometry}))
     table = data.signals["cw"]["sources"]
     assert table["name"][0] == b"Heron"
-    assert table["strain"][0] == pytest.approx(2.76e-15, rel=0.01)  # PHYSICS.md check value
-    assert table["frequency"][0] == pytest.approx(1e-8)
+    assert table["strain"][0] == pytest.approx(2.76e-15, rel=0.01, abs=0)  # PHYSICS.md check value
+    assert table["frequency"][0] == pytest.approx(1e-8, rel=1e-6, abs=0)
 
 
 BASE = """
@@ -227,3 +228,24 @@ def test_vary_distances_draws_recorded_pulsar_distances():
     assert drawn.pulsars[0].noise["distance"] != 1.0
     assert drawn.pulsars[0].noise["distance"] == again.pulsars[0].noise["distance"]
     assert not np.allclose(drawn.pulsars[0].injected["cw"], fixed.pulsars[0].injected["cw"])
+
+
+def test_fast_evolving_binary_with_a_toa_at_the_reference_time():
+    """A binary 150 yr from merger (closed-form branch of the kernel, rate * t up to 0.07) with the first
+    TOA exactly at t = 0: finite, non-zero residuals matching the integrated redshift.  Tolerance from
+    the neglected term of the slowly-evolving antiderivative, (4/3) (df/dt) / (2 pi f^2) = 1.7e-3 here."""
+    pulsar = {"name": "A", "ra": 40.0, "dec": 20.0, "distance": 0.5}
+    source = {"name": "b", "chirp_mass": 3e10, "frequency": 10.0, "strain": 1e-14, "ra": 150.0, "dec": -30.0,
+              "inclination": 0.7, "polarization": 0.4, "phase": 1.1, "evolve": True, "pulsar_term": False}
+    data = simulate(cw_config(pulsar, source))
+    ours = data.pulsars[0].injected["cw"]
+    assert np.all(np.isfinite(ours)) and np.any(ours != 0)
+    times = (data.pulsars[0].mjd - data.start_mjd) * 86400.0
+    assert times[0] == 0.0
+    reference = integrated_residuals(source, pulsar, times)
+    np.testing.assert_allclose(ours - ours[0], reference, atol=3 * 1.7e-3 * np.max(np.abs(reference)))
+
+
+def test_implausible_strain_is_rejected():
+    with pytest.raises(InputError, match="surely a typo"):
+        parse_config(BASE.replace('distance = "100 Mpc"', 'distance = "1e-30 Mpc"'))

@@ -96,3 +96,49 @@ def test_config_without_correlate_table(dataset_path, tmp_path, capsys):
     config.write_text("[correlate]\nbinz = 3\n")
     assert main(["correlate", str(dataset_path), "--out", str(tmp_path / "o"), "--config", str(config)]) == 2
     assert "correlate.binz: unknown key" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    "change, words",
+    [
+        (lambda d: d.pulsars[1].design_matrix.__setitem__((0, 0), np.nan), "design matrix"),
+        (lambda d: setattr(d, "span", float("nan")), "must be finite"),
+        (lambda d: setattr(d, "span", -5.0), "must be finite"),
+        (lambda d: setattr(d.pulsars[0], "ra", float("nan")), "position or distance"),
+        (lambda d: d.pulsars[0].noise.__setitem__("white_quadrature", float("nan")), "noise parameter"),
+        (lambda d: d.signals["gwb"].__setitem__("amplitude", float("nan")), "signal parameter amplitude"),
+        (lambda d: d.signals["gwb"].__setitem__("components", 7.5), "whole number"),
+    ],
+)
+def test_more_broken_datasets(dataset_path, tmp_path, capsys, change, words):
+    broken = _broken(dataset_path, tmp_path, change)
+    assert main(["correlate", str(broken), "--out", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and words in err
+
+
+@pytest.mark.parametrize(
+    "table, words",
+    [
+        ("[correlate.noise_values.pulsars.RP001]\nwhite_scale = -1", "white_scale: must be positive"),
+        ("[correlate.noise_values.pulsars.RP001]\nwhite_scale = 0", "must be positive"),
+        ("[correlate.noise_values.pulsars.RP001]\nred_amplitude = 1e-3", "at most"),
+        ("[correlate.noise_values.pulsars.RP001]\nspin = 1", "unknown key"),
+        ("[correlate.noise_values.pulsars.Nowhere]\nred_amplitude = 1e-15", "'Nowhere' is not in the dataset"),
+    ],
+)
+def test_bad_noise_values(dataset_path, tmp_path, capsys, table, words):
+    config = tmp_path / "c.toml"
+    config.write_text('[correlate]\nnoise = "values"\n' + table + "\n")
+    assert main(["correlate", str(dataset_path), "--out", str(tmp_path / "o"), "--config", str(config)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and words in err, err
+
+
+def test_usage_mistakes_are_one_line(dataset_path, tmp_path):
+    import subprocess
+    import sys
+
+    result = subprocess.run([sys.executable, "-m", "ptares", "correlate", str(dataset_path), "--out", str(tmp_path),
+                             "--gamma", "abc"], capture_output=True, text=True)
+    assert result.returncode == 2 and result.stderr.count("\n") == 1 and "--gamma" in result.stderr

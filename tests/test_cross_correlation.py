@@ -76,8 +76,8 @@ def test_fast_estimator_equals_dense_formula(red):
     pairs = pair_correlations(products, np.array([p.position for p in data.pulsars]))
     for k, (a, b) in enumerate(zip(pairs.a, pairs.b)):
         rho, sigma = dense_rho_sigma(data, a, b, noise, 8, 13 / 3)
-        assert pairs.rho[k] == pytest.approx(rho, rel=1e-8)
-        assert pairs.sigma[k] == pytest.approx(sigma, rel=1e-8)
+        assert pairs.rho[k] == pytest.approx(rho, rel=1e-8, abs=0)
+        assert pairs.sigma[k] == pytest.approx(sigma, rel=1e-8, abs=0)
 
 
 def test_equal_white_noise_closed_form():
@@ -102,8 +102,8 @@ def test_equal_white_noise_closed_form():
         Fb = basis((data.pulsars[b].mjd - 53000) * 86400, span, 6)
         trace = np.trace(Fa.T @ Fa @ np.diag(template) @ Fb.T @ Fb @ np.diag(template))
         rho = data.pulsars[a].residuals @ Fa @ np.diag(template) @ Fb.T @ data.pulsars[b].residuals / trace
-        assert pairs.rho[k] == pytest.approx(rho, rel=1e-9)
-        assert pairs.sigma[k] == pytest.approx(s2 / np.sqrt(trace), rel=1e-9)
+        assert pairs.rho[k] == pytest.approx(rho, rel=1e-9, abs=0)
+        assert pairs.sigma[k] == pytest.approx(s2 / np.sqrt(trace), rel=1e-9, abs=0)
 
 
 def test_optimal_statistic_formula():
@@ -116,10 +116,10 @@ def test_optimal_statistic_formula():
     gamma = overlap(pairs, "hellings-downs")
     w = pairs.sigma**-2
     single = optimal_statistic(pairs, gamma)
-    assert single["amplitude2"] == pytest.approx(np.sum(pairs.rho * gamma * w) / np.sum(gamma**2 * w))
-    assert single["sigma"] == pytest.approx(np.sum(gamma**2 * w) ** -0.5)
+    assert single["amplitude2"] == pytest.approx(np.sum(pairs.rho * gamma * w) / np.sum(gamma**2 * w), rel=1e-6, abs=0)
+    assert single["sigma"] == pytest.approx(np.sum(gamma**2 * w) ** -0.5, rel=1e-6, abs=0)
     joint = joint_statistic(pairs, ["hellings-downs"])
-    assert joint["amplitude2"]["hellings-downs"] == pytest.approx(single["amplitude2"])
-    assert joint["sigma"]["hellings-downs"] == pytest.approx(single["sigma"])
+    assert joint["amplitude2"]["hellings-downs"] == pytest.approx(single["amplitude2"], rel=1e-6, abs=0)
+    assert joint["sigma"]["hellings-downs"] == pytest.approx(single["sigma"], rel=1e-6, abs=0)
     positions = np.array([p.position for p in data.pulsars])
     np.testing.assert_allclose(gamma, correlation_matrix(positions)[pairs.a, pairs.b])

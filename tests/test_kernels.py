@@ -1,7 +1,6 @@
 """The numba synthesis kernel against its plain numpy twin."""
 
 import numpy as np
-import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 

@@ -68,7 +68,7 @@ def prepare_terms(binaries, positions, distances):
     if evolve.any():
         rate[evolve] = 1.0 / time_to_coalescence(b["chirp_mass"][evolve], b["frequency"][evolve])
     amplitude = b["strain"] / (2.0 * np.pi * b["frequency"])
-    earth = np.column_stack([2.0 * b["phase"], 2.0 * omega, rate, amplitude])
+    earth = np.column_stack([np.mod(2.0 * b["phase"], 2.0 * np.pi), 2.0 * omega, rate, amplitude])
 
     source = unit_vector(b["ra"], b["dec"])  # (S, 3)
     positions = np.asarray(positions, dtype=float)
