@@ -255,6 +255,32 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: error: {message} (see --help)\n")
 
 
+def _sweep(args) -> int:
+    from .figures import save_figure, sweep_figures
+    from .sweep import load_sweep, run_sweep
+
+    _, section = load_sweep(args.config)
+    out = Path(args.out)
+    _check_output_directory(out, True)
+    if args.workers < 1:
+        raise InputError("must be at least 1", "--workers")
+    try:
+        rows = run_sweep(args.config, out, workers=args.workers, scheduler=args.scheduler, overwrite=args.overwrite)
+    except KeyboardInterrupt:
+        print(f"ptares: interrupted; finished tasks are kept in {out / 'tasks'}; run the same command to resume",
+              file=sys.stderr)
+        return 130
+    except OSError as exc:
+        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
+    for name, fig in sweep_figures(rows, section.false_alarm).items():
+        save_figure(fig, out / name)
+    failed = [r for r in rows if r["status"] != "ok"]
+    print(f"{len(rows)} tasks, {len(failed)} failed; wrote {out / 'results.csv'} and figures")
+    for row in failed[:5]:
+        print(f"  task {row['index']}: {row['error']}")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="ptares", description="Pulsar-timing-array residual modeller.")
     parser.add_argument("--version", action="version", version=f"ptares {__version__}")
@@ -299,6 +325,14 @@ def build_parser() -> argparse.ArgumentParser:
     fit.add_argument("--seed", type=int, help="seed of the sampler")
     fit.add_argument("--overwrite", action="store_true", help="start the chains afresh instead of resuming")
     fit.set_defaults(run=_fit)
+
+    sweep = commands.add_parser("sweep", help="injection-recovery campaign over a [sweep] grid, resumable")
+    sweep.add_argument("config", help="TOML config with a [sweep] table")
+    sweep.add_argument("--out", required=True, help="output directory (tasks/, results.csv, figures)")
+    sweep.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
+    sweep.add_argument("--scheduler", help="address of a Dask scheduler (instead of local workers)")
+    sweep.add_argument("--overwrite", action="store_true", help="discard earlier results of this directory")
+    sweep.set_defaults(run=_sweep)
     return parser
 
 

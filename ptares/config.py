@@ -526,6 +526,45 @@ class FitSection(_Section):
     workers: Count = Field(default=1, ge=1, le=256)
 
 
+class SweepDask(_Section):
+    """``[sweep.dask]``: run on a Dask cluster at ``scheduler`` (an address such as ``tcp://host:8786``)."""
+
+    scheduler: str
+
+
+class SweepSection(_Section):
+    """``[sweep]``: an injection-recovery campaign over this config.
+
+    ``axes`` maps dotted config keys (``gwb.amplitude``, ``array.random.count``)
+    to lists of values; ``grid = true`` runs every combination, ``false`` zips
+    lists of equal length.  Each combination runs ``realisations`` times with
+    seeds derived from ``seed`` and the task's index.  ``stages`` says what each
+    task runs; ``false_alarm`` is the false-alarm probability of the detection
+    threshold set from the tasks without a background.  ``base`` names another
+    config file whose tables this file's tables override.
+    """
+
+    axes: dict[str, list] = {}
+    grid: bool = True
+    realisations: Count = Field(default=10, ge=1, le=1_000_000)
+    stages: tuple[Literal["simulate", "correlate", "fit"], ...] = ("simulate", "correlate")
+    seed: Count = Field(default=0, ge=0, le=2**63 - 1)
+    false_alarm: Quantity(None, Positive, AfterValidator(_at_most(0.5))) = 0.05
+    base: Optional[str] = None
+    dask: Optional[SweepDask] = None
+
+    @model_validator(mode="after")
+    def _shape(self):
+        if "simulate" not in self.stages:
+            raise ValueError("every task simulates its data: 'simulate' must be among the stages")
+        for key, values in self.axes.items():
+            if not isinstance(values, list) or not values:
+                raise ValueError(f"axis {key!r} needs a non-empty list of values")
+        if not self.grid and len({len(v) for v in self.axes.values()}) > 1:
+            raise ValueError("with grid = false every axis needs the same number of values")
+        return self
+
+
 class Config(_Section):
     """A whole validated run configuration."""
 
@@ -538,6 +577,7 @@ class Config(_Section):
     cw: tuple[ContinuousWave, ...] = ()
     correlate: CorrelateSection = CorrelateSection()
     fit: FitSection = FitSection()
+    sweep: Optional[SweepSection] = None
 
     _text: str = PrivateAttr(default="")
     _path: Optional[Path] = PrivateAttr(default=None)
