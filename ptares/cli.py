@@ -188,10 +188,8 @@ def _correlate(args) -> int:
 
 
 def _fit(args) -> int:
-    import json
-
     from .config import FitSection, load_config, load_section
-    from .dataset import atomic_path, load_dataset, write_dataset
+    from .dataset import fingerprint, load_dataset, write_dataset, write_json
     from .figures import corner_figure, save_figure, trace_figure
     from .fit_model import FitModel
     from .sampling import run_sampler, summarise
@@ -212,7 +210,15 @@ def _fit(args) -> int:
         write_copy = True
     overrides = {k: getattr(args, k) for k in ("max_steps", "walkers", "workers", "seed") if getattr(args, k) is not None}
     if overrides:
-        section = section.model_copy(update=overrides)
+        from pydantic import ValidationError
+
+        from .config import _message
+
+        try:
+            section = FitSection.model_validate({**section.model_dump(), **overrides})
+        except ValidationError as exc:
+            first = exc.errors()[0]
+            raise InputError(_message(first), "--" + str(first["loc"][0]).replace("_", "-")) from None
     # chains.h5 is resumed, not overwritten; the other outputs are rewritten at the end of every run
     _check_output_directory(out, True)
     if dataset is None:
@@ -220,8 +226,15 @@ def _fit(args) -> int:
     model = FitModel(dataset, section)
     try:
         out.mkdir(parents=True, exist_ok=True)
-        if write_copy and not (out / "dataset.h5").exists():
-            write_dataset(dataset, out / "dataset.h5")
+        if write_copy:
+            copy = out / "dataset.h5"
+            if copy.exists() and fingerprint(load_dataset(copy)) != fingerprint(dataset):
+                if not args.overwrite:
+                    raise InputError("holds a dataset from another config or seed; pass --overwrite or choose another --out",
+                                     str(copy))
+                copy.unlink()
+            if not copy.exists():
+                write_dataset(dataset, copy)
         chains = out / "chains.h5"
         print(f"fitting {model.ndim} parameters ({', '.join(model.names[:6])}{', ...' if model.ndim > 6 else ''}) "
               f"to {len(model.dataset.pulsars)} pulsars; chains in {chains}")
@@ -232,8 +245,7 @@ def _fit(args) -> int:
                   file=sys.stderr)
             return 130
         summary = summarise(model, run)
-        with atomic_path(out / "posterior.json") as temporary:
-            temporary.write_text(json.dumps(summary, indent=1))
+        write_json(out / "posterior.json", summary)
         samples = run.chain[summary["burn"] :: section.thin].reshape(-1, model.ndim)
         save_figure(corner_figure(samples, model.names, model.injected), out / "corner.png")
         save_figure(trace_figure(run.chain, model.names, summary["burn"], model.injected), out / "trace.png")

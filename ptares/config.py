@@ -513,6 +513,13 @@ class FitSection(_Section):
         "log10_h0", "phase", "cos_inclination", "polarization")
     cw_values: dict[str, float] = {}
     cw_pulsar_term: bool = False
+
+    @field_validator("cw_free")
+    @classmethod
+    def _unique_free(cls, names):
+        if len(set(names)) != len(names):
+            raise ValueError("a parameter is listed twice")
+        return names
     fixed: dict[str, float] = {}
     priors: dict[str, Prior] = {}
     pulsars: Optional[tuple[str, ...]] = None

@@ -10,7 +10,6 @@ the scatter use the first model.
 from __future__ import annotations
 
 import datetime
-import json
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -29,7 +28,7 @@ from .cross_correlation import (
     overlap,
     pair_correlations,
 )
-from .dataset import Dataset, atomic_path
+from .dataset import Dataset, write_json
 from .noise_model import NoiseModel
 from .nulls import p_value, phase_shifts, sky_scrambles
 
@@ -76,19 +75,7 @@ class CorrelationResult:
 
     def write(self, path) -> None:
         """Write ``to_json()`` atomically; non-finite numbers become null (JSON has no NaN)."""
-        with atomic_path(path) as temporary:
-            temporary.write_text(json.dumps(_finite(self.to_json()), indent=1, allow_nan=False))
-
-
-def _finite(value):
-    """``value`` with every non-finite float replaced by None."""
-    if isinstance(value, dict):
-        return {k: _finite(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_finite(v) for v in value]
-    if isinstance(value, float) and not np.isfinite(value):
-        return None
-    return value
+        write_json(path, self.to_json())
 
 
 def template_settings(dataset: Dataset, section: CorrelateSection) -> tuple:

@@ -34,7 +34,7 @@ import numpy as np
 from .errors import InputError
 from .sky import unit_vector
 
-__all__ = ["PulsarData", "Dataset", "write_dataset", "load_dataset", "atomic_path"]
+__all__ = ["PulsarData", "Dataset", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint"]
 
 
 @dataclass
@@ -113,6 +113,47 @@ class atomic_path:
         else:
             self.temporary.unlink(missing_ok=True)
         return False
+
+
+def _json_safe(value):
+    """``value`` with non-finite floats as None (JSON has no NaN) and numpy scalars as Python ones."""
+    if isinstance(value, dict):
+        return {k: _json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_json_safe(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    return value
+
+
+def write_json(path, data) -> Path:
+    """Write ``data`` as JSON atomically; NaN and infinities become null."""
+    import json
+
+    path = Path(path)
+    with atomic_path(path) as temporary:
+        temporary.write_text(json.dumps(_json_safe(data), indent=1, allow_nan=False))
+    return path
+
+
+def fingerprint(dataset: Dataset) -> str:
+    """A hash of everything an analysis reads from ``dataset`` (positions, TOAs, residuals, noise, signals)."""
+    import hashlib
+    import json
+
+    digest = hashlib.sha256()
+    digest.update(repr((dataset.start_mjd, dataset.span)).encode())
+    for p in dataset.pulsars:
+        digest.update(p.name.encode())
+        digest.update(np.array([p.ra, p.dec, p.distance, p.distance_error], dtype=float).tobytes())
+        for array in (p.mjd, p.residuals, p.errors, p.design_matrix):
+            digest.update(np.ascontiguousarray(array, dtype=float).tobytes())
+        digest.update(json.dumps(_json_safe(p.noise), sort_keys=True).encode())
+    signals = {name: {k: v for k, v in values.items() if not isinstance(v, np.ndarray)} for name, values in dataset.signals.items()}
+    digest.update(json.dumps(_json_safe(signals), sort_keys=True, default=str).encode())
+    return digest.hexdigest()
 
 
 def write_dataset(dataset: Dataset, path) -> Path:

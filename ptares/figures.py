@@ -309,14 +309,14 @@ def trace_figure(chain, names, burn: int = 0, injected=None):
     fig, axes = plt.subplots(len(shown), 1, figsize=(8.0, 1.3 * len(shown) + 0.8), sharex=True, squeeze=False)
     steps = np.arange(chain.shape[0])
     for ax, i in zip(axes[:, 0], shown):
-        ax.plot(steps, chain[:, :, i], color="k", alpha=max(0.02, 1.0 / chain.shape[1]), lw=0.5)
-        ax.axvspan(0, burn, color="#9a9a9a", alpha=0.25, lw=0)
+        ax.axvspan(0, burn, color="#e9c46a", alpha=0.25, lw=0)
+        ax.plot(steps, chain[:, :, i], color=COMPONENT_COLOURS["gwb"], alpha=max(0.08, 2.0 / chain.shape[1]), lw=0.6)
         if names[i] in injected:
             ax.axhline(injected[names[i]], color="#c1121f", lw=1.2)
         ax.set_ylabel(names[i], fontsize=7)
         ax.tick_params(labelsize=7)
     axes[-1, 0].set_xlabel("step")
-    axes[0, 0].set_title(f"Walker traces ({chain.shape[1]} walkers; grey: burn-in; red: injected)", fontsize=9)
+    axes[0, 0].set_title(f"Walker traces ({chain.shape[1]} walkers; shaded: burn-in; red: injected)", fontsize=9)
     fig.tight_layout()
     return fig
 

@@ -44,6 +44,33 @@ DEFAULT_PRIORS = {
     "cw_log10_frequency": prior_module.Uniform(-9.0, -7.0),
 }
 _PER_PULSAR = ("red_log10_A", "red_gamma", "white_scale", "white_log10_quadrature")
+
+#: Values each generic parameter may take (fixed values and prior supports must lie inside).
+VALID = {
+    "gwb_log10_A": (-np.inf, -9.0), "red_log10_A": (-np.inf, -9.0), "cw_log10_h0": (-np.inf, -9.0),
+    "gwb_gamma": (-10.0, 10.0), "red_gamma": (-10.0, 10.0),
+    "white_scale": (1e-6, 1e3), "white_log10_quadrature": (-np.inf, -2.0),
+    "cw_phase": (-1e6, 1e6), "cw_cos_inclination": (-1.0, 1.0), "cw_polarization": (-1e6, 1e6),
+    "cw_ra": (-1e6, 1e6), "cw_sin_dec": (-1.0, 1.0), "cw_log10_frequency": (-10.0, -5.0),
+}
+
+
+def generic(name: str) -> str:
+    """``RP001_red_gamma`` -> ``red_gamma``; other names unchanged."""
+    return next((g for g in _PER_PULSAR if name.endswith("_" + g)), name)
+
+
+def _check_value(key: str, value: float, where: str) -> None:
+    low, high = VALID[generic(key)]
+    if np.isnan(value) or not (low <= value <= high) or (np.isinf(value) and not np.isinf(low)):
+        raise InputError(f"{value} is outside the allowed range [{low:g}, {high:g}]", where)
+
+
+def _check_support(prior, key: str, where: str) -> None:
+    low, high = VALID[generic(key)]
+    bounds = (getattr(prior, "low", -np.inf), getattr(prior, "high", np.inf))
+    if bounds[0] < low or bounds[1] > high:
+        raise InputError(f"the prior reaches [{bounds[0]:g}, {bounds[1]:g}], outside the allowed [{low:g}, {high:g}]", where)
 _CW = ("log10_h0", "phase", "cos_inclination", "polarization", "ra", "sin_dec", "log10_frequency")
 
 
@@ -108,12 +135,21 @@ class FitModel:
         self.injected = {k: v for k, v in values.items() if np.isfinite(v)}
 
         known = set(values) | set(DEFAULT_PRIORS)
+        used = set(free) | {k for k in values if k.startswith(("gwb_", "cw_")) or k.endswith(("_white_scale", "_white_log10_quadrature"))}
+        if self.red_mode != "none":
+            used |= {k for k in values if k.endswith(("_red_log10_A", "_red_gamma"))}
         for key, value in section.fixed.items():
-            if key not in values:
-                raise InputError(f"the model has no parameter {key!r}", f"fit.fixed.{key}")
-            values[key] = float(value)
-            if key in free:
-                free.remove(key)
+            targets = [k for k in values if generic(k) == key and k != key] if key in _PER_PULSAR else [key]
+            for target in targets:
+                if target not in values:
+                    raise InputError(f"the model has no parameter {key!r}", f"fit.fixed.{key}")
+                if target not in used:
+                    raise InputError(f"{key!r} is not used by this model (red = {self.red_mode!r}, common = {section.common!r})",
+                                     f"fit.fixed.{key}")
+                _check_value(target, float(value), f"fit.fixed.{key}")
+                values[target] = float(value)
+                if target in free:
+                    free.remove(target)
         for key in section.priors:
             if key not in known:
                 raise InputError(f"the model has no parameter {key!r}", f"fit.priors.{key}")
@@ -124,6 +160,9 @@ class FitModel:
         self.names = free
         self.values = values
         self.priors = [self._prior(name) for name in free]
+        for name, prior in zip(free, self.priors):
+            key = name if name in section.priors else generic(name)
+            _check_support(prior, name, f"fit.priors.{key}")
         self._warned = False
 
     @staticmethod
@@ -155,10 +194,10 @@ class FitModel:
     def _prior(self, name: str):
         if name in self.section.priors:
             return prior_module.from_config(self.section.priors[name])
-        generic = next((g for g in _PER_PULSAR if name.endswith("_" + g)), name)
-        if generic in self.section.priors:
-            return prior_module.from_config(self.section.priors[generic])
-        return DEFAULT_PRIORS[generic]
+        kind = generic(name)
+        if kind in self.section.priors:
+            return prior_module.from_config(self.section.priors[kind])
+        return DEFAULT_PRIORS[kind]
 
     @property
     def ndim(self) -> int:
@@ -188,7 +227,7 @@ class FitModel:
         )
         pulsars = self.likelihood.pulsars
         positions = np.array([p.position for p in self.dataset.pulsars])
-        distances = np.array([p.noise.get("distance", p.distance) for p in self.dataset.pulsars])
+        distances = np.array([p.distance for p in self.dataset.pulsars])  # catalogue: the fit cannot know the truth
         terms = prepare_terms([binary], positions, distances)
         bounds = np.concatenate([[0], np.cumsum([q.times.size for q in pulsars])])
         flat = cw_residuals(np.concatenate([q.times for q in pulsars]), bounds, *terms)

@@ -79,6 +79,9 @@ class Likelihood:
         for p in dataset.pulsars:
             times = (p.mjd - dataset.start_mjd) * 86400.0
             design = p.design_matrix
+            if design.shape[1] and np.linalg.matrix_rank(design) < design.shape[1]:
+                raise InputError("the timing-model design matrix is rank-deficient (repeated or dependent columns)",
+                                 f"dataset pulsar {p.name}")
             self.pulsars.append(
                 _Pulsar(
                     residuals=p.residuals,

@@ -106,13 +106,19 @@ def noise_from_values(
 def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) -> list:
     """Noise models from ``draws`` random posterior samples of a ``ptares fit`` (its ``chains.h5``).
 
-    Parameters the fit held fixed take the dataset's injected values; the fit's
-    common process (``gwb_log10_A``, ``gwb_gamma``) becomes the common process.
-    The first half of the chain is discarded as burn-in.
+    Parameters the fit held fixed keep the values it held them at; the fit's
+    common process (``gwb_log10_A``, ``gwb_gamma``, on its frequencies) becomes
+    the common process, and red noise the fit left out stays out.  Burn-in is
+    two integrated autocorrelation times, as in the fit's summary.  The chains
+    must come from a fit of this very dataset.
     """
+    import json
+    from pathlib import Path
+
+    import emcee
     import h5py
 
-    from pathlib import Path
+    from .dataset import fingerprint
 
     path = Path(path)
     if not path.is_file():
@@ -120,42 +126,42 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
     try:
         with h5py.File(path, "r") as f:
             names = [n.decode() if isinstance(n, bytes) else str(n) for n in f.attrs["parameter_names"]]
-            group = f["chains"]
-            steps = int(group.attrs["iteration"])
-            chain = group["chain"][steps // 2 : steps]
-    except (OSError, KeyError) as exc:
+            held = json.loads(f.attrs["held_values"])
+            common_components = int(f.attrs["common_components"])
+            red_components = int(f.attrs["red_components"])
+            origin = f.attrs["dataset_fingerprint"]
+        backend = emcee.backends.HDFBackend(str(path), name="chains", read_only=True)
+        steps = backend.iteration
+        with np.errstate(invalid="ignore", divide="ignore"):
+            tau = backend.get_autocorr_time(tol=0) if steps > 1 else np.array([np.nan])
+    except (OSError, KeyError, ValueError) as exc:
         raise InputError(f"not a ptares chains file ({exc})", str(path)) from None
+    if origin != fingerprint(dataset):
+        raise InputError("comes from a fit of another dataset", str(path))
+    burn = int(2 * np.max(tau)) if np.all(np.isfinite(tau)) else steps // 2
+    chain = backend.get_chain(discard=min(burn, max(steps - 1, 0)))
     if chain.size == 0:
         raise InputError("holds no samples yet", str(path))
     samples = chain.reshape(-1, len(names))
     rng = np.random.default_rng(seed)
     picked = samples[rng.choice(samples.shape[0], size=min(draws, samples.shape[0]), replace=False)]
-    base = noise_from_dataset(dataset)
+    held = {k: (float(v) if v is not None else -np.inf) for k, v in held.items()}
     models = []
     for row in picked:
-        values = dict(zip(names, row))
-        columns = {
-            "white_scale": base.white_scale.copy(),
-            "white_quadrature": base.white_quadrature.copy(),
-            "red_amplitude": base.red_amplitude.copy(),
-            "red_gamma": base.red_gamma.copy(),
+        values = {**held, **dict(zip(names, map(float, row)))}
+        per_pulsar = {
+            "white_scale": [values[f"{n}_white_scale"] for n in dataset.names],
+            "white_quadrature": [10 ** values[f"{n}_white_log10_quadrature"] for n in dataset.names],
+            "red_amplitude": [10 ** values[f"{n}_red_log10_A"] if red_components else 0.0 for n in dataset.names],
+            "red_gamma": [values[f"{n}_red_gamma"] for n in dataset.names],
         }
-        for a, name in enumerate(dataset.names):
-            if f"{name}_white_scale" in values:
-                columns["white_scale"][a] = values[f"{name}_white_scale"]
-            if f"{name}_white_log10_quadrature" in values:
-                columns["white_quadrature"][a] = 10 ** values[f"{name}_white_log10_quadrature"]
-            if f"{name}_red_log10_A" in values:
-                columns["red_amplitude"][a] = 10 ** values[f"{name}_red_log10_A"]
-            if f"{name}_red_gamma" in values:
-                columns["red_gamma"][a] = values[f"{name}_red_gamma"]
         models.append(
             NoiseModel(
-                red_components=base.red_components,
-                common_amplitude=10 ** values["gwb_log10_A"] if "gwb_log10_A" in values else base.common_amplitude,
-                common_gamma=values.get("gwb_gamma", base.common_gamma),
-                common_components=base.common_components,
-                **columns,
+                red_components=max(red_components, 1),
+                common_amplitude=10 ** values["gwb_log10_A"] if common_components and "gwb_log10_A" in values else 0.0,
+                common_gamma=values.get("gwb_gamma", 13.0 / 3.0),
+                common_components=max(common_components, 1),
+                **{k: np.array(v, dtype=float) for k, v in per_pulsar.items()},
             )
         )
     return models

@@ -8,6 +8,7 @@ itself, and its support.  Built from the config's ``{uniform = [...]}``,
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 from scipy import stats
@@ -57,10 +58,16 @@ class Normal:
     def _distribution(self):
         return stats.truncnorm((self.low - self.mean) / self.sd, (self.high - self.mean) / self.sd, self.mean, self.sd)
 
+    @cached_property
+    def _log_norm(self) -> float:
+        """Log normalisation of the truncated density (computed once; log_pdf is called per step)."""
+        mass = stats.norm.cdf(self.high, self.mean, self.sd) - stats.norm.cdf(self.low, self.mean, self.sd)
+        return -np.log(self.sd * np.sqrt(2.0 * np.pi) * mass)
+
     def log_pdf(self, x: float) -> float:
         if not self.low <= x <= self.high:
             return -np.inf
-        return float(self._distribution().logpdf(x))
+        return self._log_norm - 0.5 * ((x - self.mean) / self.sd) ** 2
 
     def sample(self, rng, size):
         return self._distribution().rvs(size=size, random_state=rng)

@@ -1,7 +1,7 @@
 """Sampling a :class:`~ptares.fit_model.FitModel` with emcee, checkpointed so that nothing is lost.
 
-Chains go to an HDF5 file through emcee's own HDF backend, one step at a
-time.  Rerunning the same fit with the same output resumes from the last saved
+Chains go to an HDF5 file through emcee's own HDF backend, in batches of
+steps (every 100 steps, every 10 s, and when the run stops).  Rerunning the same fit with the same output resumes from the last saved
 step and the saved random state, so an interrupted run (Ctrl-C or a kill)
 continues the same chain: no sample is lost or repeated.  The run stops when
 the chain is longer than ``autocorr_factor`` integrated autocorrelation times
@@ -13,6 +13,8 @@ from __future__ import annotations
 
 import hashlib
 import json
+import signal
+import threading
 import time
 from contextlib import nullcontext
 from dataclasses import dataclass
@@ -22,6 +24,7 @@ import h5py
 import numpy as np
 import scipy.optimize
 
+from .dataset import fingerprint
 from .errors import InputError
 from .fit_model import FitModel
 
@@ -79,16 +82,19 @@ class CheckpointedBackend(emcee.backends.HDFBackend):
         self._buffer.clear()
 
 
-def _identity(model: FitModel) -> str:
-    """A fingerprint of what is being sampled, so a resume never mixes two different fits."""
-    settings = model.section.model_dump(exclude={"max_steps", "autocorr_factor", "burn", "thin", "workers"})
-    text = json.dumps({"names": model.names, "settings": settings, "dataset": model.dataset.names}, sort_keys=True, default=str)
+def _identity(model: FitModel, walkers: int) -> str:
+    """A fingerprint of what is being sampled, so a resume never mixes two different fits or datasets."""
+    settings = model.section.model_dump(exclude={"max_steps", "autocorr_factor", "burn", "thin", "workers", "walkers"})
+    text = json.dumps({"names": model.names, "settings": settings, "walkers": walkers, "values": model.values,
+                       "dataset": fingerprint(model.dataset)}, sort_keys=True, default=str)
     return hashlib.sha256(text.encode()).hexdigest()
 
 
 def _starting_points(model: FitModel, walkers: int, rng: np.random.Generator) -> np.ndarray:
     """Walkers inside the prior support: prior draws, or a small ball about the maximum posterior."""
     points = model.sample_prior(rng, walkers)
+    if not any(np.isfinite(model(p)) for p in points):
+        raise InputError("the posterior is zero at every starting point; check the priors and fixed values", "fit")
     if model.section.start == "map":
         best = points[np.argmax([model(p) for p in points])]
         result = scipy.optimize.minimize(lambda x: -model(x), best, method="Nelder-Mead",
@@ -108,7 +114,7 @@ def run_sampler(model: FitModel, path, progress: bool = False, overwrite: bool =
     walkers = section.walkers or max(2 * model.ndim + 2, 16)
     if walkers < 2 * model.ndim:
         raise InputError(f"{walkers} walkers are fewer than twice the {model.ndim} free parameters", "fit.walkers")
-    identity = _identity(model)
+    identity = _identity(model, walkers)
     backend = CheckpointedBackend(str(path))
     resume = False
     if path.exists() and not overwrite:
@@ -126,6 +132,11 @@ def run_sampler(model: FitModel, path, progress: bool = False, overwrite: bool =
             f.attrs["fit_identity"] = identity
             f.attrs["parameter_names"] = model.names
             f.attrs["injected"] = json.dumps(model.injected)
+            f.attrs["held_values"] = json.dumps({k: v for k, v in model.values.items() if k not in model.names},
+                                                default=str)
+            f.attrs["common_components"] = model.components if model.section.common != "none" else 0
+            f.attrs["red_components"] = model.likelihood.red_components
+            f.attrs["dataset_fingerprint"] = fingerprint(model.dataset)
     elif backend.shape != (walkers, model.ndim):
         raise InputError("the saved chains have another number of walkers", str(path))
 
@@ -133,48 +144,77 @@ def run_sampler(model: FitModel, path, progress: bool = False, overwrite: bool =
     if section.workers > 1:
         import multiprocessing
 
-        pool = multiprocessing.get_context("spawn").Pool(section.workers)
-    with pool if pool is not None else nullcontext():
-        sampler = emcee.EnsembleSampler(walkers, model.ndim, model, backend=backend, pool=pool,
-                                        parameter_names=None)
-        if resume:
-            start = backend.get_last_sample()
-        else:
-            rng = np.random.default_rng(section.seed)
-            start = emcee.State(_starting_points(model, walkers, rng),
-                                random_state=np.random.RandomState(section.seed % 2**32).get_state())
-        done = int(backend.iteration)
-        remaining = section.max_steps - done
-        previous = np.inf
-        converged = _converged(backend, section.autocorr_factor, previous)[0] if resume else False
-        if remaining > 0 and not converged:
-            try:
-                for step, _ in enumerate(sampler.sample(start, iterations=remaining, progress=progress, store=True),
-                                         start=done + 1):
-                    if step % CHECK_EVERY:
-                        continue
-                    backend.flush()
-                    converged, previous = _converged(backend, section.autocorr_factor, previous)
-                    if converged:
-                        break
-            finally:
-                backend.flush()  # also on Ctrl-C: every finished step is kept
-        converged, _ = _converged(backend, section.autocorr_factor, np.inf, final=True)
+        pool = multiprocessing.get_context("spawn").Pool(section.workers, initializer=_ignore_interrupts)
+    interrupted = []
+    previous_handler = None
+    if threading.current_thread() is threading.main_thread():
+        # Ctrl-C stops after the current step; the workers ignore it and finish that step
+        previous_handler = signal.signal(signal.SIGINT, lambda *_: interrupted.append(True))
+    try:
+        with pool if pool is not None else nullcontext():
+            run = _sample(model, backend, walkers, pool, resume, interrupted, progress)
+    finally:
+        if previous_handler is not None:
+            signal.signal(signal.SIGINT, previous_handler)
+    if interrupted:
+        raise KeyboardInterrupt
+    return run
+
+
+def _ignore_interrupts():
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _sample(model, backend, walkers, pool, resume, interrupted, progress):
+    section = model.section
+    sampler = emcee.EnsembleSampler(walkers, model.ndim, model, backend=backend, pool=pool,
+                                    parameter_names=None)
+    if resume:
+        start = backend.get_last_sample()
+    else:
+        rng = np.random.default_rng(section.seed)
+        start = emcee.State(_starting_points(model, walkers, rng),
+                            random_state=np.random.RandomState(section.seed % 2**32).get_state())
+    done = int(backend.iteration)
+    remaining = section.max_steps - done
+    previous = np.inf
+    converged = _converged(backend, section.autocorr_factor, previous, final=True)[0] if resume else False
+    if remaining > 0 and not converged:
+        try:
+            for step, _ in enumerate(sampler.sample(start, iterations=remaining, progress=progress, store=True),
+                                     start=done + 1):
+                if interrupted:
+                    break
+                if step % CHECK_EVERY:
+                    continue
+                backend.flush()
+                converged, previous = _converged(backend, section.autocorr_factor, previous)
+                if converged:
+                    break
+        finally:
+            backend.flush()  # also on Ctrl-C: every finished step is kept
+    converged, _ = _converged(backend, section.autocorr_factor, np.inf, final=True)
     return FitRun(
         chain=backend.get_chain(),
         log_prob=backend.get_log_prob(),
         acceptance_fraction=float(np.mean(backend.accepted / max(backend.iteration, 1))),
-        autocorr_time=backend.get_autocorr_time(tol=0),
+        autocorr_time=_autocorr(backend),
         converged=converged,
         steps=int(backend.iteration),
     )
+
+
+def _autocorr(backend) -> np.ndarray:
+    """Integrated autocorrelation times (NaN where the chain is too short or stuck to say)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return backend.get_autocorr_time(tol=0)
 
 
 def _converged(backend, factor: float, previous, final: bool = False):
     """``(converged, largest autocorrelation time)``: long enough and, while running, settled within 1%."""
     if backend.iteration < 2:
         return False, np.inf
-    tau = float(np.max(backend.get_autocorr_time(tol=0)))
+    tau = float(np.max(_autocorr(backend)))
     long_enough = backend.iteration > factor * tau
     settled = final or abs(previous - tau) < 0.01 * tau
     return bool(long_enough and settled), tau
@@ -192,7 +232,7 @@ def summarise(model: FitModel, run: FitRun) -> dict:
         parameters[name] = {
             "median": float(np.median(values)),
             "interval68": [float(v) for v in np.percentile(values, [15.865, 84.135])],
-            "interval95": [float(v) for v in np.percentile(values, [2.275, 97.725])],
+            "interval95": [float(v) for v in np.percentile(values, [2.5, 97.5])],
             "autocorr_time": float(tau[i]),
             **({"injected": model.injected[name]} if name in model.injected else {}),
         }

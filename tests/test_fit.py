@@ -227,3 +227,77 @@ def test_unknown_cw_values_and_missing_values():
         FitModel(data, FitSection(cw=True))
     with pytest.raises(InputError, match="has no parameter 'spin'"):
         FitModel(data, FitSection(cw=True, cw_values={"spin": 1.0}))
+
+
+@pytest.mark.parametrize(
+    "table, words",
+    [
+        ("[fit]\nfixed = {gwb_gamma = nan}", "outside the allowed range"),
+        ("[fit]\nfixed = {gwb_gamma = inf}", "outside the allowed range"),
+        ('[fit]\nwhite = "free"\nfixed = {RP001_white_scale = 0}', "outside the allowed range"),
+        ('[fit]\nred = "none"\nfixed = {RP001_red_log10_A = -12.5}', "not used by this model"),
+        ("[fit]\npriors = {gwb_log10_A = {uniform = [-20, 400]}}", "outside the allowed"),
+        ('[fit]\nwhite = "free"\npriors = {white_scale = {normal = [1, 0.5]}}', "outside the allowed"),
+        ('[fit]\ncw = true\ncw_free = ["phase", "phase"]', "listed twice"),
+    ],
+)
+def test_fixed_values_and_priors_are_checked(tmp_path, capsys, table, words):
+    dataset = write_dataset(loud_background(6), tmp_path / "d.h5")
+    settings = tmp_path / "fit.toml"
+    settings.write_text(table + "\n")
+    assert main(["fit", str(dataset), "--out", str(tmp_path / "o"), "--config", str(settings)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and words in err, err
+
+
+@pytest.mark.parametrize("option, value", [("--seed", "-1"), ("--max-steps", "0"), ("--walkers", "-1"), ("--workers", "0")])
+def test_command_line_overrides_are_validated(tmp_path, capsys, option, value):
+    dataset = write_dataset(loud_background(6), tmp_path / "d.h5")
+    assert main(["fit", str(dataset), "--out", str(tmp_path / "o"), option, value]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and option in err
+
+
+def test_resume_refuses_chains_of_another_dataset(tmp_path, capsys):
+    """Same settings, different data: the saved chains are not continued."""
+    out = tmp_path / "o"
+    first = write_dataset(loud_background(6), tmp_path / "a.h5")
+    second = write_dataset(loud_background(7), tmp_path / "b.h5")
+    settings = tmp_path / "fit.toml"
+    settings.write_text("[fit]\nmax_steps = 100\n")
+    assert main(["fit", str(first), "--out", str(out), "--config", str(settings)]) == 0
+    assert main(["fit", str(second), "--out", str(out), "--config", str(settings)]) == 2
+    assert "holds chains of a different fit" in capsys.readouterr().err
+
+
+def test_converged_fit_is_not_extended_by_a_rerun(tmp_path):
+    data = loud_background(8)
+    section = FitSection(max_steps=5000, autocorr_factor=10, seed=1)
+    first = run_sampler(FitModel(data, section), tmp_path / "c.h5")
+    assert first.converged
+    again = run_sampler(FitModel(data, section), tmp_path / "c.h5")
+    assert again.steps == first.steps
+
+
+def test_posterior_draws_keep_what_the_fit_held_fixed(tmp_path):
+    """noise_from_chains: the fixed index and the fit's frequency count carry over; other data are refused."""
+    from ptares.noise_model import noise_from_chains
+
+    data = loud_background(9)
+    model = FitModel(data, FitSection(fixed={"gwb_gamma": 3.0}, components=4, max_steps=200))
+    run_sampler(model, tmp_path / "c.h5")
+    draws = noise_from_chains(data, tmp_path / "c.h5", draws=5)
+    assert len(draws) == 5
+    assert all(d.common_gamma == 3.0 and d.common_components == 4 for d in draws)
+    assert len({d.common_amplitude for d in draws}) == 5
+    with pytest.raises(InputError, match="another dataset"):
+        noise_from_chains(loud_background(10), tmp_path / "c.h5")
+
+
+def test_short_run_writes_valid_json(tmp_path):
+    """A run too short for an autocorrelation estimate still writes strict JSON (null, never NaN)."""
+    dataset = write_dataset(loud_background(6), tmp_path / "d.h5")
+    assert main(["fit", str(dataset), "--out", str(tmp_path / "o"), "--max-steps", "12"]) == 0
+    text = (tmp_path / "o" / "posterior.json").read_text()
+    assert "NaN" not in text and "Infinity" not in text
+    json.loads(text)

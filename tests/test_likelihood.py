@@ -26,13 +26,18 @@ def sine_cosine(times, span, count):
 def brute_force(data, scale, quadrature, red_amplitude, red_gamma, amplitude, gamma, components, red_components, correlated):
     """log N(G^T r; 0, G^T C G) with scipy.stats.multivariate_normal: the full covariance C of all
     pulsars (white, red, common process with Gamma = Hellings–Downs or identity), projected onto
-    the complement of each pulsar's timing model (G from numpy's SVD)."""
-    from ptares.correlations import hellings_downs
-    from ptares.sky import separation_matrix
+    the complement of each pulsar's timing model (G from numpy's SVD).  The Hellings–Downs curve is
+    written out here (Hellings & Downs 1983) with separations from astropy."""
+    from astropy import units as u
+    from astropy.coordinates import SkyCoord
 
     span = data.span
-    positions = np.array([p.position for p in data.pulsars])
-    gamma_ab = hellings_downs(separation_matrix(positions)) if correlated else np.zeros((len(positions),) * 2)
+    coords = SkyCoord([p.ra for p in data.pulsars] * u.rad, [p.dec for p in data.pulsars] * u.rad)
+    angle = np.array([[a.separation(b).rad for b in coords] for a in coords])
+    x = (1 - np.cos(angle)) / 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        hd = np.where(x > 0, 1.5 * x * np.log(np.where(x > 0, x, 1.0)) - x / 4 + 0.5, 0.5)
+    gamma_ab = hd if correlated else np.zeros((len(coords),) * 2)
     np.fill_diagonal(gamma_ab, 1.0)
     f = np.arange(1, components + 1) / span
     common = np.concatenate([psd(f, amplitude, gamma)] * 2) / span
@@ -104,12 +109,31 @@ def test_likelihood_with_signal_subtracts_it(data):
 
 
 def test_degenerate_timing_model_is_reported_not_nan(data):
-    """Two identical design-matrix columns: M^T N^-1 M is singular; the likelihood says so."""
+    """Two identical design-matrix columns: refused with a clear error when the likelihood is built."""
     import copy
+
+    from ptares.errors import InputError
 
     broken = copy.deepcopy(data)
     p = broken.pulsars[0]
     p.design_matrix = np.column_stack([p.design_matrix, p.design_matrix[:, 0]])
-    likelihood = Likelihood(broken, 5, 6, False)
-    with pytest.raises(NotPositiveDefinite, match="not positive definite"):
-        likelihood(np.ones(3), np.zeros(3), np.full(3, 1e-15), np.full(3, 4.0), 5e-15, 13 / 3)
+    with pytest.raises(InputError, match="rank-deficient"):
+        Likelihood(broken, 5, 6, False)
+
+
+def test_non_positive_definite_point_is_zero_probability_with_a_warning(data, monkeypatch):
+    """Where a covariance fails to factorise the posterior is -inf (not NaN) and the user is told once."""
+    from ptares.config import FitSection
+    from ptares.errors import PhysicsWarning
+    from ptares.fit_model import FitModel
+
+    model = FitModel(data, FitSection())
+
+    def failing(*args, **kwargs):
+        raise NotPositiveDefinite("Phi is not positive definite")
+
+    monkeypatch.setattr(model.likelihood, "__call__", failing)
+    monkeypatch.setattr(type(model.likelihood), "__call__", lambda self, *a, **k: failing())
+    with pytest.warns(PhysicsWarning, match="not positive definite"):
+        assert model(np.array([-14.0, 4.0])) == -np.inf
+    assert model(np.array([-14.5, 4.0])) == -np.inf
