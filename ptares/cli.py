@@ -28,14 +28,19 @@ def _summary(config) -> str:
 
     from .signals import Context
 
+    from .simulate import _tables
+    from .timing_model import column_names
+
     seed = run_seed(config)
-    pulsars = build_array(config, seed)
-    observations = observe(pulsars, seed)
+    tables = _tables(config, len(column_names(config.timing_model.fit)), config.array.mode == "inject")
+    pulsars = build_array(config, seed, tables)
+    observations = observe(pulsars, seed, tables, config.array.window)
     context = Context(pulsars=tuple(pulsars), observations=observations, seed=seed)
     counts = [m.size for m in observations.mjd]
     lines = [
         f"run        {config.run.name} (seed {config.run.seed if config.run.seed is not None else 'fresh each run'})",
-        f"pulsars    {len(pulsars)} ({'random isotropic' if config.array.random else 'listed'})",
+        f"pulsars    {len(pulsars)} ("
+        + ("random isotropic" if config.array.random else f"tables, {config.array.mode} mode" if tables else "listed") + ")",
         f"TOAs       {sum(counts)} in all, {min(counts)} to {max(counts)} per pulsar",
         f"span       {observations.span / 86400 / 365.25:.2f} yr from MJD {observations.start:.1f}",
         f"timing fit {', '.join(config.timing_model.fit) or 'none'}",
@@ -293,6 +298,38 @@ def _sweep(args) -> int:
     return 0
 
 
+def _import(args) -> int:
+    from .config import load_config
+    from .dataset import write_dataset
+    from .simulate import import_tables
+
+    config = load_config(args.config)
+    out = Path(args.out)
+    _check_output_directory(out, args.overwrite, ("dataset.h5",))
+    dataset = import_tables(config)
+    try:
+        target = write_dataset(dataset, out / "dataset.h5")
+    except OSError as exc:
+        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
+    print(f"wrote {target} ({len(dataset.pulsars)} pulsars, {sum(p.toa_count for p in dataset.pulsars)} TOAs)")
+    return 0
+
+
+def _export(args) -> int:
+    from .dataset import load_dataset
+    from .tables import export_tables
+
+    dataset = load_dataset(args.dataset)
+    out = Path(args.out)
+    _check_output_directory(out, args.overwrite, ("toas.csv", "pulsars.csv", "import.toml"))
+    try:
+        for path in export_tables(dataset, out):
+            print(f"wrote {path}")
+    except OSError as exc:
+        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="ptares", description="Pulsar-timing-array residual modeller.")
     parser.add_argument("--version", action="version", version=f"ptares {__version__}")
@@ -345,6 +382,18 @@ def build_parser() -> argparse.ArgumentParser:
     sweep.add_argument("--scheduler", help="address of a Dask scheduler (instead of local workers)")
     sweep.add_argument("--overwrite", action="store_true", help="discard earlier results of this directory")
     sweep.set_defaults(run=_sweep)
+
+    imp = commands.add_parser("import", help="make a dataset from a TOA table and a catalogue, without simulating")
+    imp.add_argument("config", help="TOML config whose [array] names the table and catalogue")
+    imp.add_argument("--out", required=True, help="output directory (dataset.h5)")
+    imp.add_argument("--overwrite", action="store_true", help="replace an existing dataset.h5")
+    imp.set_defaults(run=_import)
+
+    exp = commands.add_parser("export", help="write a dataset as a TOA table and a catalogue (CSV)")
+    exp.add_argument("dataset", help="HDF5 dataset")
+    exp.add_argument("--out", required=True, help="output directory (toas.csv, pulsars.csv, import.toml)")
+    exp.add_argument("--overwrite", action="store_true", help="replace existing tables")
+    exp.set_defaults(run=_export)
     return parser
 
 

@@ -275,7 +275,13 @@ class RandomArray(_Section):
 
 
 class ArraySection(_Section):
-    """``[array]``: either a list of ``pulsars`` or a ``random`` array.
+    """``[array]``: a list of ``pulsars``, a ``random`` array, or plain tables.
+
+    ``table`` (TOAs) and ``catalogue`` (pulsars) are CSV files, relative to the
+    config file (see :mod:`ptares.tables`); ``mode = "schedule"`` takes only
+    their epochs and errors, ``"inject"`` keeps their residuals and adds the
+    configured signals.  ``window`` = [first MJD, last MJD] sets the span T of
+    the Fourier basis (default: the TOAs' extent).
 
     ``vary_distances``: draw each pulsar's true distance (used by pulsar terms)
     from a normal distribution of the catalogued ``distance`` and ``distance_error``.
@@ -283,12 +289,21 @@ class ArraySection(_Section):
 
     pulsars: Optional[tuple[PulsarEntry, ...]] = None
     random: Optional[RandomArray] = None
+    table: Optional[str] = None
+    catalogue: Optional[str] = None
+    mode: Literal["schedule", "inject"] = "schedule"
+    window: Optional[tuple[Quantity("d"), Quantity("d")]] = None
     vary_distances: bool = False
 
     @model_validator(mode="after")
     def _one_kind(self):
-        if (self.pulsars is None) == (self.random is None):
-            raise ValueError("give either 'pulsars' or 'random', not both or neither")
+        kinds = [k for k in ("pulsars", "random", "table") if getattr(self, k) is not None]
+        if len(kinds) != 1:
+            raise ValueError("give exactly one of 'pulsars', 'random' or 'table' (with 'catalogue')")
+        if (self.table is None) != (self.catalogue is None):
+            raise ValueError("'table' and 'catalogue' go together")
+        if self.window is not None and not self.window[0] < self.window[1]:
+            raise ValueError("window needs [first MJD, last MJD] with first < last")
         if self.pulsars is not None:
             if not self.pulsars:
                 raise ValueError("the array has no pulsars")
@@ -617,6 +632,13 @@ class Config(_Section):
             return [self.observing]
         return [self.observing_for(p) for p in self.array.pulsars]
 
+    def resolve(self, relative: str) -> Path:
+        """A path from the config, relative to the config file's folder."""
+        path = Path(relative)
+        if path.is_absolute() or self._path is None:
+            return path
+        return self._path.parent / path
+
     def cw_name(self, index: int) -> str:
         """The name of ``[[cw]]`` source ``index``: its own, or ``cw<index + 1>``."""
         return self.cw[index].name or f"cw{index + 1}"
@@ -672,6 +694,8 @@ def _check_schedules(config: Config) -> None:
     from .timing_model import column_names
 
     columns = len(column_names(config.timing_model.fit))
+    if config.array.table is not None:
+        return  # the tables are checked when they are read
     entries = config.array.pulsars or (None,)
     for i, pulsar in enumerate(entries):
         obs = config.observing if pulsar is None else config.observing_for(pulsar)
@@ -703,6 +727,8 @@ def _check_sources(config: Config) -> None:
     from .binaries import time_to_coalescence
     from .constants import DAY, KPC, M_SUN, YEAR
 
+    if config.array.table is not None and config.cw:
+        return  # epochs come from the table: checked when the table is read
     schedules = config.schedules()
     first = min(s.start for s in schedules)
     span = max(s.start + s.span * YEAR / DAY for s in schedules) - first  # days

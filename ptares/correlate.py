@@ -148,7 +148,7 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
     estimates = {name: {key: float(np.mean([d[name][key] for d in per_draw])) for key in ("amplitude2", "sigma", "snr")}
                  for name in PATTERN_NAMES}
     joint = per_draw[0]["joint"]
-    if len(per_draw) > 1:
+    if len(per_draw) > 1 and joint["covariance"] is not None:
         for key in ("amplitude2", "sigma", "snr"):
             joint[key] = {n: float(np.mean([d["joint"][key][n] for d in per_draw])) for n in PATTERN_NAMES}
         joint["snr_total"] = float(np.mean([d["joint"]["snr_total"] for d in per_draw]))

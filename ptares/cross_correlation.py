@@ -207,6 +207,11 @@ def joint_statistic(pairs: PairCorrelations, patterns: list) -> dict:
     design = np.column_stack([overlap(pairs, name) for name in patterns])
     weights = 1.0 / pairs.sigma**2
     fisher = design.T @ (design * weights[:, None])
+    if pairs.rho.size < len(patterns) or np.linalg.matrix_rank(fisher) < len(patterns):
+        nothing = {n: None for n in patterns}
+        return {"patterns": list(patterns), "amplitude2": nothing, "sigma": dict(nothing), "snr": dict(nothing),
+                "snr_total": None, "covariance": None,
+                "note": f"{pairs.rho.size} pair(s) cannot separate {len(patterns)} patterns"}
     covariance = np.linalg.inv(fisher)
     amplitude2 = covariance @ (design.T @ (pairs.rho * weights))
     sigma = np.sqrt(np.diag(covariance))

@@ -9,6 +9,7 @@ File layout (also in the README)::
         residuals           (n,) s, after the timing-model fit
         errors              (n,) s, quoted TOA uncertainties
         design_matrix       (n, m), attrs: columns (names)
+        measured            (n,) s, residuals taken from a table (inject mode, imports), if any
         injected/<component>  (n,) s, before the fit: white, red, gwb, cw
         injected            attrs: white_scale, white_quadrature (s),
                                    red_amplitude, red_gamma (the injected noise),
@@ -53,6 +54,7 @@ class PulsarData:
     design_columns: list = field(default_factory=list)
     injected: dict = field(default_factory=dict)  #: component name -> (n,) s, before the fit
     noise: dict = field(default_factory=dict)  #: injected noise parameters
+    measured: np.ndarray | None = None  #: s, residuals taken from a table (inject mode and imports)
 
     @property
     def position(self) -> np.ndarray:
@@ -177,6 +179,8 @@ def write_dataset(dataset: Dataset, path) -> Path:
                 g["errors"] = p.errors
                 g["design_matrix"] = p.design_matrix
                 g["design_matrix"].attrs["columns"] = list(p.design_columns)
+                if p.measured is not None:
+                    g["measured"] = p.measured
                 injected = g.create_group("injected", track_order=True)
                 for name, values in p.injected.items():
                     injected[name] = values
@@ -228,6 +232,7 @@ def load_dataset(path) -> Dataset:
                         design_columns=_plain(g["design_matrix"].attrs.get("columns", [])),
                         injected={k: v[()] for k, v in injected.items()} if injected else {},
                         noise={k: _plain(v) for k, v in injected.attrs.items()} if injected else {},
+                        measured=g["measured"][()] if "measured" in g else None,
                     )
                 )
             signals = {

@@ -89,10 +89,16 @@ def _first(*values):
     return next(v for v in values if v is not None)
 
 
-def build_array(config: Config, seed: int) -> list[PulsarSetup]:
-    """One resolved :class:`PulsarSetup` per pulsar of ``config``, in config order."""
+def build_array(config: Config, seed: int, tables=None) -> list[PulsarSetup]:
+    """One resolved :class:`PulsarSetup` per pulsar of ``config``, in config order (catalogue order for tables)."""
     noise = config.noise
-    if config.array.random is not None:
+    if tables is not None:
+        entries = [
+            dict(name=p.name, ra=p.ra, dec=p.dec, distance=p.distance, distance_error=p.distance_error,
+                 observing=config.observing, white=None, red=None)
+            for p in tables.pulsars
+        ]
+    elif config.array.random is not None:
         spec = config.array.random
         entries = []
         for i in range(spec.count):
@@ -157,8 +163,14 @@ def build_array(config: Config, seed: int) -> list[PulsarSetup]:
     return setups
 
 
-def observe(setups: list[PulsarSetup], seed: int) -> Observations:
-    """Draw every pulsar's epochs and TOA uncertainties from its own streams."""
+def observe(setups: list[PulsarSetup], seed: int, tables=None, window=None) -> Observations:
+    """Draw every pulsar's epochs and TOA uncertainties from its own streams (or take them from ``tables``)."""
+    if tables is not None:
+        mjd = tuple(tables.mjd[p.name] for p in setups)
+        first = min(m[0] for m in mjd) if window is None else window[0]
+        last = max(m[-1] for m in mjd) if window is None else window[1]
+        return Observations(mjd=mjd, toa_errors=tuple(tables.errors[p.name] for p in setups), start=float(first),
+                            span=(float(last) - float(first)) * 86400.0)
     mjd, errors = [], []
     for p in setups:
         epochs = observation_epochs(

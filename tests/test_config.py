@@ -145,7 +145,7 @@ def test_quoted_bare_number_is_degrees_for_right_ascension():
 
 
 def test_array_needs_exactly_one_kind():
-    with pytest.raises(InputError, match="either 'pulsars' or 'random'"):
+    with pytest.raises(InputError, match="exactly one of 'pulsars', 'random' or 'table'"):
         parse_config("[array]\n")
     with pytest.raises(InputError, match="required key is missing"):
         parse_config("[run]\nseed = 1\n")

@@ -1,0 +1,185 @@
+"""Plain tables: import, export, injection into measured residuals, and every table fault."""
+
+import warnings
+
+import numpy as np
+import pytest
+
+from ptares.cli import main
+from ptares.config import load_config
+from ptares.dataset import load_dataset, write_dataset
+from ptares.errors import InputError, PhysicsWarning
+from ptares.simulate import import_tables, simulate
+
+from conftest import small_config
+
+CATALOGUE = "name,ra,dec,distance,distance_error\nKite,04:37:15.9,-47:15:09,1.2,0.1\nLark,200.5,10.25,0.8,0.05\n"
+
+
+def toa_rows(rng, names=("Kite", "Lark"), count=40):
+    lines = []
+    for name in names:
+        mjd = np.sort(rng.uniform(53000, 56000, count))
+        for m in mjd:
+            lines.append(f"{name},{float(m)!r},{float(rng.uniform(0.2, 1.0))!r},{float(rng.normal(0, 0.5))!r}")
+    return lines
+
+
+def write_tables(tmp_path, toas=None, catalogue=CATALOGUE, mode="schedule", extra=""):
+    rng = np.random.default_rng(1)
+    (tmp_path / "toas.csv").write_text(toas if toas is not None else "pulsar,mjd,error_us,residual_us\n" + "\n".join(toa_rows(rng)) + "\n")
+    (tmp_path / "pulsars.csv").write_text(catalogue)
+    config = tmp_path / "c.toml"
+    config.write_text(f'[run]\nseed = 3\n[array]\ntable = "toas.csv"\ncatalogue = "pulsars.csv"\nmode = "{mode}"\n'
+                      f"[gwb]\namplitude = 5e-15\ncomponents = 8\n{extra}")
+    return config
+
+
+def test_export_then_import_reproduces_the_dataset(tmp_path):
+    data = simulate(small_config(noise={"red": {"amplitude": 2e-15}}, observing={"start": 53000, "span": 6.0,
+                                 "cadence": 20.0, "cadence_jitter": 4.0, "toa_error": 0.5, "toa_error_scatter": 0.2}))
+    dataset = write_dataset(data, tmp_path / "d.h5")
+    assert main(["export", str(dataset), "--out", str(tmp_path / "tables")]) == 0
+    assert main(["import", str(tmp_path / "tables" / "import.toml"), "--out", str(tmp_path / "back")]) == 0
+    again = load_dataset(tmp_path / "back" / "dataset.h5")
+    assert again.names == data.names
+    assert (again.start_mjd, again.span) == (data.start_mjd, data.span)
+    for p, q in zip(data.pulsars, again.pulsars):
+        for key in ("mjd", "residuals", "errors", "design_matrix"):
+            np.testing.assert_array_equal(getattr(p, key), getattr(q, key))
+        assert (p.ra, p.dec, p.distance, p.distance_error) == (q.ra, q.dec, q.distance, q.distance_error)
+        assert p.injected.keys() == q.injected.keys()
+        for key in p.injected:
+            np.testing.assert_array_equal(p.injected[key], q.injected[key])
+        assert {k: p.noise[k] for k in q.noise} == q.noise
+
+
+def test_schedule_mode_takes_epochs_and_errors(tmp_path):
+    config = load_config(write_tables(tmp_path))
+    data = simulate(config)
+    kite = data.pulsar("Kite")
+    table = np.loadtxt(tmp_path / "toas.csv", delimiter=",", skiprows=1, usecols=(1, 2), max_rows=40)
+    np.testing.assert_array_equal(kite.mjd, table[:, 0])
+    np.testing.assert_allclose(kite.errors, table[:, 1] * 1e-6, rtol=1e-15)
+    assert kite.ra == pytest.approx(np.radians(69.31625), rel=1e-12, abs=0)  # 04:37:15.9 = 69.31625 degrees
+    assert set(kite.injected) == {"white", "gwb"} and kite.measured is None
+
+
+def test_inject_mode_keeps_the_measured_residuals(tmp_path):
+    """The measured part is left exactly as in the table; the injected background passes the timing-model
+    fit and is added; no simulated white noise is added to real residuals."""
+    config = load_config(write_tables(tmp_path, mode="inject"))
+    data = simulate(config)
+    table = np.loadtxt(tmp_path / "toas.csv", delimiter=",", skiprows=1, usecols=(3,))
+    for index, p in enumerate(data.pulsars):
+        measured = table[index * 40 : (index + 1) * 40] * 1e-6
+        np.testing.assert_array_equal(p.measured, measured)
+        assert set(p.injected) == {"gwb"}
+        added = p.residuals - p.measured
+        # what was added is the background with a quadratic (the timing model) removed
+        quadratic = np.polynomial.polynomial.polyfit(p.mjd - p.mjd.mean(), p.injected["gwb"] - added, 2)
+        fitted = np.polynomial.polynomial.polyval(p.mjd - p.mjd.mean(), quadratic)
+        np.testing.assert_allclose(p.injected["gwb"] - added, fitted, atol=1e-9 * np.abs(p.injected["gwb"]).max())
+
+
+HEADER = "pulsar,mjd,error_us,residual_us\n"
+GOOD = ["Kite,53000.0,1.0,0.1", "Kite,53010.0,1.0,0.2", "Kite,53020.0,1.0,0.3", "Kite,53030.0,1.0,0.1",
+        "Kite,53040.0,1.0,0.0", "Lark,53000.0,1.0,0.1", "Lark,53015.0,1.0,0.2", "Lark,53030.0,1.0,0.3",
+        "Lark,53045.0,1.0,0.1", "Lark,53060.0,1.0,0.0"]
+
+
+def rows_with(index, line):
+    rows = list(GOOD)
+    rows[index] = line
+    return HEADER + "\n".join(rows) + "\n"
+
+
+@pytest.mark.parametrize(
+    "toas, catalogue, words",
+    [
+        ("pulsar,error_us\nKite,1.0\n", CATALOGUE, "toas.csv: has no mjd column"),
+        ("mjd,error_us\n53000,1.0\n", CATALOGUE, "toas.csv: has no pulsar column"),
+        ("pulsar,mjd\nKite,53000\n", CATALOGUE, "toas.csv: has no error column"),
+        (rows_with(2, "Robin,53020.0,1.0,0.3"), CATALOGUE, "toas.csv: row 4, column pulsar: 'Robin' is not in the catalogue"),
+        (HEADER + "\n".join(GOOD[:5]) + "\n", CATALOGUE, "pulsars.csv: pulsar 'Lark' has no TOAs"),
+        (rows_with(3, "Kite,fifty,1.0,0.1"), CATALOGUE, "toas.csv: row 5, column mjd: 'fifty' is not a number"),
+        (rows_with(3, "Kite,53030.0,nan,0.1"), CATALOGUE, "toas.csv: row 5, column error_us: 'nan' is not finite"),
+        (rows_with(3, "Kite,53030.0,1.0,"), CATALOGUE, "toas.csv: row 5, column residual_us: '' is not a number"),
+        (rows_with(1, "Kite,53010.0,0.0,0.2"), CATALOGUE, "toas.csv: row 3, column error_us: TOA errors must be positive"),
+        (rows_with(1, "Kite,53010.0,-1.0,0.2"), CATALOGUE, "must be positive"),
+        (rows_with(1, "Kite,53000.0,1.0,0.2"), CATALOGUE, "toas.csv: row 3, column mjd: duplicate TOA of Kite"),
+        (HEADER + "\n".join(GOOD[:3] + GOOD[5:]) + "\n", CATALOGUE, "pulsar 'Kite' has 3 TOAs, not more than the 3 timing-model"),
+        (HEADER + "\n".join(GOOD) + "\n", "name,ra,dec\nKite,1,2\n", "pulsars.csv: has no distance column"),
+        (HEADER + "\n".join(GOOD) + "\n", "name,ra,distance\nKite,1,2\n", "needs ra and dec"),
+        (HEADER + "\n".join(GOOD) + "\n", CATALOGUE.replace("10.25", "95"), "pulsars.csv: row 3, column dec: declination '95' is outside"),
+        (HEADER + "\n".join(GOOD) + "\n", CATALOGUE.replace("Lark,", "Kite,"), "row 3, column name: 'Kite' appears twice"),
+    ],
+)
+def test_table_faults_are_one_line_and_write_nothing(tmp_path, capsys, toas, catalogue, words):
+    config = write_tables(tmp_path, toas=toas, catalogue=catalogue, mode="inject")
+    for command in (["simulate", str(config), "--out", str(tmp_path / "o")], ["import", str(config), "--out", str(tmp_path / "o")]):
+        assert main(command) == 2
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and words in err, err
+    assert not (tmp_path / "o").exists()
+
+
+def test_unsorted_times_are_sorted_with_a_note(tmp_path):
+    rows = list(GOOD)
+    rows[1], rows[3] = rows[3], rows[1]
+    config = load_config(write_tables(tmp_path, toas=HEADER + "\n".join(rows) + "\n"))
+    with pytest.warns(PhysicsWarning, match="not in time order; sorted"):
+        data = import_tables(config)
+    assert np.all(np.diff(data.pulsar("Kite").mjd) > 0)
+    np.testing.assert_allclose(data.pulsar("Kite").residuals, np.array([0.1, 0.2, 0.3, 0.1, 0.0]) * 1e-6)
+
+
+def test_missing_files_are_named(tmp_path):
+    config = write_tables(tmp_path)
+    (tmp_path / "pulsars.csv").unlink()
+    with pytest.raises(InputError, match="pulsars.csv: file not found"):
+        simulate(load_config(config))
+
+
+@pytest.mark.statistical
+def test_background_on_a_gappy_uneven_table_schedule_has_the_expected_variance(tmp_path):
+    """Epochs in clusters with a three-year gap: over 300 realisations the injected background's mean
+    square equals sum_k S(f_k)/T (sin^2 + cos^2 = 1 at every epoch), within 4.5 standard errors from the
+    exact Gaussian quadratic-form variance, as in test_statistics."""
+    rng = np.random.default_rng(5)
+    clusters = np.concatenate([c + rng.uniform(0, 3, 6) for c in rng.uniform(53000, 54200, 25)])
+    late = np.concatenate([c + rng.uniform(0, 3, 6) for c in rng.uniform(55300, 56650, 25)])
+    mjd = np.sort(np.concatenate([clusters, late]))
+    lines = [f"Kite,{float(m)!r},{float(rng.uniform(0.1, 1))!r}" for m in mjd]
+    lines += [f"Lark,{float(m)!r},0.5" for m in np.sort(rng.uniform(53000, 56650, 80))]
+    config = load_config(write_tables(tmp_path, toas="pulsar,mjd,error_us\n" + "\n".join(lines) + "\n",
+                                      extra='correlation = "uncorrelated"\n'))
+    count, components, amplitude = 300, 8, 5e-15
+    runs = [simulate(config, seed=s) for s in range(count)]
+    span = runs[0].span
+    year = 365.25 * 86400.0
+    f = np.arange(1, components + 1) / span
+    variance = np.concatenate([amplitude**2 / (12 * np.pi**2) * year**3 * (f * year) ** (-13 / 3) / span] * 2)
+    t = (runs[0].pulsar("Kite").mjd - runs[0].start_mjd) * 86400.0
+    k = np.arange(1, components + 1)
+    basis = np.hstack([np.sin(2 * np.pi * np.outer(t, k) / span), np.cos(2 * np.pi * np.outer(t, k) / span)])
+    gram = basis.T @ basis * variance[None, :]
+    expected = np.trace(gram) / t.size  # = sum_k S(f_k)/T
+    sd = np.sqrt(2 * np.trace(gram @ gram)) / t.size
+    observed = np.mean([np.mean(run.pulsar("Kite").injected["gwb"] ** 2) for run in runs])
+    assert abs(observed - expected) < 4.5 * sd / np.sqrt(count)
+
+
+def test_analysis_commands_accept_an_imported_dataset(tmp_path, capsys):
+    """`ptares correlate` and `ptares fit` run on a dataset imported from plain tables (no noise columns:
+    the noise is given as values)."""
+    config = write_tables(tmp_path, toas=None)
+    assert main(["import", str(config), "--out", str(tmp_path / "i")]) == 0
+    dataset = str(tmp_path / "i" / "dataset.h5")
+    settings = tmp_path / "s.toml"
+    settings.write_text('[correlate]\nnoise = "values"\nscrambles = 0\nphase_shifts = 5\nfit_trials = 10\n'
+                        "[fit]\nmax_steps = 60\ncomponents = 5\n")
+    assert main(["correlate", dataset, "--out", str(tmp_path / "c"), "--config", str(settings)]) == 0
+    assert main(["correlate", dataset, "--out", str(tmp_path / "c2")]) == 2
+    assert "injected noise" in capsys.readouterr().err
+    assert main(["fit", dataset, "--out", str(tmp_path / "f"), "--config", str(settings)]) == 0
