@@ -22,7 +22,6 @@ import io
 import itertools
 import json
 import os
-import sys
 import tempfile
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed

@@ -1,6 +1,5 @@
 """Campaigns: determinism across engines and worker counts, resuming after a kill, failures recorded."""
 
-import json
 import os
 import signal
 import subprocess
@@ -11,7 +10,6 @@ import numpy as np
 import pytest
 
 from ptares.cli import main
-from ptares.errors import InputError
 from ptares.figures import sweep_figures
 from ptares.sweep import SINGLE_THREAD, read_results, run_sweep
 

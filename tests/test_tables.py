@@ -1,6 +1,5 @@
 """Plain tables: import, export, injection into measured residuals, and every table fault."""
 
-import warnings
 
 import numpy as np
 import pytest
