@@ -281,7 +281,9 @@ class ArraySection(_Section):
     config file (see :mod:`ptares.tables`); ``mode = "schedule"`` takes only
     their epochs and errors, ``"inject"`` keeps their residuals and adds the
     configured signals.  ``window`` = [first MJD, last MJD] sets the span T of
-    the Fourier basis (default: the TOAs' extent).
+    the Fourier basis (default: the TOAs' extent).  ``signals`` names a JSON
+    file of injected-signal parameters that ``ptares import`` restores (written
+    by ``ptares export``).
 
     ``vary_distances``: draw each pulsar's true distance (used by pulsar terms)
     from a normal distribution of the catalogued ``distance`` and ``distance_error``.
@@ -293,6 +295,7 @@ class ArraySection(_Section):
     catalogue: Optional[str] = None
     mode: Literal["schedule", "inject"] = "schedule"
     window: Optional[tuple[Quantity("d"), Quantity("d")]] = None
+    signals: Optional[str] = None
     vary_distances: bool = False
 
     @model_validator(mode="after")

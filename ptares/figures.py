@@ -337,10 +337,13 @@ def detection_threshold(rows, false_alarm: float):
 
 def _groups(rows):
     """Rows grouped by the axes other than the background amplitude."""
+    import json
+
     keys = sorted({k for r in rows for k in r if k.startswith("axis:") and k != "axis:gwb.amplitude"})
     groups = {}
-    for r in rows:
-        groups.setdefault(tuple((k[5:], r.get(k)) for k in keys), []).append(r)
+    for r in rows:  # values may be lists (e.g. timing-model terms): group on their JSON text
+        label = tuple((k[5:], r.get(k) if isinstance(r.get(k), (int, float, str)) else json.dumps(r.get(k))) for k in keys)
+        groups.setdefault(label, []).append(r)
     return groups
 
 
@@ -402,15 +405,18 @@ def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
         fig.tight_layout()
         figures["snr.png"] = fig
 
-    quantiles = {name: np.sort([r[f"{name}_quantile"] for r in _ok(rows, f"{name}_quantile")])
+    # only tasks with a background: without one the injected amplitude and index are not defined
+    quantiles = {name: np.sort([r[f"{name}_quantile"] for r in _ok(rows, f"{name}_quantile")
+                                if r.get("injected_amplitude", 1.0) != 0.0])
                  for name in ("gwb_log10_A", "gwb_gamma")}
     quantiles = {k: v for k, v in quantiles.items() if v.size}
     if quantiles:
         fig, ax = plt.subplots(figsize=(5.0, 5.0))
-        count = max(v.size for v in quantiles.values())
+        count = min(v.size for v in quantiles.values())
         grid = np.linspace(0, 1, 101)
-        half_width = 1.36 / np.sqrt(count)  # Kolmogorov-Smirnov 95% band
-        ax.fill_between(grid, grid - half_width, grid + half_width, color="#9a9a9a", alpha=0.25, label="95% band")
+        half_width = 1.36 / np.sqrt(count)  # Kolmogorov-Smirnov 95% band, for the smallest sample shown
+        ax.fill_between(grid, np.clip(grid - half_width, 0, 1), np.clip(grid + half_width, 0, 1), color="#9a9a9a",
+                        alpha=0.25, label=f"95% band ({count} tasks)")
         for name, values in quantiles.items():
             ax.plot(np.concatenate([[0], values, [1]]), np.concatenate([[0], np.arange(1, values.size + 1) / values.size, [1]]),
                     drawstyle="steps-post", label=name)

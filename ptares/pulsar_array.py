@@ -93,9 +93,14 @@ def build_array(config: Config, seed: int, tables=None) -> list[PulsarSetup]:
     """One resolved :class:`PulsarSetup` per pulsar of ``config``, in config order (catalogue order for tables)."""
     noise = config.noise
     if tables is not None:
-        entries = [
+        from .config import RedOverride, WhiteOverride
+
+        entries = [  # catalogue noise columns override [noise] for their pulsar
             dict(name=p.name, ra=p.ra, dec=p.dec, distance=p.distance, distance_error=p.distance_error,
-                 observing=config.observing, white=None, red=None)
+                 observing=config.observing,
+                 white=WhiteOverride(scale=p.noise.get("white_scale"),
+                                     quadrature=p.noise["white_quadrature"] * 1e6 if "white_quadrature" in p.noise else None),
+                 red=RedOverride(amplitude=p.noise.get("red_amplitude"), gamma=p.noise.get("red_gamma")))
             for p in tables.pulsars
         ]
     elif config.array.random is not None:

@@ -55,10 +55,21 @@ def import_tables(config: Config) -> Dataset:
                 injected=tables.injected[row.name], noise=dict(row.noise), measured=tables.measured[row.name],
             )
         )
+    signals = {}
+    if config.array.signals:
+        import json
+
+        path = config.resolve(config.array.signals)
+        try:
+            signals = json.loads(path.read_text())
+        except FileNotFoundError:
+            raise InputError("file not found", str(path)) from None
+        except (OSError, ValueError) as exc:
+            raise InputError(f"not a readable JSON file of signal parameters ({exc})", str(path)) from None
     return Dataset(
         pulsars=pulsars, config=config.source_text, seed=0, ptares_version=__version__,
         created=datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
-        start_mjd=float(first), span=(float(last) - float(first)) * 86400.0, signals={},
+        start_mjd=float(first), span=(float(last) - float(first)) * 86400.0, signals=signals,
     )
 
 

@@ -25,6 +25,7 @@ import os
 import tempfile
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures.process import BrokenProcessPool
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
@@ -121,6 +122,8 @@ def derive_seed(seed: int, index: int) -> int:
 def expand(base: dict, section: SweepSection, where: str = "sweep") -> list:
     """Every task of the sweep, in index order.  Axis keys that do not exist in a config are errors."""
     keys = list(section.axes)
+    if "run.seed" in keys:
+        raise InputError("run.seed cannot be an axis: task seeds derive from [sweep] seed", f"{where}.axes")
     lists = [section.axes[k] for k in keys]
     combinations = list(itertools.product(*lists)) if section.grid else list(zip(*lists))
     if not keys:
@@ -227,7 +230,11 @@ def _local(tasks, workers):
             futures = [pool.submit(run_task, task) for task in tasks]
             try:
                 for future in as_completed(futures):
-                    yield future.result()
+                    try:
+                        yield future.result()
+                    except BrokenProcessPool:
+                        raise InputError("a worker process died (out of memory?); finished tasks are kept, "
+                                         "rerun the same command to continue", "sweep") from None
             except BaseException:
                 for future in futures:
                     future.cancel()
@@ -238,7 +245,13 @@ def _dask(tasks, scheduler):
     from distributed import Client
     from distributed import as_completed as dask_completed
 
-    client = scheduler if not isinstance(scheduler, str) else Client(scheduler)
+    if isinstance(scheduler, str):
+        try:
+            client = Client(scheduler, timeout="20s")
+        except OSError as exc:
+            raise InputError(f"cannot reach the Dask scheduler ({exc})", scheduler) from None
+    else:
+        client = scheduler
     try:
         futures = client.map(run_task, tasks, pure=False)
         for future in dask_completed(futures):
@@ -276,8 +289,14 @@ def write_results(out: Path, rows: list) -> Path:
     buffer = io.StringIO()
     writer = csv.DictWriter(buffer, fieldnames=columns, extrasaction="ignore")
     writer.writeheader()
+
+    def cell(value):
+        if value is None:
+            return ""
+        return json.dumps(value) if isinstance(value, (list, dict)) else value  # list-valued axes as JSON
+
     for row in sorted(rows, key=lambda r: r["index"]):
-        writer.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in columns})
+        writer.writerow({k: cell(row.get(k)) for k in columns})
     with atomic_path(out / "results.csv") as temporary:
         temporary.write_text(buffer.getvalue())
     return out / "results.csv"
@@ -323,6 +342,7 @@ def run_sweep(path, out, workers: int = 1, scheduler=None, overwrite: bool = Fal
     failed = sum(row["status"] != "ok" for row in done.values())
     bar = tqdm(total=len(tasks), initial=len(done), desc="tasks", unit="task", disable=None if progress else True)
     bar.set_postfix(failed=failed)
+    last_table = time.monotonic()
     try:
         for row in rows:
             with atomic_path(_task_file(out, row["index"])) as temporary:
@@ -331,6 +351,9 @@ def run_sweep(path, out, workers: int = 1, scheduler=None, overwrite: bool = Fal
             failed += row["status"] != "ok"
             bar.update(1)
             bar.set_postfix(failed=failed)
+            if time.monotonic() - last_table > 30:  # keep results.csv current during long campaigns
+                write_results(out, list(done.values()))
+                last_table = time.monotonic()
     finally:
         bar.close()
         write_results(out, list(done.values()))

@@ -34,7 +34,7 @@ from .units import parse_dec, parse_ra
 __all__ = ["PulsarRow", "TableArray", "read_tables", "export_tables"]
 
 _UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "ns": 1e-9}
-_NOISE = {"white_scale": 1.0, "white_quadrature_s": 1.0, "red_amplitude": 1.0, "red_gamma": 1.0}
+_NOISE = {"white_scale": 1.0, "white_quadrature_s": 1.0, "red_amplitude": 1.0, "red_gamma": 1.0, "true_distance_kpc": 1.0}
 
 
 @dataclass
@@ -60,17 +60,25 @@ class TableArray:
 
 
 def _rows(path: Path):
+    """Header and rows; each row carries its line number in the file under ``"#line"``."""
     try:
-        with open(path, newline="", encoding="utf-8") as handle:
+        with open(path, newline="", encoding="utf-8-sig") as handle:  # -sig: a leading byte-order mark is dropped
             reader = csv.DictReader(handle)
             header = [h.strip() for h in (reader.fieldnames or [])]
-            rows = [{k.strip(): (v or "").strip() for k, v in row.items() if k is not None} for row in reader]
+            rows = []
+            for row in reader:
+                entry = {k.strip(): (v or "").strip() for k, v in row.items() if isinstance(k, str)}
+                entry["#line"] = reader.line_num
+                rows.append(entry)
     except FileNotFoundError:
         raise InputError("file not found", str(path)) from None
     except (OSError, UnicodeDecodeError, csv.Error) as exc:
         raise InputError(f"cannot read the table ({exc})", str(path)) from None
     if not header:
         raise InputError("is empty (no header row)", str(path))
+    repeated = sorted({h for h in header if header.count(h) > 1})
+    if repeated:
+        raise InputError(f"row 1: column(s) {', '.join(repeated)} appear more than once", str(path))
     return header, rows
 
 
@@ -111,7 +119,8 @@ def _catalogue(path: Path) -> list:
     if distance is None:
         raise InputError("has no distance column (kpc)", str(path))
     pulsars, seen = [], set()
-    for number, row in enumerate(rows, start=2):
+    for row in rows:
+        number = row["#line"]
         name = row.get("name", "")
         if not name:
             raise InputError(f"row {number}, column name: empty", str(path))
@@ -130,11 +139,18 @@ def _catalogue(path: Path) -> list:
             ra, dec = angles
         d = _number(path, number, distance, row[distance])
         error = _number(path, number, distance_error, row[distance_error]) if distance_error else 0.0
-        if d <= 0 or error < 0:
-            raise InputError(f"row {number}, column {distance}: distances must be positive", str(path))
+        if d <= 0:
+            raise InputError(f"row {number}, column {distance}: the distance must be positive", str(path))
+        if error < 0:
+            raise InputError(f"row {number}, column {distance_error}: the distance error must not be negative", str(path))
         noise = {key: _number(path, number, key, row[key]) for key in _NOISE if key in header and row.get(key, "") != ""}
+        for key, value in noise.items():
+            if value < 0 or (key == "white_scale" and value == 0):
+                raise InputError(f"row {number}, column {key}: {value} is not allowed (negative or zero scale)", str(path))
         if "white_quadrature_s" in noise:
             noise["white_quadrature"] = noise.pop("white_quadrature_s")
+        if "true_distance_kpc" in noise:
+            noise["distance"] = noise.pop("true_distance_kpc")
         pulsars.append(PulsarRow(name, ra, dec, d, error, noise))
     if not pulsars:
         raise InputError("lists no pulsars", str(path))
@@ -154,7 +170,10 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
     injected_columns = [h for h in header if h.startswith("injected_") and h.endswith("_s")]
     names = [p.name for p in pulsars]
     data = {name: [] for name in names}
-    for number, row in enumerate(rows, start=2):
+    if not rows:
+        raise InputError("has a header but no TOAs", str(table))
+    for row in rows:
+        number = row["#line"]
         name = row["pulsar"]
         if name not in data:
             raise InputError(f"row {number}, column pulsar: {name!r} is not in the catalogue {catalogue.name}", str(table))
@@ -180,7 +199,7 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
         repeated = np.flatnonzero(np.diff(mjd) == 0)
         if repeated.size:
             row = entries[repeated[0] + 1][5]
-            raise InputError(f"row {row}, column mjd: duplicate TOA of {name} at MJD {mjd[repeated[0]]!r}", str(table))
+            raise InputError(f"row {row}, column mjd: duplicate TOA of {name} at MJD {float(mjd[repeated[0]])!r}", str(table))
         if mjd.size <= columns_needed:
             raise InputError(f"pulsar {name!r} has {mjd.size} TOAs, not more than the {columns_needed} timing-model columns",
                              str(table))
@@ -219,9 +238,9 @@ def export_tables(dataset: Dataset, directory) -> list:
             row += [repr(float(p.injected[c][i])) if c in p.injected else "0.0" for c in components]
             row += [repr(float(p.measured[i])) if p.measured is not None else "0.0"] if has_measured else []
             rows.append(row)
-    noise_keys = ["white_scale", "white_quadrature", "red_amplitude", "red_gamma"]
+    noise_keys = ["white_scale", "white_quadrature", "red_amplitude", "red_gamma", "distance"]
     catalogue_header = ["name", "ra_rad", "dec_rad", "distance_kpc", "distance_error_kpc",
-                        "white_scale", "white_quadrature_s", "red_amplitude", "red_gamma"]
+                        "white_scale", "white_quadrature_s", "red_amplitude", "red_gamma", "true_distance_kpc"]
     catalogue_rows = [
         [p.name, repr(float(p.ra)), repr(float(p.dec)), repr(float(p.distance)), repr(float(p.distance_error))]
         + [repr(float(p.noise[k])) if k in p.noise else "" for k in noise_keys]
@@ -233,14 +252,18 @@ def export_tables(dataset: Dataset, directory) -> list:
         if term not in terms:
             terms.append(term)
     end = dataset.start_mjd + dataset.span / 86400.0
+    signals = {name: {k: v for k, v in values.items() if not isinstance(v, np.ndarray)}
+               for name, values in dataset.signals.items()}
     importer = (
         "# Re-import these tables with: ptares import import.toml --out DIR\n"
-        "[array]\ntable = \"toas.csv\"\ncatalogue = \"pulsars.csv\"\n"
+        "[array]\ntable = \"toas.csv\"\ncatalogue = \"pulsars.csv\"\nsignals = \"signals.json\"\n"
         f"window = [{dataset.start_mjd!r}, {end!r}]\n\n[timing_model]\nfit = {terms!r}\n".replace("'", '"')
     )
     paths = []
+    import json
+
     for name, text in (("toas.csv", _csv_text(header, rows)), ("pulsars.csv", _csv_text(catalogue_header, catalogue_rows)),
-                       ("import.toml", importer)):
+                       ("signals.json", json.dumps(signals, indent=1, default=str)), ("import.toml", importer)):
         with atomic_path(directory / name) as temporary:
             temporary.write_text(text)
         paths.append(directory / name)

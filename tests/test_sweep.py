@@ -140,6 +140,17 @@ def test_seeds_are_derived_from_the_index(tmp_path):
 
 def test_pp_plot_from_fit_rows():
     rng = np.random.default_rng(0)
-    rows = [{"status": "ok", "hd_snr": float(rng.normal()), "injected_amplitude": 0.0, "hd_amplitude2": 0.0,
+    rows = [{"status": "ok", "hd_snr": float(rng.normal()), "injected_amplitude": 1e-15, "hd_amplitude2": 0.0,
              "hd_sigma": 1.0, "gwb_log10_A_quantile": float(q)} for q in rng.uniform(size=30)]
     assert set(sweep_figures(rows)) == {"detection.png", "recovery.png", "snr.png", "pp.png"}
+
+
+def test_list_valued_axis_and_seed_axis(tmp_path, capsys):
+    """An axis of lists (timing-model terms) runs and draws; run.seed is not an axis."""
+    config = write(tmp_path, realisations=1, extra='"timing_model.fit" = [["offset"], ["offset", "spin_frequency"]]')
+    assert main(["sweep", str(config), "--out", str(tmp_path / "o")]) == 0
+    rows = read_results(tmp_path / "o" / "results.csv")
+    assert {r["axis:timing_model.fit"] for r in rows} == {'["offset"]', '["offset", "spin_frequency"]'}
+    config = write(tmp_path, realisations=1, extra='"run.seed" = [1, 2]')
+    assert main(["sweep", str(config), "--out", str(tmp_path / "p")]) == 2
+    assert "run.seed cannot be an axis" in capsys.readouterr().err

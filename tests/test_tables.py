@@ -43,6 +43,7 @@ def test_export_then_import_reproduces_the_dataset(tmp_path):
     again = load_dataset(tmp_path / "back" / "dataset.h5")
     assert again.names == data.names
     assert (again.start_mjd, again.span) == (data.start_mjd, data.span)
+    assert again.signals == data.signals  # restored from signals.json: analyses see the same truth
     for p, q in zip(data.pulsars, again.pulsars):
         for key in ("mjd", "residuals", "errors", "design_matrix"):
             np.testing.assert_array_equal(getattr(p, key), getattr(q, key))
@@ -182,3 +183,38 @@ def test_analysis_commands_accept_an_imported_dataset(tmp_path, capsys):
     assert main(["correlate", dataset, "--out", str(tmp_path / "c2")]) == 2
     assert "injected noise" in capsys.readouterr().err
     assert main(["fit", dataset, "--out", str(tmp_path / "f"), "--config", str(settings)]) == 0
+
+
+def test_byte_order_mark_blank_lines_and_row_numbers(tmp_path, capsys):
+    """A leading byte-order mark is accepted; row numbers count file lines, blank lines included."""
+    lines = [HEADER.strip()] + GOOD[:3] + ["", ""] + ["Kite,53030.0,oops,0.1"] + GOOD[4:]
+    config = write_tables(tmp_path, toas="\ufeff" + "\n".join(lines) + "\n", catalogue="\ufeff" + CATALOGUE)
+    assert main(["import", str(config), "--out", str(tmp_path / "o")]) == 2
+    assert "row 7, column error_us: 'oops' is not a number" in capsys.readouterr().err
+    config = write_tables(tmp_path, toas="\ufeff" + HEADER + "\n".join(GOOD) + "\n", catalogue="\ufeff" + CATALOGUE)
+    assert main(["import", str(config), "--out", str(tmp_path / "o")]) == 0
+
+
+@pytest.mark.parametrize(
+    "toas, catalogue, words",
+    [
+        ("pulsar,mjd,mjd,error_us\nKite,1,2,3\n", CATALOGUE, "row 1: column(s) mjd appear more than once"),
+        (HEADER, CATALOGUE, "has a header but no TOAs"),
+        (HEADER + "\n".join(GOOD) + "\n", CATALOGUE.replace("distance_error\n", "distance_error,white_scale\n")
+         .replace("0.1\n", "0.1,-3\n"), "column white_scale"),
+        (HEADER + "\n".join(GOOD) + "\n", CATALOGUE.replace(",0.05", ",-0.05"), "column distance_error: the distance error"),
+    ],
+)
+def test_more_table_faults(tmp_path, capsys, toas, catalogue, words):
+    config = write_tables(tmp_path, toas=toas, catalogue=catalogue, mode="inject")
+    assert main(["import", str(config), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and words in err, err
+
+
+def test_catalogue_noise_columns_apply_in_schedule_mode(tmp_path):
+    catalogue = "name,ra,dec,distance,white_scale,red_amplitude,red_gamma\nKite,10,10,1,1.5,3e-15,4.0\nLark,20,20,1,,,\n"
+    data = simulate(load_config(write_tables(tmp_path, catalogue=catalogue)))
+    assert data.pulsar("Kite").noise["white_scale"] == 1.5 and data.pulsar("Kite").noise["red_amplitude"] == 3e-15
+    assert data.pulsar("Lark").noise["white_scale"] == 1.0 and data.pulsar("Lark").noise["red_amplitude"] == 0.0
+    assert "red" in data.pulsar("Kite").injected
