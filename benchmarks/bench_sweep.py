@@ -1,6 +1,6 @@
 """Campaign throughput, as ratios measured side by side in one run (never asserted).
 
-* 8 tasks of about a second each (simulate and correlate a 25-pulsar array) with
+* 16 tasks of about a second each (simulate and correlate a 25-pulsar array) with
   2 local workers against 1 (target: at least 1.8x on 2 cores);
 * Dask's overhead per task: 20 near-empty tasks on a dask.distributed
   LocalCluster (2 processes) against the local engine.
@@ -31,7 +31,7 @@ scrambles = 50
 phase_shifts = 50
 fit_trials = 100
 [sweep]
-realisations = 4
+realisations = 8
 [sweep.axes]
 "gwb.amplitude" = [1e-15, 3e-15]
 """
@@ -71,8 +71,8 @@ def main():
         client.run(lambda: None)
         dask = timed(light, scratch / "dask", scheduler=client)
     shutil.rmtree(scratch)
-    print("8 tasks of about a second: simulate + correlate, 25 pulsars")
-    print(f"1 worker   {one:7.2f} s   ({one / 8:.2f} s per task)")
+    print("16 tasks of about a second: simulate + correlate, 25 pulsars")
+    print(f"1 worker   {one:7.2f} s   ({one / 16:.2f} s per task)")
     print(f"2 workers  {two:7.2f} s")
     print(f"speed-up 2 workers / 1      {one / two:6.2f}x   (target: at least 1.8x)")
     print("20 near-empty tasks")
