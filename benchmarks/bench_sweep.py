@@ -10,13 +10,12 @@ Run: ``python benchmarks/bench_sweep.py``
 
 from __future__ import annotations
 
-import os
 import shutil
 import tempfile
 import time
 from pathlib import Path
 
-from ptares.sweep import SINGLE_THREAD, run_sweep
+from ptares.sweep import run_sweep, single_threaded_children
 
 HEAVY = """
 [array]
@@ -65,8 +64,8 @@ def main():
     local = timed(light, scratch / "local", workers=2)
     from distributed import Client, LocalCluster
 
-    os.environ.update(SINGLE_THREAD)
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster, \
+    with single_threaded_children(), \
+            LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster, \
             Client(cluster) as client:
         client.run(lambda: None)
         dask = timed(light, scratch / "dask", scheduler=client)

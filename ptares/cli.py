@@ -13,6 +13,7 @@ import warnings
 from pathlib import Path
 
 from . import __version__
+from .config import with_overrides
 from .errors import InputError, PhysicsWarning
 
 _default_showwarning = warnings.showwarning
@@ -132,16 +133,7 @@ def _correlate(args) -> int:
                                                "phase_shifts", "seed") if getattr(args, k) is not None}
     if args.overlays:
         overrides["overlays"] = True
-    if overrides:
-        from pydantic import ValidationError
-
-        try:
-            section = CorrelateSection.model_validate({**section.model_dump(), **overrides})
-        except ValidationError as exc:
-            from .config import _message
-
-            first = exc.errors()[0]
-            raise InputError(_message(first), "--" + str(first["loc"][0]).replace("_", "-")) from None
+    section = with_overrides(section, overrides)
     dataset = load_dataset(args.dataset)
     if section.noise == "injected":
         noise = noise_from_dataset(dataset)
@@ -214,16 +206,7 @@ def _fit(args) -> int:
         dataset = None
         write_copy = True
     overrides = {k: getattr(args, k) for k in ("max_steps", "walkers", "workers", "seed") if getattr(args, k) is not None}
-    if overrides:
-        from pydantic import ValidationError
-
-        from .config import _message
-
-        try:
-            section = FitSection.model_validate({**section.model_dump(), **overrides})
-        except ValidationError as exc:
-            first = exc.errors()[0]
-            raise InputError(_message(first), "--" + str(first["loc"][0]).replace("_", "-")) from None
+    section = with_overrides(section, overrides)
     # chains.h5 is resumed, not overwritten; the other outputs are rewritten at the end of every run
     _check_output_directory(out, True)
     if dataset is None:

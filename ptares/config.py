@@ -774,17 +774,34 @@ def load_correlate_section(path) -> CorrelateSection:
     return load_section(path, "correlate", CorrelateSection)
 
 
-def load_section(path, name: str, model):
-    """The ``[name]`` table of the TOML file at ``path`` validated by ``model`` (other tables are not read)."""
+def read_toml(path) -> dict:
+    """The TOML file at ``path`` as data; every reading fault is an :class:`InputError` naming the file."""
     path = Path(path)
     try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+        return tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
         raise InputError("file not found", str(path)) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read file ({exc.__class__.__name__}: {exc})", str(path)) from None
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"not valid TOML: {exc}", str(path)) from None
+
+
+def with_overrides(section, overrides: dict, option_prefix: str = "--"):
+    """``section`` (a pydantic model) with ``overrides`` applied and validated; faults name the option."""
+    if not overrides:
+        return section
+    try:
+        return type(section).model_validate({**section.model_dump(), **overrides})
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        raise InputError(_message(first), option_prefix + str(first["loc"][0]).replace("_", "-")) from None
+
+
+def load_section(path, name: str, model):
+    """The ``[name]`` table of the TOML file at ``path`` validated by ``model`` (other tables are not read)."""
+    path = Path(path)
+    raw = read_toml(path)
     if name not in raw:
         raise InputError(f"has no [{name}] table", str(path))
     try:

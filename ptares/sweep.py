@@ -33,11 +33,11 @@ from pathlib import Path
 import numpy as np
 from tqdm.auto import tqdm
 
-from .config import Config, SweepSection, _validation_error, tomllib
+from .config import Config, SweepSection, _validation_error, read_toml
 from .dataset import atomic_path
 from .errors import InputError
 
-__all__ = ["Task", "load_sweep", "expand", "run_task", "run_sweep", "read_results", "COLUMNS"]
+__all__ = ["Task", "load_sweep", "expand", "run_task", "run_sweep", "read_results", "single_threaded_children", "COLUMNS"]
 
 #: Threading variables set to 1 in worker processes.
 SINGLE_THREAD = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1", "NUMBA_NUM_THREADS": "1"}
@@ -74,17 +74,6 @@ def _merge(base: dict, top: dict) -> dict:
     return merged
 
 
-def _read_toml(path: Path) -> dict:
-    try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError("file not found", str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read file ({exc.__class__.__name__}: {exc})", str(path)) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML: {exc}", str(path)) from None
-
-
 def _set(raw: dict, dotted: str, value) -> None:
     node = raw
     parts = dotted.split(".")
@@ -98,7 +87,7 @@ def _set(raw: dict, dotted: str, value) -> None:
 def load_sweep(path) -> tuple:
     """``(base raw config without [sweep], SweepSection)`` from a sweep file (and its ``base``)."""
     path = Path(path)
-    raw = _read_toml(path)
+    raw = read_toml(path)
     if "sweep" not in raw:
         raise InputError("has no [sweep] table", str(path))
     try:
@@ -110,7 +99,7 @@ def load_sweep(path) -> tuple:
     base = {k: v for k, v in raw.items() if k != "sweep"}
     if section.base:
         base_path = (path.parent / section.base) if not Path(section.base).is_absolute() else Path(section.base)
-        base = _merge({k: v for k, v in _read_toml(base_path).items() if k != "sweep"}, base)
+        base = _merge({k: v for k, v in read_toml(base_path).items() if k != "sweep"}, base)
     return base, section
 
 
@@ -209,7 +198,8 @@ def run_task(task: Task) -> dict:
 
 
 @contextmanager
-def _single_threaded_children():
+def single_threaded_children():
+    """Environment for child processes (workers) with one BLAS, OpenMP and numba thread each."""
     saved = {k: os.environ.get(k) for k in SINGLE_THREAD}
     os.environ.update(SINGLE_THREAD)
     try:
@@ -225,7 +215,7 @@ def _single_threaded_children():
 def _local(tasks, workers):
     import multiprocessing
 
-    with _single_threaded_children():
+    with single_threaded_children():
         with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn")) as pool:
             futures = [pool.submit(run_task, task) for task in tasks]
             try:

@@ -11,7 +11,7 @@ import pytest
 
 from ptares.cli import main
 from ptares.figures import sweep_figures
-from ptares.sweep import SINGLE_THREAD, read_results, run_sweep
+from ptares.sweep import read_results, run_sweep, single_threaded_children
 
 SWEEP = """
 [run]
@@ -62,18 +62,10 @@ def test_dask_local_cluster_gives_the_same_rows(tmp_path):
     distributed = pytest.importorskip("distributed")
     config = write(tmp_path)
     local = run_sweep(config, tmp_path / "local", workers=1, progress=False)
-    saved = {k: os.environ.get(k) for k in SINGLE_THREAD}
-    os.environ.update(SINGLE_THREAD)
-    try:
+    with single_threaded_children():
         with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
             with distributed.Client(cluster) as client:
                 remote = run_sweep(config, tmp_path / "dask", scheduler=client, progress=False)
-    finally:
-        for key, value in saved.items():
-            if value is None:
-                os.environ.pop(key, None)
-            else:
-                os.environ[key] = value
     assert comparable(local) == comparable(remote)
 
 
