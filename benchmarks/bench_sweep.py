@@ -22,7 +22,7 @@ HEAVY = """
 random = {count = 25}
 [observing]
 span = "12 yr"
-cadence = "7 d"
+cadence = "5 d"
 [gwb]
 amplitude = 2e-15
 [correlate]

@@ -111,7 +111,7 @@ def _calibrated_p(products, pairs, binned, shape, gamma_matrix, covariance_at, f
         return {"p_calibrated": None}
     _, denominator = pair_matrices(products)
     X = ensemble_draws(products, gamma_matrix, max(fit["amplitude2"], 0.0), model_amplitude2, trials, rng)
-    numerator = np.einsum("tak,k,tbk->tab", X, products.phi, X)[:, pairs.a, pairs.b]
+    numerator = np.matmul(X * products.phi, X.transpose(0, 2, 1))[:, pairs.a, pairs.b]  # X_a^T Phi X_b per draw
     rho = numerator / denominator[pairs.a, pairs.b]
     simulated = np.column_stack([rho[:, m] @ w for m, w in zip(binned.members, binned.weights)])
     start = float(fit["amplitude2"])

@@ -96,7 +96,7 @@ def binned_covariance(products: FourierProducts, pairs: PairCorrelations, binned
     off = amplitude2 * (gamma_matrix - np.diag(np.diag(gamma_matrix)))
     if exact:
         # all blocks Y_xy: P x P x (2K)^2, then <Y_ac, Y_bd> for every (a, c), (b, d)
-        blocks = off[:, :, None, None] * np.einsum("aij,cjk->acik", Y, Y)
+        blocks = off[:, :, None, None] * np.einsum("aij,cjk->acik", Y, Y, optimize=True)
         blocks[np.arange(count), np.arange(count)] = auto
         flat = blocks.reshape(count * count, size * size)
         gram = (flat @ flat.T).reshape(count, count, count, count)  # gram[a, c, b, d] = <Y_ac, Y_bd>
@@ -132,12 +132,16 @@ def ensemble_draws(products: FourierProducts, gamma_matrix: np.ndarray, amplitud
     Z, phi = products.Z, products.phi
     P, size = Z.shape[0], Z.shape[1]
     left = Z * phi[None, None, :]  # Z_a Phi
-    joint = amplitude2 * np.einsum("ab,aij,bjk->aibk", gamma_matrix, left, Z)
+    joint = amplitude2 * np.einsum("ab,aij,bjk->aibk", gamma_matrix, left, Z, optimize=True)
     for a in range(P):
         joint[a, :, a, :] = Z[a] + (amplitude2 - model_amplitude2) * left[a] @ Z[a]
     joint = joint.reshape(P * size, P * size)
-    values, vectors = np.linalg.eigh(0.5 * (joint + joint.T))
-    root = vectors * np.sqrt(np.clip(values, 0.0, None))
+    joint = 0.5 * (joint + joint.T)
+    try:
+        root = np.linalg.cholesky(joint)  # fast; fails only for a singular ensemble (e.g. no noise)
+    except np.linalg.LinAlgError:
+        values, vectors = np.linalg.eigh(joint)
+        root = vectors * np.sqrt(np.clip(values, 0.0, None))
     return (rng.standard_normal((count, P * size)) @ root.T).reshape(count, P, size)
 
 

@@ -64,7 +64,7 @@ def _rotate(products: FourierProducts, phases: np.ndarray) -> FourierProducts:
     P, K = phases.shape
     X = np.einsum("pkij,pki->pkj", rotation, products.X.reshape(P, K, 2)).reshape(P, 2 * K)
     Z = products.Z.reshape(P, K, 2, K, 2)
-    Z = np.einsum("pkia,pkilb,plbc->pkalc", rotation, Z, rotation).reshape(P, 2 * K, 2 * K)
+    Z = np.einsum("pkia,pkilb,plbc->pkalc", rotation, Z, rotation, optimize=True).reshape(P, 2 * K, 2 * K)
     return FourierProducts(X=X, Z=Z, phi=products.phi)
 
 
