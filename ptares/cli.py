@@ -29,11 +29,11 @@ def _summary(config) -> str:
 
     from .signals import Context
 
-    from .simulate import _tables
+    from .simulate import config_tables
     from .timing_model import column_names
 
     seed = run_seed(config)
-    tables = _tables(config, len(column_names(config.timing_model.fit)), config.array.mode == "inject")
+    tables = config_tables(config, len(column_names(config.timing_model.fit)), config.array.mode == "inject")
     pulsars = build_array(config, seed, tables)
     observations = observe(pulsars, seed, tables, config.array.window)
     context = Context(pulsars=tuple(pulsars), observations=observations, seed=seed)

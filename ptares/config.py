@@ -774,15 +774,20 @@ def load_correlate_section(path) -> CorrelateSection:
     return load_section(path, "correlate", CorrelateSection)
 
 
-def read_toml(path) -> dict:
-    """The TOML file at ``path`` as data; every reading fault is an :class:`InputError` naming the file."""
-    path = Path(path)
+def read_text(path, encoding: str = "utf-8") -> str:
+    """The text of the file at ``path``; a missing or unreadable file is an :class:`InputError` naming it."""
     try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
+        return Path(path).read_text(encoding=encoding)
     except FileNotFoundError:
         raise InputError("file not found", str(path)) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read file ({exc.__class__.__name__}: {exc})", str(path)) from None
+
+
+def read_toml(path) -> dict:
+    """The TOML file at ``path`` as data; every reading fault is an :class:`InputError` naming the file."""
+    try:
+        return tomllib.loads(read_text(path))
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"not valid TOML: {exc}", str(path)) from None
 
@@ -830,10 +835,4 @@ def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None
 def load_config(path) -> Config:
     """Read and validate the TOML config at ``path``."""
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found", str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read file ({exc.__class__.__name__}: {exc})", str(path)) from None
-    return parse_config(text, where=str(path), path=path)
+    return parse_config(read_text(path), where=str(path), path=path)

@@ -115,17 +115,8 @@ def _calibrated_p(products, pairs, binned, shape, gamma_matrix, covariance_at, f
     rho = numerator / denominator[pairs.a, pairs.b]
     simulated = np.column_stack([rho[:, m] @ w for m, w in zip(binned.members, binned.weights)])
     start = float(fit["amplitude2"])
-    values = np.array([
-        fit_quality(_Binned(row), shape, covariance_at, start)["chi2"] for row in simulated
-    ])
+    values = np.array([fit_quality(row, shape, covariance_at, start)["chi2"] for row in simulated])
     return {"p_calibrated": float((1 + np.sum(values >= fit["chi2"])) / (1 + trials)), "trials": int(trials)}
-
-
-@dataclass
-class _Binned:
-    """Just the binned values, for re-running :func:`fit_quality` on a simulation."""
-
-    rho: np.ndarray
 
 
 def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = CorrelateSection(),
@@ -189,8 +180,7 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
     def covariance_at(amplitude2):
         return c0 + amplitude2 * linear + amplitude2**2 * quadratic
 
-    fit = fit_quality(binned, shape, covariance_at, estimates["hellings-downs"]["amplitude2"])
-    fit.pop("covariance")
+    fit = fit_quality(binned.rho, shape, covariance_at, estimates["hellings-downs"]["amplitude2"])
     if section.fit_trials:
         fit.update(_calibrated_p(products, draws[0][1], binned, shape, gamma_matrix, covariance_at, fit,
                                  model_amplitude2, section.fit_trials, rng))

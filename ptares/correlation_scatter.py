@@ -145,8 +145,8 @@ def ensemble_draws(products: FourierProducts, gamma_matrix: np.ndarray, amplitud
     return (rng.standard_normal((count, P * size)) @ root.T).reshape(count, P, size)
 
 
-def fit_quality(binned: BinnedCorrelations, shape: np.ndarray, covariance_at, start: float, iterations: int = 5) -> dict:
-    """Goodness of fit of ``A^2 * shape`` to the binned correlations.
+def fit_quality(rho: np.ndarray, shape: np.ndarray, covariance_at, start: float, iterations: int = 5) -> dict:
+    """Goodness of fit of ``A^2 * shape`` to the binned correlations ``rho``.
 
     The amplitude is refitted by generalised least squares with the binned
     covariance evaluated at the current amplitude (``covariance_at(A2)``),
@@ -159,10 +159,8 @@ def fit_quality(binned: BinnedCorrelations, shape: np.ndarray, covariance_at, st
     for _ in range(iterations):
         covariance = covariance_at(max(amplitude2, 0.0))
         weighted = np.linalg.solve(covariance, shape)
-        amplitude2 = float(weighted @ binned.rho / (weighted @ shape))
-    covariance = covariance_at(max(amplitude2, 0.0))
-    residual = binned.rho - amplitude2 * shape
-    chi2 = float(residual @ np.linalg.solve(covariance, residual))
+        amplitude2 = float(weighted @ rho / (weighted @ shape))
+    residual = rho - amplitude2 * shape
+    chi2 = float(residual @ np.linalg.solve(covariance_at(max(amplitude2, 0.0)), residual))
     dof = max(len(residual) - 1, 1)
-    return {"chi2": chi2, "dof": dof, "p": float(stats.chi2.sf(chi2, dof)), "amplitude2": amplitude2,
-            "covariance": covariance}
+    return {"chi2": chi2, "dof": dof, "p": float(stats.chi2.sf(chi2, dof)), "amplitude2": amplitude2}

@@ -21,9 +21,8 @@ from . import priors as prior_module
 from .config import FitSection
 from .dataset import Dataset
 from .errors import InputError, PhysicsWarning
-from .kernels import cw_residuals
 from .likelihood import Likelihood, NotPositiveDefinite
-from .signals.continuous import Binary, prepare_terms
+from .signals.continuous import Binary, PulsarLayout
 
 __all__ = ["FitModel", "DEFAULT_PRIORS"]
 
@@ -160,6 +159,10 @@ class FitModel:
         self.names = free
         self.values = values
         self.priors = [self._prior(name) for name in free]
+        self._layout = PulsarLayout.of(  # catalogue distances: the fit cannot know the true ones
+            [p.position for p in dataset.pulsars], [p.distance for p in dataset.pulsars],
+            [q.times for q in self.likelihood.pulsars],
+        )
         for name, prior in zip(free, self.priors):
             key = name if name in section.priors else generic(name)
             _check_support(prior, name, f"fit.priors.{key}")
@@ -225,13 +228,7 @@ class FitModel:
             inclination=float(np.arccos(np.clip(v["cw_cos_inclination"], -1, 1))), polarization=v["cw_polarization"],
             phase=v["cw_phase"], pulsar_term=self.section.cw_pulsar_term,
         )
-        pulsars = self.likelihood.pulsars
-        positions = np.array([p.position for p in self.dataset.pulsars])
-        distances = np.array([p.distance for p in self.dataset.pulsars])  # catalogue: the fit cannot know the truth
-        terms = prepare_terms([binary], positions, distances)
-        bounds = np.concatenate([[0], np.cumsum([q.times.size for q in pulsars])])
-        flat = cw_residuals(np.concatenate([q.times for q in pulsars]), bounds, *terms)
-        return np.split(flat, bounds[1:-1])
+        return self._layout.residuals([binary])
 
     def log_likelihood(self, x) -> float:
         v = self.parameters(x)

@@ -93,10 +93,11 @@ def _identity(model: FitModel, walkers: int) -> str:
 def _starting_points(model: FitModel, walkers: int, rng: np.random.Generator) -> np.ndarray:
     """Walkers inside the prior support: prior draws, or a small ball about the maximum posterior."""
     points = model.sample_prior(rng, walkers)
-    if not any(np.isfinite(model(p)) for p in points):
+    values = np.array([model(p) for p in points])
+    if not np.any(np.isfinite(values)):
         raise InputError("the posterior is zero at every starting point; check the priors and fixed values", "fit")
     if model.section.start == "map":
-        best = points[np.argmax([model(p) for p in points])]
+        best = points[np.argmax(values)]
         result = scipy.optimize.minimize(lambda x: -model(x), best, method="Nelder-Mead",
                                          options={"maxiter": 200 * model.ndim, "xatol": 1e-6, "fatol": 1e-6})
         centre = result.x if np.isfinite(model(result.x)) else best

@@ -23,10 +23,10 @@ from .signals import Context, build_components
 from .signals.white import effective_uncertainties
 from .timing_model import column_names, design_matrix, fit_timing_model
 
-__all__ = ["simulate", "run_seed", "import_tables"]
+__all__ = ["simulate", "run_seed", "import_tables", "config_tables"]
 
 
-def _tables(config: Config, columns: int, need_residuals: bool):
+def config_tables(config: Config, columns: int, need_residuals: bool):
     """The config's tables, read and checked, or None when the array is not given by tables."""
     if config.array.table is None:
         return None
@@ -41,7 +41,7 @@ def import_tables(config: Config) -> Dataset:
     if config.array.table is None:
         raise InputError("import needs [array] table and catalogue", "array")
     terms = config.timing_model.fit
-    tables = _tables(config, len(column_names(terms)), need_residuals=True)
+    tables = config_tables(config, len(column_names(terms)), need_residuals=True)
     first = min(m[0] for m in tables.mjd.values()) if config.array.window is None else config.array.window[0]
     last = max(m[-1] for m in tables.mjd.values()) if config.array.window is None else config.array.window[1]
     pulsars = []
@@ -87,7 +87,7 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
     seed = run_seed(config) if seed is None else int(seed)
     terms = config.timing_model.fit
     columns = column_names(terms)
-    tables = _tables(config, len(columns), need_residuals=config.array.mode == "inject")
+    tables = config_tables(config, len(columns), need_residuals=config.array.mode == "inject")
     pulsars = build_array(config, seed, tables)
     observations = observe(pulsars, seed, tables, config.array.window)
     for p, mjd in zip(pulsars, observations.mjd):

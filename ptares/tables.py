@@ -27,6 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .config import read_text
 from .dataset import Dataset, atomic_path
 from .errors import InputError, PhysicsWarning
 from .units import parse_dec, parse_ra
@@ -61,18 +62,16 @@ class TableArray:
 
 def _rows(path: Path):
     """Header and rows; each row carries its line number in the file under ``"#line"``."""
+    text = read_text(path, encoding="utf-8-sig")  # -sig: a leading byte-order mark is dropped
     try:
-        with open(path, newline="", encoding="utf-8-sig") as handle:  # -sig: a leading byte-order mark is dropped
-            reader = csv.DictReader(handle)
-            header = [h.strip() for h in (reader.fieldnames or [])]
-            rows = []
-            for row in reader:
-                entry = {k.strip(): (v or "").strip() for k, v in row.items() if isinstance(k, str)}
-                entry["#line"] = reader.line_num
-                rows.append(entry)
-    except FileNotFoundError:
-        raise InputError("file not found", str(path)) from None
-    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        reader = csv.DictReader(io.StringIO(text, newline=""))
+        header = [h.strip() for h in (reader.fieldnames or [])]
+        rows = []
+        for row in reader:
+            entry = {k.strip(): (v or "").strip() for k, v in row.items() if isinstance(k, str)}
+            entry["#line"] = reader.line_num
+            rows.append(entry)
+    except csv.Error as exc:
         raise InputError(f"cannot read the table ({exc})", str(path)) from None
     if not header:
         raise InputError("is empty (no header row)", str(path))

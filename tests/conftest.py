@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import copy
 
+import numpy as np
 import pytest
 
 from ptares.config import Config
@@ -57,3 +58,15 @@ def small_toml(tmp_path):
     path = tmp_path / "small.toml"
     path.write_text(SMALL_TOML)
     return path
+
+
+def assert_same_pulsars(first, second):
+    """Every per-pulsar array and attribute of two datasets equal, bit for bit."""
+    assert [p.name for p in first.pulsars] == [p.name for p in second.pulsars]
+    for a, b in zip(first.pulsars, second.pulsars):
+        for key in ("mjd", "residuals", "errors", "design_matrix"):
+            np.testing.assert_array_equal(getattr(a, key), getattr(b, key))
+        assert (a.ra, a.dec, a.distance, a.distance_error) == (b.ra, b.dec, b.distance, b.distance_error)
+        assert a.injected.keys() == b.injected.keys()
+        for key in a.injected:
+            np.testing.assert_array_equal(a.injected[key], b.injected[key])

@@ -27,7 +27,7 @@ from ..kernels import cw_residuals
 from ..sky import antenna_patterns, unit_vector
 from .base import Context
 
-__all__ = ["Binary", "ContinuousWaves", "prepare_terms", "from_config"]
+__all__ = ["Binary", "ContinuousWaves", "PulsarLayout", "prepare_terms", "binary_residuals", "from_config"]
 
 _MPC = 1e3 * KPC
 
@@ -96,17 +96,35 @@ def prepare_terms(binaries, positions, distances):
     return earth, pulsar, fplus, fcross, weights
 
 
+@dataclass(frozen=True)
+class PulsarLayout:
+    """Where and when pulsars are observed, in the form the continuous-wave kernel takes."""
+
+    positions: np.ndarray  #: (P, 3) unit vectors
+    distances: np.ndarray  #: (P,) kpc, the ones pulsar terms use
+    times: np.ndarray  #: all TOAs concatenated, s from the basis origin
+    bounds: np.ndarray  #: (P + 1,) pulsar a owns times[bounds[a]:bounds[a + 1]]
+
+    @classmethod
+    def of(cls, positions, distances, times) -> "PulsarLayout":
+        bounds = np.concatenate([[0], np.cumsum([t.size for t in times])])
+        return cls(np.asarray(positions, dtype=float), np.asarray(distances, dtype=float), np.concatenate(times), bounds)
+
+    def residuals(self, binaries) -> list[np.ndarray]:
+        """Summed residuals of ``binaries`` in every pulsar."""
+        terms = prepare_terms(binaries, self.positions, self.distances)
+        return np.split(cw_residuals(self.times, self.bounds, *terms), self.bounds[1:-1])
+
+
 def binary_residuals(binaries, context: Context) -> list[np.ndarray]:
     """Summed residuals of ``binaries`` in every pulsar of ``context``."""
-    pulsars = context.pulsars
     observations = context.observations
-    positions = np.array([p.position for p in pulsars])
-    distances = np.array([p.true_distance for p in pulsars])
-    terms = prepare_terms(binaries, positions, distances)
-    times = [observations.times(i) for i in range(len(pulsars))]
-    bounds = np.concatenate([[0], np.cumsum([t.size for t in times])])
-    flat = cw_residuals(np.concatenate(times), bounds, *terms)
-    return np.split(flat, bounds[1:-1])
+    layout = PulsarLayout.of(
+        [p.position for p in context.pulsars],
+        [p.true_distance for p in context.pulsars],
+        [observations.times(i) for i in range(len(context.pulsars))],
+    )
+    return layout.residuals(binaries)
 
 
 @dataclass(frozen=True)
