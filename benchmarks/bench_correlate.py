@@ -18,13 +18,14 @@ from __future__ import annotations
 import time
 
 import numpy as np
-
 from common import regular_array
-from ptares.correlations import correlation_matrix
-from ptares.cross_correlation import fourier_basis, fourier_products, optimal_statistic, pair_correlations, unit_template
-from ptares.noise_model import noise_from_dataset
-from ptares.simulate import simulate
-from ptares.spectra import coefficient_variance
+
+from ptares.correlation.fourier import fourier_basis, fourier_products, unit_template
+from ptares.correlation.noise import noise_from_dataset
+from ptares.correlation.pairs import optimal_statistic, pair_correlations
+from ptares.physics.patterns import correlation_matrix
+from ptares.physics.spectra import coefficient_variance
+from ptares.simulation.simulate import simulate
 
 PULSARS, TOAS, COMPONENTS, TIMED_PAIRS = 100, 1000, 30, 6
 

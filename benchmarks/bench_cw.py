@@ -15,13 +15,11 @@ Run: ``python benchmarks/bench_cw.py``
 
 from __future__ import annotations
 
-
 import numpy as np
-
 from common import best_of
 
-from ptares.constants import YEAR
-from ptares.kernels import cw_residuals, cw_residuals_reference
+from ptares.physics.constants import YEAR
+from ptares.simulation.kernels import cw_residuals, cw_residuals_reference
 
 PULSARS, TOAS, SOURCES = 100, 2000, 1000
 

@@ -14,15 +14,14 @@ Run: ``python benchmarks/bench_fit.py``
 
 from __future__ import annotations
 
-
 import numpy as np
 import scipy.linalg
-
 from common import best_of, regular_array
-from ptares.cross_correlation import fourier_basis
-from ptares.likelihood import Likelihood
-from ptares.simulate import simulate
-from ptares.spectra import coefficient_variance
+
+from ptares.correlation.fourier import fourier_basis
+from ptares.inference.likelihood import Likelihood
+from ptares.physics.spectra import coefficient_variance
+from ptares.simulation.simulate import simulate
 
 PULSARS, TOAS, COMPONENTS = 30, 1000, 30
 

@@ -15,12 +15,11 @@ Run: ``python benchmarks/bench_simulate.py``
 
 from __future__ import annotations
 
-
 import numpy as np
-
 from common import best_of, regular_array
-from ptares.kernels import synthesise, synthesise_reference
-from ptares.simulate import simulate
+
+from ptares.simulation.kernels import synthesise, synthesise_reference
+from ptares.simulation.simulate import simulate
 
 PULSARS, TOAS, FREQUENCIES = 100, 1000, 30
 

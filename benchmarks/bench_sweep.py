@@ -15,7 +15,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from ptares.sweep import run_sweep, single_threaded_children
+from ptares.campaign.engines import single_threaded_children
+from ptares.campaign.sweep import run_sweep
 
 HEAVY = """
 [array]

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import time
 
-from ptares.config import Config
+from ptares.inputs.config import Config
 
 
 def best_of(function, repeats: int = 5) -> float:

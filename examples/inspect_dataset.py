@@ -6,7 +6,7 @@ Run from the repository root: ``python examples/inspect_dataset.py``
 import numpy as np
 
 import ptares
-from ptares.spectra import coefficient_variance
+from ptares.physics.spectra import coefficient_variance
 
 config = ptares.load_config("configs/demo.toml")
 data = ptares.simulate(config)

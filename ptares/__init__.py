@@ -1,9 +1,12 @@
 """ptares: simulate pulsar-timing-array residuals and recover gravitational-wave signals.
 
-The pipeline runs one way: config (:mod:`ptares.config`) -> pulsar array
-(:mod:`ptares.pulsar_array`) -> signals and noise (:mod:`ptares.signals`) -> dataset
-(:mod:`ptares.dataset`) -> figures (:mod:`ptares.figures`).  Physics lives in
-:mod:`ptares.sky`, :mod:`ptares.correlations` and :mod:`ptares.spectra`.
+The subpackages read as the pipeline, and data flows one way through them:
+:mod:`ptares.inputs` (configs, units, tables) -> :mod:`ptares.physics` (formulas)
+-> :mod:`ptares.simulation` (array, schedule, signals) -> :mod:`ptares.dataset`
+-> :mod:`ptares.correlation` (pair correlations, optimal statistics) ->
+:mod:`ptares.inference` (likelihood, priors, samplers) -> :mod:`ptares.campaign`
+(many runs), with :mod:`ptares.figures` for each stage and :mod:`ptares.cli` as a
+thin shell over the functions exported here.
 """
 
 from importlib.metadata import PackageNotFoundError, version
@@ -13,11 +16,11 @@ try:
 except PackageNotFoundError:  # pragma: no cover - running from a source tree
     __version__ = "0.0.0+unknown"
 
-from .config import Config, load_config, parse_config  # noqa: E402
-from .correlations import correlation_matrix, dipole, hellings_downs, monopole  # noqa: E402
-from .dataset import Dataset, PulsarData, load_dataset, write_dataset  # noqa: E402
-from .errors import InputError  # noqa: E402
-from .simulate import simulate  # noqa: E402
+from ptares.dataset import Dataset, PulsarData, load_dataset, write_dataset  # noqa: E402
+from ptares.errors import InputError  # noqa: E402
+from ptares.inputs.config import Config, load_config, parse_config  # noqa: E402
+from ptares.physics.patterns import correlation_matrix, dipole, hellings_downs, monopole  # noqa: E402
+from ptares.simulation.simulate import simulate  # noqa: E402
 
 __all__ = [
     "__version__",

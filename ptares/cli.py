@@ -12,9 +12,9 @@ import sys
 import warnings
 from pathlib import Path
 
-from . import __version__
-from .config import with_overrides
-from .errors import InputError, PhysicsWarning
+from ptares import __version__
+from ptares.errors import InputError, PhysicsWarning
+from ptares.inputs.config import with_overrides
 
 _default_showwarning = warnings.showwarning
 
@@ -23,14 +23,10 @@ __all__ = ["main"]
 
 def _summary(config) -> str:
     """A short description of what a config will simulate."""
-    from .pulsar_array import build_array, observe
-    from .simulate import run_seed
-    from .signals import build_components
-
-    from .signals import Context
-
-    from .simulate import config_tables
-    from .timing_model import column_names
+    from ptares.physics.timing_model import column_names
+    from ptares.simulation.array import build_array, observe
+    from ptares.simulation.signals import Context, build_components
+    from ptares.simulation.simulate import config_tables, run_seed
 
     seed = run_seed(config)
     tables = config_tables(config, len(column_names(config.timing_model.fit)), config.array.mode == "inject")
@@ -71,7 +67,7 @@ def _summary(config) -> str:
 
 
 def _check(args) -> int:
-    from .config import load_config
+    from ptares.inputs.config import load_config
 
     config = load_config(args.config)
     print(f"{args.config}: valid")
@@ -100,10 +96,10 @@ def _check_output_directory(out: Path, overwrite: bool, outputs=OUTPUTS) -> None
 
 
 def _simulate(args) -> int:
-    from .config import load_config
-    from .dataset import write_dataset
-    from .figures import dataset_figures
-    from .simulate import simulate
+    from ptares.dataset import write_dataset
+    from ptares.figures.dataset import dataset_figures
+    from ptares.inputs.config import load_config
+    from ptares.simulation.simulate import simulate
 
     config = load_config(args.config)
     out = Path(args.out)
@@ -122,11 +118,12 @@ def _simulate(args) -> int:
 
 
 def _correlate(args) -> int:
-    from .config import CorrelateSection, load_correlate_section
-    from .correlate import correlate
-    from .dataset import load_dataset
-    from .figures import correlations_figure, nulls_figure, save_figure
-    from .noise_model import noise_from_dataset, noise_from_values
+    from ptares.correlation.analysis import correlate
+    from ptares.correlation.noise import noise_from_dataset, noise_from_values
+    from ptares.dataset import load_dataset
+    from ptares.figures.common import save_figure
+    from ptares.figures.correlation import correlations_figure, nulls_figure
+    from ptares.inputs.config import CorrelateSection, load_correlate_section
 
     section = load_correlate_section(args.config) if args.config else CorrelateSection()
     overrides = {k: getattr(args, k) for k in ("gamma", "components", "noise", "chains", "draws", "bins", "scrambles",
@@ -138,7 +135,7 @@ def _correlate(args) -> int:
     if section.noise == "injected":
         noise = noise_from_dataset(dataset)
     elif section.noise == "posterior":
-        from .noise_model import noise_from_chains
+        from ptares.correlation.noise import noise_from_chains
 
         chains = Path(section.chains)
         if args.config and not chains.is_absolute():
@@ -185,12 +182,13 @@ def _correlate(args) -> int:
 
 
 def _fit(args) -> int:
-    from .config import FitSection, load_config, load_section
-    from .dataset import fingerprint, load_dataset, write_dataset, write_json
-    from .figures import corner_figure, save_figure, trace_figure
-    from .fit_model import FitModel
-    from .sampling import run_sampler, summarise
-    from .simulate import simulate
+    from ptares.dataset import fingerprint, load_dataset, write_dataset, write_json
+    from ptares.figures.common import save_figure
+    from ptares.figures.inference import corner_figure, trace_figure
+    from ptares.inference.model import FitModel
+    from ptares.inference.samplers.ensemble import run_sampler, summarise
+    from ptares.inputs.config import FitSection, load_config, load_section
+    from ptares.simulation.simulate import simulate
 
     source = Path(args.source)
     out = Path(args.out)
@@ -256,8 +254,10 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _sweep(args) -> int:
-    from .figures import save_figure, sweep_figures
-    from .sweep import load_sweep, run_sweep
+    from ptares.campaign.sweep import run_sweep
+    from ptares.campaign.tasks import load_sweep
+    from ptares.figures.campaign import sweep_figures
+    from ptares.figures.common import save_figure
 
     _, section = load_sweep(args.config)
     out = Path(args.out)
@@ -282,9 +282,9 @@ def _sweep(args) -> int:
 
 
 def _import(args) -> int:
-    from .config import load_config
-    from .dataset import write_dataset
-    from .simulate import import_tables
+    from ptares.dataset import write_dataset
+    from ptares.inputs.config import load_config
+    from ptares.simulation.simulate import import_tables
 
     config = load_config(args.config)
     out = Path(args.out)
@@ -299,8 +299,8 @@ def _import(args) -> int:
 
 
 def _export(args) -> int:
-    from .dataset import load_dataset
-    from .tables import export_tables
+    from ptares.dataset import load_dataset
+    from ptares.inputs.tables import export_tables
 
     dataset = load_dataset(args.dataset)
     out = Path(args.out)

@@ -32,8 +32,8 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-from .errors import InputError
-from .sky import unit_vector
+from ptares.errors import InputError
+from ptares.physics.sky import unit_vector
 
 __all__ = ["PulsarData", "Dataset", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint"]
 

@@ -7,7 +7,7 @@ import copy
 import numpy as np
 import pytest
 
-from ptares.config import Config
+from ptares.inputs.config import Config
 
 
 def small_config(**overrides) -> Config:

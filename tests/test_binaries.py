@@ -6,7 +6,7 @@ from astropy import constants as const
 from astropy import units as u
 from scipy.integrate import solve_ivp
 
-from ptares.binaries import (
+from ptares.physics.binaries import (
     chirp_mass,
     chirp_time,
     distance_for_strain,
@@ -16,7 +16,7 @@ from ptares.binaries import (
     strain_amplitude,
     time_to_coalescence,
 )
-from ptares.constants import M_SUN, YEAR
+from ptares.physics.constants import M_SUN, YEAR
 
 MC = 1e9 * M_SUN
 MPC = (1 * u.Mpc).to_value(u.m)

@@ -5,10 +5,9 @@ import sys
 
 import h5py
 import pytest
+from conftest import SMALL_TOML
 
 from ptares.cli import main
-
-from conftest import SMALL_TOML
 
 
 def run_cli(*args):

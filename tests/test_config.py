@@ -2,12 +2,11 @@
 
 import numpy as np
 import pytest
-
-from ptares.pulsar_array import build_array
-from ptares.config import Draw, load_config, parse_config
-from ptares.errors import InputError
-
 from conftest import SMALL_TOML
+
+from ptares.errors import InputError
+from ptares.inputs.config import Draw, load_config, parse_config
+from ptares.simulation.array import build_array
 
 
 def test_small_config_parses_with_units(small_toml):

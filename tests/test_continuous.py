@@ -5,17 +5,16 @@ import warnings
 
 import numpy as np
 import pytest
+from conftest import small_config
 from scipy.integrate import solve_ivp
 
-from ptares.binaries import chirp_time
-from ptares.config import parse_config
-from ptares.constants import C, KPC, M_SUN, YEAR
 from ptares.errors import InputError, PhysicsWarning
-from ptares.kernels import cw_residuals, cw_residuals_reference
-from ptares.simulate import simulate
-from ptares.sky import polarisation_tensors, unit_vector
-
-from conftest import small_config
+from ptares.inputs.config import parse_config
+from ptares.physics.binaries import chirp_time
+from ptares.physics.constants import KPC, M_SUN, YEAR, C
+from ptares.physics.sky import polarisation_tensors, unit_vector
+from ptares.simulation.kernels import cw_residuals, cw_residuals_reference
+from ptares.simulation.simulate import simulate
 
 
 def cw_config(pulsar, source, span=10.0, cadence=10.0):
@@ -220,7 +219,7 @@ def test_vary_distances_draws_recorded_pulsar_distances():
     fixed = simulate(cw_config(pulsar, source))
     raw = cw_config(pulsar, source).model_dump(exclude_none=True)
     raw["array"]["vary_distances"] = True
-    from ptares.config import Config
+    from ptares.inputs.config import Config
 
     drawn = simulate(Config.model_validate(raw))
     again = simulate(Config.model_validate(raw))

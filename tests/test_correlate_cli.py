@@ -11,9 +11,9 @@ from ptares.dataset import load_dataset, write_dataset
 
 @pytest.fixture(scope="module")
 def dataset_path(tmp_path_factory):
-    from ptares.simulate import simulate
-
     from conftest import small_config
+
+    from ptares.simulation.simulate import simulate
 
     config = small_config(array={"random": {"count": 7}}, gwb={"amplitude": 1e-14, "components": 8})
     return write_dataset(simulate(config), tmp_path_factory.mktemp("d") / "dataset.h5")

@@ -9,16 +9,21 @@ import numpy as np
 import pytest
 from astropy import units as u
 from astropy.coordinates import SkyCoord
-
-from ptares.config import CorrelateSection
-from ptares.correlate import correlate
-from ptares.correlation_scatter import bin_pairs, binned_covariance
-from ptares.correlations import correlation_matrix
-from ptares.cross_correlation import fourier_products, joint_statistic, optimal_statistic, overlap, pair_correlations
-from ptares.noise_model import noise_from_dataset
-from ptares.simulate import simulate
-
 from conftest import small_config
+
+from ptares.correlation.analysis import correlate
+from ptares.correlation.fourier import fourier_products
+from ptares.correlation.noise import noise_from_dataset
+from ptares.correlation.pairs import (
+    joint_statistic,
+    optimal_statistic,
+    overlap,
+    pair_correlations,
+)
+from ptares.correlation.scatter import bin_pairs, binned_covariance
+from ptares.inputs.config import CorrelateSection
+from ptares.physics.patterns import correlation_matrix
+from ptares.simulation.simulate import simulate
 
 pytestmark = pytest.mark.statistical
 
@@ -121,7 +126,7 @@ def test_binned_correlations_follow_hellings_downs_and_their_covariance_matches_
     # the weights of the bins change a little between realisations (jittered schedules): check they barely do
     assert all(np.array_equal(bin_pairs(r[2], 6).members[0], reference.members[0]) for r in runs[:5])
 
-    import ptares.correlation_scatter as scatter
+    import ptares.correlation.scatter as scatter
 
     limit = scatter.EXACT_LIMIT
     scatter.EXACT_LIMIT = 0

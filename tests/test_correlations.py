@@ -6,8 +6,8 @@ from scipy.optimize import brentq, minimize_scalar
 from scipy.special import roots_legendre
 
 import ptares
-from ptares.correlations import PATTERNS, correlation_matrix
-from ptares.sky import antenna_patterns, unit_vector
+from ptares.physics.patterns import PATTERNS, correlation_matrix
+from ptares.physics.sky import antenna_patterns, unit_vector
 
 
 def sky_average_of_antenna_product(angle, nodes=300):

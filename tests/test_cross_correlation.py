@@ -2,19 +2,18 @@
 
 import numpy as np
 import pytest
+from conftest import small_config
 
-from ptares.correlations import correlation_matrix
-from ptares.cross_correlation import (
-    fourier_products,
+from ptares.correlation.fourier import fourier_products
+from ptares.correlation.noise import noise_from_dataset, noise_from_values
+from ptares.correlation.pairs import (
     joint_statistic,
     optimal_statistic,
     overlap,
     pair_correlations,
 )
-from ptares.noise_model import noise_from_dataset, noise_from_values
-from ptares.simulate import simulate
-
-from conftest import small_config
+from ptares.physics.patterns import correlation_matrix
+from ptares.simulation.simulate import simulate
 
 YEAR = 365.25 * 86400.0
 

@@ -2,13 +2,12 @@
 
 import h5py
 import pytest
+from conftest import assert_same_pulsars, small_config
 
 import ptares
 from ptares.dataset import load_dataset, write_dataset
 from ptares.errors import InputError
-from ptares.simulate import simulate
-
-from conftest import assert_same_pulsars, small_config
+from ptares.simulation.simulate import simulate
 
 
 @pytest.fixture

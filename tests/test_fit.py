@@ -10,17 +10,16 @@ import time
 import h5py
 import numpy as np
 import pytest
+from conftest import small_config
 from scipy import stats
 
 from ptares.cli import main
-from ptares.config import FitSection
 from ptares.dataset import write_dataset
 from ptares.errors import InputError
-from ptares.fit_model import FitModel
-from ptares.sampling import run_sampler, summarise
-from ptares.simulate import simulate
-
-from conftest import small_config
+from ptares.inference.model import FitModel
+from ptares.inference.samplers.ensemble import run_sampler, summarise
+from ptares.inputs.config import FitSection
+from ptares.simulation.simulate import simulate
 
 
 def white_only(seed=1):
@@ -281,7 +280,7 @@ def test_converged_fit_is_not_extended_by_a_rerun(tmp_path):
 
 def test_posterior_draws_keep_what_the_fit_held_fixed(tmp_path):
     """noise_from_chains: the fixed index and the fit's frequency count carry over; other data are refused."""
-    from ptares.noise_model import noise_from_chains
+    from ptares.correlation.noise import noise_from_chains
 
     data = loud_background(9)
     model = FitModel(data, FitSection(fixed={"gwb_gamma": 3.0}, components=4, max_steps=200))

@@ -4,7 +4,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from ptares.kernels import synthesise, synthesise_reference
+from ptares.simulation.kernels import synthesise, synthesise_reference
 
 
 @settings(max_examples=25, deadline=None)

@@ -4,11 +4,10 @@ import numpy as np
 import pytest
 import scipy.linalg
 import scipy.stats
-
-from ptares.likelihood import Likelihood, NotPositiveDefinite
-from ptares.simulate import simulate
-
 from conftest import small_config
+
+from ptares.inference.likelihood import Likelihood, NotPositiveDefinite
+from ptares.simulation.simulate import simulate
 
 YEAR = 365.25 * 86400.0
 
@@ -123,9 +122,9 @@ def test_degenerate_timing_model_is_reported_not_nan(data):
 
 def test_non_positive_definite_point_is_zero_probability_with_a_warning(data, monkeypatch):
     """Where a covariance fails to factorise the posterior is -inf (not NaN) and the user is told once."""
-    from ptares.config import FitSection
     from ptares.errors import PhysicsWarning
-    from ptares.fit_model import FitModel
+    from ptares.inference.model import FitModel
+    from ptares.inputs.config import FitSection
 
     model = FitModel(data, FitSection())
 

@@ -2,12 +2,11 @@
 
 import numpy as np
 import pytest
-
-from ptares.pulsar_array import build_array, observe
-from ptares.constants import YEAR
-from ptares.schedule import observation_epochs, toa_uncertainties
-
 from conftest import small_config
+
+from ptares.physics.constants import YEAR
+from ptares.simulation.array import build_array, observe
+from ptares.simulation.schedule import observation_epochs, toa_uncertainties
 
 
 def test_regular_cadence_without_jitter():

@@ -2,15 +2,14 @@
 
 import numpy as np
 import pytest
-
-from ptares.pulsar_array import build_array
-from ptares.config import Config
-from ptares.errors import InputError
-from ptares.signals.background import lower_factor
-from ptares.correlations import correlation_matrix
-from ptares.simulate import simulate
-
 from conftest import small_config
+
+from ptares.errors import InputError
+from ptares.inputs.config import Config
+from ptares.physics.patterns import correlation_matrix
+from ptares.simulation.array import build_array
+from ptares.simulation.signals.background import lower_factor
+from ptares.simulation.simulate import simulate
 
 LISTED = [
     {"name": "P1", "ra": 10.0, "dec": 5.0},

@@ -7,7 +7,7 @@ from astropy.coordinates import SkyCoord
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from ptares.sky import (
+from ptares.physics.sky import (
     angular_separation,
     antenna_patterns,
     polarisation_tensors,

@@ -6,8 +6,8 @@ from astropy import units as u
 from astropy.cosmology import Planck18
 from scipy.integrate import quad
 
-from ptares.constants import F_YR, YEAR
-from ptares.spectra import (
+from ptares.physics.constants import F_YR, YEAR
+from ptares.physics.spectra import (
     alpha_from_gamma,
     characteristic_strain,
     coefficient_variance,

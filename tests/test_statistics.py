@@ -10,13 +10,11 @@ of the realisations themselves; seeds are fixed, so the outcome is reproducible.
 
 import numpy as np
 import pytest
-
 from astropy import units as u
 from astropy.coordinates import SkyCoord
-
-from ptares.simulate import simulate
-
 from conftest import small_config
+
+from ptares.simulation.simulate import simulate
 
 pytestmark = pytest.mark.statistical
 

@@ -9,9 +9,10 @@ import time
 import numpy as np
 import pytest
 
+from ptares.campaign.engines import single_threaded_children
+from ptares.campaign.sweep import read_results, run_sweep
 from ptares.cli import main
-from ptares.figures import sweep_figures
-from ptares.sweep import read_results, run_sweep, single_threaded_children
+from ptares.figures.campaign import sweep_figures
 
 SWEEP = """
 [run]
@@ -121,7 +122,7 @@ def test_bad_sweeps_are_one_line(tmp_path, capsys):
 
 def test_seeds_are_derived_from_the_index(tmp_path):
     """Task seeds depend on the sweep seed and the task index only (numpy SeedSequence)."""
-    from ptares.sweep import derive_seed, expand, load_sweep
+    from ptares.campaign.tasks import derive_seed, expand, load_sweep
 
     base, section = load_sweep(write(tmp_path))
     tasks = expand(base, section)

@@ -3,14 +3,13 @@
 
 import numpy as np
 import pytest
+from conftest import assert_same_pulsars, small_config
 
 from ptares.cli import main
-from ptares.config import load_config
 from ptares.dataset import load_dataset, write_dataset
 from ptares.errors import InputError, PhysicsWarning
-from ptares.simulate import import_tables, simulate
-
-from conftest import assert_same_pulsars, small_config
+from ptares.inputs.config import load_config
+from ptares.simulation.simulate import import_tables, simulate
 
 CATALOGUE = "name,ra,dec,distance,distance_error\nKite,04:37:15.9,-47:15:09,1.2,0.1\nLark,200.5,10.25,0.8,0.05\n"
 

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from ptares.timing_model import column_names, design_matrix, fit_timing_model
+from ptares.physics.timing_model import column_names, design_matrix, fit_timing_model
 
 
 @pytest.fixture

@@ -1,0 +1,178 @@
+"""Campaign tasks: expand a ``[sweep]`` grid into complete configs and run one of them.
+
+A sweep is a config with a ``[sweep]`` table.  Its axes and realisations
+expand into tasks, each a complete config whose seed is derived from the sweep
+seed and the task's index (numpy ``SeedSequence``), so a task gives the same
+row on any machine, engine or worker count.
+"""
+
+from __future__ import annotations
+
+import copy
+import itertools
+import tempfile
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ptares.errors import InputError
+from ptares.inputs.config import Config, SweepSection, validation_error, read_toml
+
+__all__ = ["Task", "load_sweep", "derive_seed", "expand", "run_task"]
+
+
+#: results.csv columns after the axis columns.
+COLUMNS = [
+    "injected_amplitude", "injected_gamma", "injected_correlation",
+    "hd_amplitude2", "hd_sigma", "hd_snr", "hd_p_value", "monopole_snr", "dipole_snr",
+    "fit_chi2", "fit_p_calibrated",
+    "gwb_log10_A_median", "gwb_log10_A_low68", "gwb_log10_A_high68", "gwb_log10_A_quantile",
+    "gwb_gamma_median", "gwb_gamma_quantile", "fit_converged",
+    "status", "error", "run_time",
+]
+
+
+@dataclass(frozen=True)
+class Task:
+    index: int
+    realisation: int
+    seed: int
+    values: tuple  #: ((dotted key, value), ...) of this task's axes
+    raw: dict  #: the task's complete config, as TOML-like data
+    stages: tuple
+
+
+def _merge(base: dict, top: dict) -> dict:
+    """``top`` over ``base``, table by table."""
+    merged = copy.deepcopy(base)
+    for key, value in top.items():
+        if isinstance(value, dict) and isinstance(merged.get(key), dict):
+            merged[key] = _merge(merged[key], value)
+        else:
+            merged[key] = copy.deepcopy(value)
+    return merged
+
+
+def _set(raw: dict, dotted: str, value) -> None:
+    node = raw
+    parts = dotted.split(".")
+    for part in parts[:-1]:
+        node = node.setdefault(part, {})
+        if not isinstance(node, dict):
+            raise InputError(f"{part!r} is not a table", f"sweep.axes.{dotted}")
+    node[parts[-1]] = value
+
+
+def load_sweep(path) -> tuple:
+    """``(base raw config without [sweep], SweepSection)`` from a sweep file (and its ``base``)."""
+    path = Path(path)
+    raw = read_toml(path)
+    if "sweep" not in raw:
+        raise InputError("has no [sweep] table", str(path))
+    try:
+        section = SweepSection.model_validate(raw["sweep"])
+    except Exception as exc:  # pydantic ValidationError
+        if hasattr(exc, "errors"):
+            raise validation_error(exc, raw, str(path), ("sweep",)) from None
+        raise
+    base = {k: v for k, v in raw.items() if k != "sweep"}
+    if section.base:
+        base_path = (path.parent / section.base) if not Path(section.base).is_absolute() else Path(section.base)
+        base = _merge({k: v for k, v in read_toml(base_path).items() if k != "sweep"}, base)
+    return base, section
+
+
+def derive_seed(seed: int, index: int) -> int:
+    """The seed of task ``index``: a child of the sweep seed (numpy SeedSequence spawn key)."""
+    return int(np.random.SeedSequence(seed, spawn_key=(index,)).generate_state(1, np.uint64)[0] >> np.uint64(1))
+
+
+def expand(base: dict, section: SweepSection, where: str = "sweep") -> list:
+    """Every task of the sweep, in index order.  Axis keys that do not exist in a config are errors."""
+    keys = list(section.axes)
+    if "run.seed" in keys:
+        raise InputError("run.seed cannot be an axis: task seeds derive from [sweep] seed", f"{where}.axes")
+    lists = [section.axes[k] for k in keys]
+    combinations = list(itertools.product(*lists)) if section.grid else list(zip(*lists))
+    if not keys:
+        combinations = [()]
+    tasks = []
+    for c, combination in enumerate(combinations):
+        raw = copy.deepcopy(base)
+        for key, value in zip(keys, combination):
+            _set(raw, key, value)
+        if c == 0:
+            _check_keys(raw, keys, where)
+        for r in range(section.realisations):
+            index = c * section.realisations + r
+            seed = derive_seed(section.seed, index)
+            task_raw = copy.deepcopy(raw)
+            task_raw.setdefault("run", {})["seed"] = seed
+            tasks.append(Task(index, r, seed, tuple(zip(keys, combination)), task_raw, section.stages))
+    return tasks
+
+
+def _check_keys(raw: dict, keys, where: str) -> None:
+    """An axis naming a key the config does not have would fail every task: say so at once."""
+    try:
+        Config.model_validate(raw)
+    except InputError:
+        return
+    except Exception as exc:
+        for error in exc.errors():
+            if error["type"] == "extra_forbidden":
+                dotted = ".".join(str(p) for p in error["loc"])
+                raise InputError(f"unknown config key {dotted!r}", f"{where}.axes") from None
+
+
+def _summary_of_fit(model, run, summary) -> dict:
+    row = {"fit_converged": summary["converged"]}
+    samples = run.chain[summary["burn"] :: model.section.thin].reshape(-1, model.ndim)
+    for name in ("gwb_log10_A", "gwb_gamma"):
+        if name in model.names:
+            entry = summary["parameters"][name]
+            row[f"{name}_median"] = entry["median"]
+            if name == "gwb_log10_A":
+                row[f"{name}_low68"], row[f"{name}_high68"] = entry["interval68"]
+            if name in model.injected:
+                row[f"{name}_quantile"] = float(np.mean(samples[:, model.names.index(name)] < model.injected[name]))
+    return row
+
+
+def run_task(task: Task) -> dict:
+    """Run one task and return its row; never raises (a failure is a row with its error)."""
+    from ptares.correlation.analysis import correlate
+    from ptares.correlation.noise import noise_from_dataset
+    from ptares.inference.model import FitModel
+    from ptares.inference.samplers.ensemble import run_sampler, summarise
+    from ptares.simulation.simulate import simulate
+
+    started = time.perf_counter()
+    row = {"index": task.index, "realisation": task.realisation, "seed": task.seed}
+    row.update({f"axis:{key}": value for key, value in task.values})
+    try:
+        config = Config.model_validate(task.raw)
+        data = simulate(config)
+        gwb = data.signals.get("gwb", {})
+        row.update(injected_amplitude=float(gwb.get("amplitude", 0.0)), injected_gamma=gwb.get("gamma"),
+                   injected_correlation=gwb.get("correlation"))
+        if "correlate" in task.stages:
+            result = correlate(data, noise_from_dataset(data), config.correlate)
+            hd = result.estimates["hellings-downs"]
+            row.update(hd_amplitude2=hd["amplitude2"], hd_sigma=hd["sigma"], hd_snr=hd["snr"],
+                       hd_p_value=hd.get("p_value"), monopole_snr=result.estimates["monopole"]["snr"],
+                       dipole_snr=result.estimates["dipole"]["snr"], fit_chi2=result.fit["chi2"],
+                       fit_p_calibrated=result.fit.get("p_calibrated"))
+        if "fit" in task.stages:
+            model = FitModel(data, config.fit)
+            with tempfile.TemporaryDirectory() as scratch:
+                run = run_sampler(model, Path(scratch) / "chains.h5")
+            row.update(_summary_of_fit(model, run, summarise(model, run)))
+        row["status"] = "ok"
+    except Exception as exc:  # any failure of one task is recorded, never fatal to the campaign
+        message = exc.line() if isinstance(exc, InputError) else f"{type(exc).__name__}: {exc}"
+        row.update(status="failed", error=" ".join(str(message).split()))
+    row["run_time"] = round(time.perf_counter() - started, 3)
+    return row

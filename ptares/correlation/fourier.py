@@ -1,0 +1,127 @@
+"""Per-pulsar Fourier-domain products that every cross-correlation is built from.
+
+Each pulsar's residuals are reduced, with its noise model and the timing model
+marginalised (flat prior: ``C^-1 = N^-1 - N^-1 T Sigma^-1 T^T N^-1``, ``T = [M F]``,
+van Haasteren & Vallisneri 2014), to ``X_a = F_a^T C_a^-1 r_a`` and
+``Z_a = F_a^T C_a^-1 F_a`` on the basis ``f_k = k / T``, columns ordered
+``sin f_1, cos f_1, sin f_2, ...``.  :mod:`ptares.correlation.pairs` turns these
+into pair correlations.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+
+from ptares.correlation.noise import NoiseModel
+from ptares.dataset import Dataset
+from ptares.errors import InputError
+from ptares.physics.spectra import coefficient_variance
+
+__all__ = ["fourier_basis", "unit_template", "FourierProducts", "check_dataset", "fourier_products"]
+
+
+#: Largest working memory (bytes) the analyses allow themselves before refusing.
+MEMORY_LIMIT = 4e9
+
+
+def fourier_basis(times, span: float, components: int) -> np.ndarray:
+    """Columns ``sin(2 pi k t / T), cos(2 pi k t / T)`` interleaved, k = 1..components; ``times`` in s."""
+    phase = 2.0 * np.pi * np.outer(times, np.arange(1, components + 1)) / span
+    basis = np.empty((len(times), 2 * components))
+    basis[:, 0::2] = np.sin(phase)
+    basis[:, 1::2] = np.cos(phase)
+    return basis
+
+
+def unit_template(span: float, components: int, gamma: float) -> np.ndarray:
+    """``Phi`` of the template: ``S(f_k) / T`` for unit amplitude, repeated for sine and cosine (s^2)."""
+    return np.repeat(coefficient_variance(span, components, 1.0, gamma), 2)
+
+
+@dataclass(frozen=True)
+class FourierProducts:
+    """Per-pulsar products: ``X`` (P, 2K), ``Z`` (P, 2K, 2K), template ``phi`` (2K,)."""
+
+    X: np.ndarray
+    Z: np.ndarray
+    phi: np.ndarray
+
+
+def check_dataset(dataset: Dataset) -> None:
+    """The faults an estimator cannot work around, each as one clear error."""
+    if len(dataset.pulsars) < 2:
+        raise InputError(f"has {len(dataset.pulsars)} pulsar(s); cross-correlation needs at least 2", "dataset")
+    if not (np.isfinite(dataset.span) and dataset.span > 0 and np.isfinite(dataset.start_mjd)):
+        raise InputError(f"span {dataset.span} s and start MJD {dataset.start_mjd} must be finite, the span positive", "dataset")
+    for name, parameters in dataset.signals.items():
+        for key, value in parameters.items():
+            if isinstance(value, float) and not np.isfinite(value):
+                raise InputError(f"signal parameter {key} is {value}", f"dataset signal {name}")
+        if "components" in parameters and not float(parameters["components"]).is_integer():
+            raise InputError(f"components must be a whole number, got {parameters['components']}", f"dataset signal {name}")
+    for p in dataset.pulsars:
+        where = f"dataset pulsar {p.name}"
+        if not all(np.isfinite(v) for v in (p.ra, p.dec, p.distance, p.distance_error)):
+            raise InputError("position or distance is not finite", where)
+        if not all(np.isfinite(float(v)) for v in p.noise.values() if isinstance(v, (int, float))):
+            raise InputError("an injected noise parameter is not finite", where)
+        if not np.all(np.isfinite(p.design_matrix)):
+            raise InputError("design matrix contains NaN or infinite values", where)
+        n = p.mjd.size
+        if p.residuals.shape != (n,) or p.errors.shape != (n,) or p.design_matrix.shape[0] != n:
+            raise InputError(
+                f"arrays do not match: {n} MJDs, {p.residuals.size} residuals, {p.errors.size} errors, "
+                f"{p.design_matrix.shape[0]} design-matrix rows",
+                where,
+            )
+        for key in ("mjd", "residuals", "errors"):
+            if not np.all(np.isfinite(getattr(p, key))):
+                raise InputError(f"{key} contain NaN or infinite values", where)
+        if np.any(p.errors <= 0):
+            raise InputError("TOA errors must be positive", where)
+        if n <= p.design_matrix.shape[1]:
+            raise InputError(f"{n} TOAs do not exceed the {p.design_matrix.shape[1]} timing-model columns", where)
+
+
+def fourier_products(dataset: Dataset, noise: NoiseModel, components: int, gamma: float) -> FourierProducts:
+    """``X_a`` and ``Z_a`` of every pulsar for a template of ``components`` frequencies and index ``gamma``."""
+    span = dataset.span
+    memory = len(dataset.pulsars) * (2 * components) ** 2 * 8
+    if memory > MEMORY_LIMIT:
+        raise InputError(f"{components} frequencies for {len(dataset.pulsars)} pulsars need {memory / 1e9:.1f} GB; "
+                         f"use fewer (at most {MEMORY_LIMIT / 1e9:.0f} GB is allowed)", "components")
+    basis_size = max(components, noise.red_components, noise.common_components)
+    phi = unit_template(span, components, gamma)
+    X = np.empty((len(dataset.pulsars), 2 * components))
+    Z = np.empty((len(dataset.pulsars), 2 * components, 2 * components))
+    common = np.zeros(2 * basis_size)
+    if noise.common_amplitude > 0:
+        common[: 2 * noise.common_components] = np.repeat(
+            coefficient_variance(span, noise.common_components, noise.common_amplitude, noise.common_gamma), 2
+        )
+    for a, p in enumerate(dataset.pulsars):
+        times = (p.mjd - dataset.start_mjd) * 86400.0
+        F = fourier_basis(times, span, basis_size)
+        prior = common.copy()
+        if noise.red_amplitude[a] > 0:
+            red = coefficient_variance(span, noise.red_components, noise.red_amplitude[a], noise.red_gamma[a])
+            prior[: 2 * noise.red_components] += np.repeat(red, 2)
+        inv_n = 1.0 / noise.white_sigma(a, p.errors) ** 2
+        kept = prior > 0  # columns without prior power add nothing to the covariance
+        T = np.hstack([p.design_matrix, F[:, kept]])
+        sigma = T.T @ (T * inv_n[:, None])
+        fourier = np.arange(p.design_matrix.shape[1], T.shape[1])
+        sigma[fourier, fourier] += 1.0 / prior[kept]  # the timing model has a flat prior: nothing added
+        try:
+            factor = scipy.linalg.cho_factor(sigma)
+        except np.linalg.LinAlgError:
+            raise InputError("noise covariance is not positive definite (degenerate timing model?)", f"pulsar {p.name}") from None
+        Ft = F[:, : 2 * components]
+        tnf = T.T @ (Ft * inv_n[:, None])
+        tnr = T.T @ (p.residuals * inv_n)
+        X[a] = Ft.T @ (p.residuals * inv_n) - tnf.T @ scipy.linalg.cho_solve(factor, tnr)
+        Z[a] = Ft.T @ (Ft * inv_n[:, None]) - tnf.T @ scipy.linalg.cho_solve(factor, tnf)
+    return FourierProducts(X=X, Z=Z, phi=phi)

@@ -1,0 +1,1 @@
+"""Bayesian inference: the marginalised likelihood, priors, the fit model and its samplers."""

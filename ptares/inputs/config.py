@@ -1,0 +1,838 @@
+"""The TOML run configuration, validated into immutable pydantic models.
+
+Each quantity is a float in the default unit named in its field's docstring
+(and in the README); the file may give a plain number in that unit or a string
+with any convertible unit (``"15 yr"``, ``"200 ns"``).  Values marked
+*drawable* may instead be a table ``{uniform = [low, high]}`` or
+``{log_uniform = [low, high]}``: each pulsar then draws its own value from its
+own random stream.  Unknown keys are errors.  :func:`load_config` turns every
+fault into one :class:`~ptares.errors.InputError` naming the key.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import sys
+import warnings
+from pathlib import Path
+from typing import Annotated, Any, Literal, Optional, Union
+
+import numpy as np
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    PrivateAttr,
+    Strict,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
+
+from ptares.errors import InputError, PhysicsWarning
+from ptares.inputs.units import parse_dec, parse_number, parse_ra, to_unit
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+__all__ = [
+    "Config",
+    "ContinuousWave",
+    "Draw",
+    "load_config",
+    "parse_config",
+    "TIMING_TERMS",
+    "CORRELATIONS",
+]
+
+TIMING_TERMS = ("offset", "spin_frequency", "spin_down", "yearly")
+CORRELATIONS = ("hellings-downs", "monopole", "dipole", "uncorrelated")
+
+
+class Draw(BaseModel):
+    """A per-pulsar random value: uniform or log-uniform between ``low`` and ``high``."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+    kind: Literal["uniform", "log_uniform"]
+    low: float
+    high: float
+
+    def sample(self, rng: np.random.Generator) -> float:
+        """One value from ``rng``."""
+        if self.kind == "uniform":
+            return float(rng.uniform(self.low, self.high))
+        return float(math.exp(rng.uniform(math.log(self.low), math.log(self.high))))
+
+
+def _quantity(unit: str | None):
+    """Before-validator reading a number (or unit string) into ``unit``."""
+    return (lambda v: to_unit(v, unit)) if unit else parse_number
+
+
+def _drawable(unit: str | None):
+    """Before-validator for a value that is a fixed quantity or a :class:`Draw` table."""
+    read = _quantity(unit)
+
+    def parse(value: Any):
+        if not isinstance(value, dict):
+            return read(value)
+        if len(value) != 1 or next(iter(value)) not in ("uniform", "log_uniform"):
+            raise ValueError("a drawn value is a table {uniform = [low, high]} or {log_uniform = [low, high]}")
+        kind, bounds = next(iter(value.items()))
+        if not isinstance(bounds, list) or len(bounds) != 2:
+            raise ValueError(f"{kind} needs a list of two bounds [low, high]")
+        low, high = (read(b) for b in bounds)
+        if not low < high:
+            raise ValueError(f"{kind} bounds need low < high, got [{low}, {high}]")
+        if kind == "log_uniform" and low <= 0:
+            raise ValueError("log_uniform bounds must be positive")
+        return Draw(kind=kind, low=low, high=high)
+
+    return parse
+
+
+def _at_least(bound: float, strict: bool = False):
+    """After-validator: a value, or both bounds of a draw, >= (or >) ``bound``."""
+    word = "positive" if (strict and bound == 0) else ("non-negative" if bound == 0 else f">= {bound}")
+
+    def check(value):
+        low = value.low if isinstance(value, Draw) else value
+        if low < bound or (strict and low == bound):
+            raise ValueError(f"must be {word}, got {low}")
+        return value
+
+    return check
+
+
+def Quantity(unit: str | None, *extra):
+    """Annotated float read in ``unit`` (``None`` for dimensionless)."""
+    return Annotated[(float, BeforeValidator(_quantity(unit)), *extra)]
+
+
+def Drawable(unit: str | None, *extra):
+    """Annotated fixed-or-drawn value read in ``unit``."""
+    return Annotated[(Union[float, Draw], BeforeValidator(_drawable(unit)), *extra)]
+
+
+def _at_most(bound: float):
+    """After-validator: a value, or both bounds of a draw, <= ``bound``."""
+
+    def check(value):
+        high = value.high if isinstance(value, Draw) else value
+        if high > bound:
+            raise ValueError(f"must be at most {bound:g}, got {high:g}")
+        return value
+
+    return check
+
+
+def _safe_name(name: str) -> str:
+    """A name usable as an HDF5 group and a file-name part: letters, digits and ``_ + - .``."""
+    if not NAME_PATTERN.fullmatch(name):
+        raise ValueError(
+            f"name {name!r} must be 1-64 characters of letters, digits, '_', '+', '-', '.', "
+            "starting with a letter or digit"
+        )
+    return name
+
+
+NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9_+\-.]{0,63}")
+SafeName = Annotated[str, AfterValidator(_safe_name)]
+MAX_COMPONENTS = 10_000
+MAX_TOAS = 1_000_000  #: per pulsar
+MJD_RANGE = (15_000.0, 100_000.0)  #: 1899 to 2132
+MaxAmplitude = AfterValidator(_at_most(1e-9))  # beyond this residuals exceed a second: surely a typo
+SpectralIndex = AfterValidator(lambda v: _at_least(-10.0)(_at_most(10.0)(v)))
+StartRange = AfterValidator(lambda v: _at_least(MJD_RANGE[0])(_at_most(MJD_RANGE[1])(v)))
+Count = Annotated[int, Strict()]
+Positive = AfterValidator(_at_least(0.0, strict=True))
+NonNegative = AfterValidator(_at_least(0.0))
+RightAscension = Annotated[float, BeforeValidator(parse_ra)]
+Declination = Annotated[float, BeforeValidator(parse_dec)]
+Gap = tuple[Quantity("d"), Quantity("d")]
+
+
+class _Section(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class RunSection(_Section):
+    """``[run]``: ``name`` labels outputs; ``seed`` (integer >= 0) makes the run reproducible.
+
+    Without a seed a fresh one is drawn and recorded in the dataset.
+    """
+
+    name: str = "ptares-run"
+    seed: Optional[Count] = Field(default=None, ge=0, le=2**63 - 1)
+
+
+class WhiteNoise(_Section):
+    """``[noise.white]``: TOA errors become ``(scale * error)^2 + quadrature^2``.
+
+    ``scale`` dimensionless (default 1), ``quadrature`` in microseconds (default 0); both drawable.
+    """
+
+    scale: Drawable(None, Positive) = 1.0
+    quadrature: Drawable("us", NonNegative) = 0.0
+
+
+class RedNoise(_Section):
+    """``[noise.red]``: intrinsic power-law red noise of each pulsar (zero amplitude: none).
+
+    ``amplitude`` (dimensionless, at f = 1/yr) and ``gamma`` are drawable;
+    ``components`` is the number of Fourier frequencies k/T.
+    """
+
+    amplitude: Drawable(None, NonNegative, MaxAmplitude) = 0.0
+    gamma: Drawable(None, SpectralIndex) = 13.0 / 3.0
+    components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+
+
+class NoiseSection(_Section):
+    white: WhiteNoise = WhiteNoise()
+    red: RedNoise = RedNoise()
+
+
+class WhiteOverride(_Section):
+    scale: Optional[Drawable(None, Positive)] = None
+    quadrature: Optional[Drawable("us", NonNegative)] = None
+
+
+class RedOverride(_Section):
+    amplitude: Optional[Drawable(None, NonNegative, MaxAmplitude)] = None
+    gamma: Optional[Drawable(None, SpectralIndex)] = None
+
+
+class Observing(_Section):
+    """``[observing]``: the schedule every pulsar follows unless it overrides a key.
+
+    ``start`` MJD; ``span`` years; ``cadence`` and ``cadence_jitter`` (standard
+    deviation of each epoch's offset) days; ``toa_error`` microseconds
+    (drawable); ``toa_error_scatter`` dex of log-normal scatter of each TOA's
+    error about it; ``gaps`` a list of ``[start, end]`` MJD ranges with no TOAs.
+    """
+
+    start: Quantity("d", StartRange) = 53005.0
+    span: Quantity("yr", Positive) = 10.0
+    cadence: Quantity("d", Positive) = 14.0
+    cadence_jitter: Quantity("d", NonNegative) = 0.0
+    toa_error: Drawable("us", Positive) = 1.0
+    toa_error_scatter: Quantity(None, NonNegative, AfterValidator(_at_most(2.0))) = 0.0
+    gaps: tuple[Gap, ...] = ()
+
+    @field_validator("gaps")
+    @classmethod
+    def _ordered_gaps(cls, gaps):
+        for start, end in gaps:
+            if not start < end:
+                raise ValueError(f"gap [{start}, {end}] must have start < end")
+        return gaps
+
+
+_OBSERVING_KEYS = ("start", "span", "cadence", "cadence_jitter", "toa_error", "toa_error_scatter", "gaps")
+
+
+class PulsarEntry(_Section):
+    """One pulsar of ``[array] pulsars``.
+
+    ``ra`` (degrees, or sexagesimal hours as a string) and ``dec`` (degrees, or
+    sexagesimal degrees); ``distance`` and ``distance_error`` in kpc.  Any
+    ``[observing]`` key given here overrides the default for this pulsar, and
+    ``white``/``red`` tables override ``[noise.white]``/``[noise.red]``.
+    """
+
+    name: SafeName
+    ra: RightAscension
+    dec: Declination
+    distance: Quantity("kpc", Positive) = 1.0
+    distance_error: Quantity("kpc", NonNegative) = 0.0
+    start: Optional[Quantity("d", StartRange)] = None
+    span: Optional[Quantity("yr", Positive)] = None
+    cadence: Optional[Quantity("d", Positive)] = None
+    cadence_jitter: Optional[Quantity("d", NonNegative)] = None
+    toa_error: Optional[Drawable("us", Positive)] = None
+    toa_error_scatter: Optional[Quantity(None, NonNegative, AfterValidator(_at_most(2.0)))] = None
+    gaps: Optional[tuple[Gap, ...]] = None
+    white: WhiteOverride = WhiteOverride()
+    red: RedOverride = RedOverride()
+
+
+class RandomArray(_Section):
+    """``[array] random``: ``count`` pulsars placed isotropically on the sky.
+
+    Named ``<prefix>001``...; ``distance`` and ``distance_error`` in kpc, drawable.
+    """
+
+    count: Count = Field(ge=1, le=100_000)
+    prefix: SafeName = "RP"
+    distance: Drawable("kpc", Positive) = 1.0
+    distance_error: Drawable("kpc", NonNegative) = 0.0
+
+
+class ArraySection(_Section):
+    """``[array]``: a list of ``pulsars``, a ``random`` array, or plain tables.
+
+    ``table`` (TOAs) and ``catalogue`` (pulsars) are CSV files, relative to the
+    config file (see :mod:`ptares.tables`); ``mode = "schedule"`` takes only
+    their epochs and errors, ``"inject"`` keeps their residuals and adds the
+    configured signals.  ``window`` = [first MJD, last MJD] sets the span T of
+    the Fourier basis (default: the TOAs' extent).  ``signals`` names a JSON
+    file of injected-signal parameters that ``ptares import`` restores (written
+    by ``ptares export``).
+
+    ``vary_distances``: draw each pulsar's true distance (used by pulsar terms)
+    from a normal distribution of the catalogued ``distance`` and ``distance_error``.
+    """
+
+    pulsars: Optional[tuple[PulsarEntry, ...]] = None
+    random: Optional[RandomArray] = None
+    table: Optional[str] = None
+    catalogue: Optional[str] = None
+    mode: Literal["schedule", "inject"] = "schedule"
+    window: Optional[tuple[Quantity("d"), Quantity("d")]] = None
+    signals: Optional[str] = None
+    vary_distances: bool = False
+
+    @model_validator(mode="after")
+    def _one_kind(self):
+        kinds = [k for k in ("pulsars", "random", "table") if getattr(self, k) is not None]
+        if len(kinds) != 1:
+            raise ValueError("give exactly one of 'pulsars', 'random' or 'table' (with 'catalogue')")
+        if (self.table is None) != (self.catalogue is None):
+            raise ValueError("'table' and 'catalogue' go together")
+        if self.window is not None and not self.window[0] < self.window[1]:
+            raise ValueError("window needs [first MJD, last MJD] with first < last")
+        if self.pulsars is not None:
+            if not self.pulsars:
+                raise ValueError("the array has no pulsars")
+            names = [p.name for p in self.pulsars]
+            repeated = sorted({n for n in names if names.count(n) > 1})
+            if repeated:
+                raise ValueError(f"pulsar names repeat: {', '.join(repeated)}")
+        return self
+
+
+class TimingModel(_Section):
+    """``[timing_model]``: the terms fitted out of each pulsar's residuals."""
+
+    fit: tuple[Literal[TIMING_TERMS], ...] = ("offset", "spin_frequency", "spin_down")
+
+    @field_validator("fit")
+    @classmethod
+    def _unique(cls, terms):
+        if len(set(terms)) != len(terms):
+            raise ValueError("a term is listed twice")
+        return terms
+
+
+class Background(_Section):
+    """``[gwb]``: a stochastic background with a power-law spectrum.
+
+    ``amplitude`` of the characteristic strain at f = 1/yr; ``gamma`` the
+    residual spectral index (13/3 for circular binaries); ``components`` the
+    number of Fourier frequencies k/T; ``correlation`` the inter-pulsar pattern.
+    ``source = "binaries"`` builds it from about ``binaries`` circular binaries
+    across the band instead of Gaussian Fourier coefficients;
+    ``loudness_spread`` (dex) scatters their amplitudes log-normally.
+    """
+
+    amplitude: Quantity(None, NonNegative, MaxAmplitude)
+    gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
+    components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    correlation: Literal[CORRELATIONS] = "hellings-downs"
+    source: Literal["gaussian", "binaries"] = "gaussian"
+    binaries: Count = Field(default=1000, ge=1, le=1_000_000)
+    loudness_spread: Quantity(None, NonNegative) = 0.0
+
+    @model_validator(mode="after")
+    def _binaries_are_hellings_downs(self):
+        if self.source == "binaries" and self.correlation != "hellings-downs":
+            raise ValueError("a background of binaries has the hellings-downs correlation; drop 'correlation'")
+        return self
+
+
+class ContinuousWave(_Section):
+    """One ``[[cw]]`` source: a circular supermassive black-hole binary.
+
+    ``chirp_mass`` in solar masses; ``distance`` (luminosity) in Mpc, or the
+    strain amplitude ``strain`` (h0) instead; ``frequency`` (GW, twice the
+    orbital) or ``orbital_frequency`` in nHz, at the array's first epoch;
+    ``ra``/``dec`` as for pulsars; ``inclination`` (in [0, pi]),
+    ``polarization`` and ``phase`` (orbital phase at the first epoch) in
+    radians; ``evolve`` switches radiation-reaction evolution, ``pulsar_term``
+    the pulsar term.
+    """
+
+    name: Optional[SafeName] = None
+    chirp_mass: Optional[Quantity("solMass", Positive)] = None
+    distance: Optional[Quantity("Mpc", Positive)] = None
+    strain: Optional[Quantity(None, Positive, MaxAmplitude)] = None
+    frequency: Optional[Quantity("nHz", Positive)] = None
+    orbital_frequency: Optional[Quantity("nHz", Positive)] = None
+    ra: RightAscension
+    dec: Declination
+    inclination: Quantity("rad") = 0.0
+    polarization: Quantity("rad") = 0.0
+    phase: Quantity("rad") = 0.0
+    evolve: bool = True
+    pulsar_term: bool = True
+
+    @field_validator("inclination")
+    @classmethod
+    def _inclination_range(cls, value):
+        if not 0.0 <= value <= math.pi:
+            raise ValueError(f"inclination {value} rad is outside [0, pi]")
+        return value
+
+    @model_validator(mode="after")
+    def _complete(self):
+        if (self.frequency is None) == (self.orbital_frequency is None):
+            raise ValueError("give either 'frequency' (GW) or 'orbital_frequency', not both or neither")
+        if (self.distance is None) == (self.strain is None):
+            raise ValueError("give either 'distance' or 'strain', not both or neither")
+        if self.chirp_mass is None and (self.distance is not None or self.evolve):
+            need = "'distance'" if self.distance is not None else "'evolve = true'"
+            raise ValueError(f"'chirp_mass' is needed with {need}")
+        return self
+
+    @property
+    def gw_frequency_hz(self) -> float:
+        """GW frequency in Hz (twice the orbital frequency)."""
+        return (self.frequency if self.frequency is not None else 2.0 * self.orbital_frequency) * 1e-9
+
+
+class PulsarNoise(_Section):
+    """Per-pulsar overrides in ``[correlate.noise_values.pulsars.<name>]`` (quadrature in microseconds)."""
+
+    white_scale: Optional[Quantity(None, Positive)] = None
+    white_quadrature: Optional[Quantity("us", NonNegative)] = None
+    red_amplitude: Optional[Quantity(None, NonNegative, MaxAmplitude)] = None
+    red_gamma: Optional[Quantity(None, SpectralIndex)] = None
+
+    def given(self) -> dict:
+        return {k: v for k, v in self.model_dump().items() if v is not None}
+
+
+class CorrelateNoise(_Section):
+    """``[correlate.noise_values]``: noise values when ``noise = "values"`` (quadrature in microseconds).
+
+    ``pulsars`` maps pulsar names to tables overriding any of the per-pulsar keys.
+    """
+
+    white_scale: Quantity(None, Positive) = 1.0
+    white_quadrature: Quantity("us", NonNegative) = 0.0
+    red_amplitude: Quantity(None, NonNegative, MaxAmplitude) = 0.0
+    red_gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
+    red_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    common_amplitude: Quantity(None, NonNegative, MaxAmplitude) = 0.0
+    common_gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
+    common_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    pulsars: dict[str, "PulsarNoise"] = {}
+
+
+class CorrelateSection(_Section):
+    """``[correlate]``: settings of ``ptares correlate``.
+
+    ``gamma`` and ``components`` shape the template (default: the injected
+    background's, else 13/3 and 30); ``noise`` is ``"injected"`` (the dataset's
+    truth), ``"values"`` (``[correlate.noise_values]``) or ``"posterior"``
+    (``draws`` samples of a ``ptares fit`` whose ``chains.h5`` is ``chains``: the
+    noise-marginalised statistic); ``bins`` angular bins;
+    ``scrambles`` and ``phase_shifts`` null trials (0 for none) with
+    ``scramble_threshold`` the largest match a kept scramble may have;
+    ``fit_trials`` simulations that calibrate the fit-quality p-value; ``seed``
+    for the nulls and those simulations.
+    """
+
+    gamma: Optional[Quantity(None, SpectralIndex)] = None
+    components: Optional[Count] = Field(default=None, ge=1, le=MAX_COMPONENTS)
+    noise: Literal["injected", "values", "posterior"] = "injected"
+    chains: Optional[str] = None
+    draws: Count = Field(default=50, ge=1, le=100_000)
+    bins: Count = Field(default=8, ge=2, le=90)
+    scrambles: Count = Field(default=100, ge=0, le=100_000)
+    phase_shifts: Count = Field(default=100, ge=0, le=100_000)
+    scramble_threshold: Quantity(None, Positive, AfterValidator(_at_most(1.0))) = 0.1
+    fit_trials: Count = Field(default=500, ge=0, le=1_000_000)
+    seed: Count = Field(default=0, ge=0, le=2**63 - 1)
+    overlays: bool = False
+    noise_values: CorrelateNoise = CorrelateNoise()
+
+    @model_validator(mode="after")
+    def _chains_for_posterior(self):
+        if self.noise == "posterior" and not self.chains:
+            raise ValueError("noise = 'posterior' needs 'chains', the chains.h5 of a ptares fit")
+        return self
+
+
+class Prior(BaseModel):
+    """A prior: exactly one of ``uniform = [low, high]``, ``log_uniform = [low, high]``
+    (density 1/x) or ``normal = [mean, sd]`` (optionally truncated to ``bounds = [low, high]``)."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+    uniform: Optional[tuple[float, float]] = None
+    log_uniform: Optional[tuple[float, float]] = None
+    normal: Optional[tuple[float, float]] = None
+    bounds: Optional[tuple[float, float]] = None
+
+    @model_validator(mode="after")
+    def _one_kind(self):
+        given = [k for k in ("uniform", "log_uniform", "normal") if getattr(self, k) is not None]
+        if len(given) != 1:
+            raise ValueError("a prior is exactly one of uniform, log_uniform or normal")
+        kind = given[0]
+        first, second = getattr(self, kind)
+        if kind == "normal":
+            if second <= 0:
+                raise ValueError(f"normal prior needs a positive sd, got {second}")
+            if self.bounds is not None and not self.bounds[0] < self.bounds[1]:
+                raise ValueError(f"bounds need lower < upper, got {list(self.bounds)}")
+        else:
+            if self.bounds is not None:
+                raise ValueError("'bounds' goes with a normal prior only")
+            if not first < second:
+                raise ValueError(f"{kind} prior needs lower < upper, got [{first}, {second}]")
+            if kind == "log_uniform" and first <= 0:
+                raise ValueError("log_uniform bounds must be positive")
+        return self
+
+
+class FitSection(_Section):
+    """``[fit]``: the model ``ptares fit`` samples and how.
+
+    ``common``: the common process, ``"uncorrelated"``, ``"hellings-downs"`` or
+    ``"none"``, on ``components`` frequencies; ``red``: each pulsar's red noise
+    ``"free"``, ``"injected"`` (fixed at the dataset's truth) or ``"none"``, on
+    ``red_components`` frequencies; ``white``: ``"injected"`` or ``"free"``;
+    ``cw``: fit a continuous wave, with parameters ``cw_free`` free and the rest
+    from ``cw_values`` (else the dataset's first injected source).  ``fixed``
+    pins any parameter to a value; ``priors`` replaces default priors (keys are
+    parameter names, or a per-pulsar name without the pulsar, e.g.
+    ``red_log10_A``).  Sampler: ``walkers`` (0: automatic), ``max_steps``, stop
+    when the chain is longer than ``autocorr_factor`` autocorrelation times,
+    ``thin``, ``burn`` (default two autocorrelation times), ``start`` at draws
+    from the prior or near the maximum posterior, ``seed``, ``workers``
+    (processes for likelihood calls; 1: none).  ``pulsars`` limits the fit to
+    those pulsars.
+    """
+
+    common: Literal["uncorrelated", "hellings-downs", "none"] = "uncorrelated"
+    components: Optional[Count] = Field(default=None, ge=1, le=MAX_COMPONENTS)
+    red: Optional[Literal["free", "injected", "none"]] = None
+    red_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    white: Literal["injected", "free"] = "injected"
+    cw: bool = False
+    cw_free: tuple[Literal["log10_h0", "phase", "cos_inclination", "polarization", "ra", "sin_dec", "log10_frequency"], ...] = (
+        "log10_h0", "phase", "cos_inclination", "polarization")
+    cw_values: dict[str, float] = {}
+    cw_pulsar_term: bool = False
+
+    @field_validator("cw_free")
+    @classmethod
+    def _unique_free(cls, names):
+        if len(set(names)) != len(names):
+            raise ValueError("a parameter is listed twice")
+        return names
+    fixed: dict[str, float] = {}
+    priors: dict[str, Prior] = {}
+    pulsars: Optional[tuple[str, ...]] = None
+    walkers: Count = Field(default=0, ge=0, le=10_000)
+    max_steps: Count = Field(default=20_000, ge=10, le=10_000_000)
+    autocorr_factor: Quantity(None, Positive) = 50.0
+    thin: Count = Field(default=1, ge=1)
+    burn: Optional[Count] = Field(default=None, ge=0)
+    start: Literal["prior", "map"] = "prior"
+    seed: Count = Field(default=0, ge=0, le=2**63 - 1)
+    workers: Count = Field(default=1, ge=1, le=256)
+
+
+class SweepDask(_Section):
+    """``[sweep.dask]``: run on a Dask cluster at ``scheduler`` (an address such as ``tcp://host:8786``)."""
+
+    scheduler: str
+
+
+class SweepSection(_Section):
+    """``[sweep]``: an injection-recovery campaign over this config.
+
+    ``axes`` maps dotted config keys (``gwb.amplitude``, ``array.random.count``)
+    to lists of values; ``grid = true`` runs every combination, ``false`` zips
+    lists of equal length.  Each combination runs ``realisations`` times with
+    seeds derived from ``seed`` and the task's index.  ``stages`` says what each
+    task runs; ``false_alarm`` is the false-alarm probability of the detection
+    threshold set from the tasks without a background.  ``base`` names another
+    config file whose tables this file's tables override.
+    """
+
+    axes: dict[str, list] = {}
+    grid: bool = True
+    realisations: Count = Field(default=10, ge=1, le=1_000_000)
+    stages: tuple[Literal["simulate", "correlate", "fit"], ...] = ("simulate", "correlate")
+    seed: Count = Field(default=0, ge=0, le=2**63 - 1)
+    false_alarm: Quantity(None, Positive, AfterValidator(_at_most(0.5))) = 0.05
+    base: Optional[str] = None
+    dask: Optional[SweepDask] = None
+
+    @model_validator(mode="after")
+    def _shape(self):
+        if "simulate" not in self.stages:
+            raise ValueError("every task simulates its data: 'simulate' must be among the stages")
+        for key, values in self.axes.items():
+            if not isinstance(values, list) or not values:
+                raise ValueError(f"axis {key!r} needs a non-empty list of values")
+        if not self.grid and len({len(v) for v in self.axes.values()}) > 1:
+            raise ValueError("with grid = false every axis needs the same number of values")
+        return self
+
+
+class Config(_Section):
+    """A whole validated run configuration."""
+
+    run: RunSection = RunSection()
+    array: ArraySection
+    observing: Observing = Observing()
+    noise: NoiseSection = NoiseSection()
+    timing_model: TimingModel = TimingModel()
+    gwb: Optional[Background] = None
+    cw: tuple[ContinuousWave, ...] = ()
+    correlate: CorrelateSection = CorrelateSection()
+    fit: FitSection = FitSection()
+    sweep: Optional[SweepSection] = None
+
+    _text: str = PrivateAttr(default="")
+    _path: Optional[Path] = PrivateAttr(default=None)
+
+    @model_validator(mode="after")
+    def _consistent(self):
+        # InputError is not wrapped by pydantic: it reaches the caller with its field path
+        _check_schedules(self)
+        _check_sources(self)
+        return self
+
+    @property
+    def source_text(self) -> str:
+        """The TOML text this config was read from."""
+        return self._text
+
+    @property
+    def source_path(self) -> Optional[Path]:
+        """The file this config was read from, if any."""
+        return self._path
+
+    def observing_for(self, pulsar: PulsarEntry) -> Observing:
+        """The ``[observing]`` settings with ``pulsar``'s overrides applied."""
+        overrides = {k: getattr(pulsar, k) for k in _OBSERVING_KEYS if getattr(pulsar, k) is not None}
+        return self.observing.model_copy(update=overrides)
+
+    def schedules(self) -> list[Observing]:
+        """Each pulsar's observing settings (one entry for a random array: all share it)."""
+        if self.array.pulsars is None:
+            return [self.observing]
+        return [self.observing_for(p) for p in self.array.pulsars]
+
+    def resolve(self, relative: str) -> Path:
+        """A path from the config, relative to the config file's folder."""
+        path = Path(relative)
+        if path.is_absolute() or self._path is None:
+            return path
+        return self._path.parent / path
+
+    def cw_name(self, index: int) -> str:
+        """The name of ``[[cw]]`` source ``index``: its own, or ``cw<index + 1>``."""
+        return self.cw[index].name or f"cw{index + 1}"
+
+
+def _location(loc: tuple, raw: dict) -> str:
+    """``('array', 'pulsars', 2, 'dec')`` -> ``array.pulsars[2] (NAME).dec``."""
+    text = ""
+    node: Any = raw
+    for part in loc:
+        if isinstance(part, int):
+            text += f"[{part}]"
+            try:
+                node = node[part]
+                if isinstance(node, dict) and "name" in node:
+                    text += f" ({node['name']})"
+            except (IndexError, KeyError, TypeError):
+                node = None
+        else:
+            text += ("." if text else "") + str(part)
+            node = node.get(part) if isinstance(node, dict) else None
+    return text
+
+
+def _message(error: dict) -> str:
+    kind = error["type"]
+    if kind == "extra_forbidden":
+        return "unknown key"
+    if kind == "missing":
+        return "required key is missing"
+    message = error["msg"]
+    for prefix in ("Value error, ", "Assertion failed, "):
+        if message.startswith(prefix):
+            message = message[len(prefix):]
+    return message
+
+
+def _nominal_epochs(obs: Observing) -> int:
+    """Epochs a schedule has before jitter, outside its gaps."""
+    span_days = obs.span * 365.25
+    count = int(math.floor(span_days / obs.cadence)) + 1
+    if count > MAX_TOAS:
+        return count
+    epochs = obs.start + obs.cadence * np.arange(count)
+    keep = np.ones(count, dtype=bool)
+    for gap_start, gap_end in obs.gaps:
+        keep &= ~((epochs >= gap_start) & (epochs <= gap_end))
+    return int(keep.sum())
+
+
+def _check_schedules(config: Config) -> None:
+    """Cross-field checks of every pulsar's schedule, naming the offending key."""
+    from ptares.physics.timing_model import column_names
+
+    columns = len(column_names(config.timing_model.fit))
+    if config.array.table is not None:
+        return  # the tables are checked when they are read
+    entries = config.array.pulsars or (None,)
+    for i, pulsar in enumerate(entries):
+        obs = config.observing if pulsar is None else config.observing_for(pulsar)
+
+        def where(key):  # the pulsar's own key if it overrides it, else the [observing] default
+            if pulsar is not None and getattr(pulsar, key) is not None:
+                return f"array.pulsars[{i}] ({pulsar.name}).{key}"
+            return f"observing.{key}"
+
+        if obs.span * 365.25 <= obs.cadence:
+            raise InputError(f"span ({obs.span} yr) is not longer than the cadence ({obs.cadence} d)", where("span"))
+        count = _nominal_epochs(obs)
+        if count > MAX_TOAS:
+            raise InputError(f"{count} TOAs per pulsar is more than ptares handles ({MAX_TOAS})", where("cadence"))
+        if obs.cadence_jitter > obs.cadence:
+            raise InputError(
+                f"cadence_jitter ({obs.cadence_jitter} d) is larger than the cadence ({obs.cadence} d)", where("cadence_jitter")
+            )
+        if count <= columns:
+            name = "" if pulsar is None else f" for {pulsar.name}"
+            raise InputError(
+                f"leaves {count} TOAs{name}, not more than the {columns} timing-model columns",
+                where("gaps" if obs.gaps else "span"),
+            )
+
+
+def _check_sources(config: Config) -> None:
+    """Continuous-wave sources against the array's span and cadence (errors), and unusual physics (warnings)."""
+    from ptares.physics.binaries import time_to_coalescence
+    from ptares.physics.constants import DAY, KPC, M_SUN, YEAR
+
+    if config.array.table is not None and config.cw:
+        return  # epochs come from the table: checked when the table is read
+    schedules = config.schedules()
+    first = min(s.start for s in schedules)
+    span = max(s.start + s.span * YEAR / DAY for s in schedules) - first  # days
+    nyquist = 1.0 / (2.0 * min(s.cadence for s in schedules) * DAY)
+    names = [config.cw_name(i) for i in range(len(config.cw))]
+    for i, source in enumerate(config.cw):
+        path = f"cw[{i}] ({config.cw_name(i)})"
+        if names.count(names[i]) > 1:
+            raise InputError("source names must be unique", f"{path}.name")
+        key = "frequency" if source.frequency is not None else "orbital_frequency"
+        f = source.gw_frequency_hz
+        if f * span * DAY < 1.0:
+            raise InputError(f"GW frequency {f * 1e9:.4g} nHz completes no full cycle in the {span / 365.25:.3g}-yr span", f"{path}.{key}")
+        if f > nyquist:
+            raise InputError(f"GW frequency {f * 1e9:.4g} nHz is above the cadence's Nyquist frequency {nyquist * 1e9:.4g} nHz", f"{path}.{key}")
+        if source.evolve:
+            tau = float(time_to_coalescence(source.chirp_mass * M_SUN, f))
+            if tau <= span * DAY:
+                raise InputError(f"the binary merges {tau / YEAR:.3g} yr after the first epoch, within the span", f"{path}.chirp_mass")
+            if tau < 10 * span * DAY:
+                warnings.warn(f"{path}: the binary merges {tau / YEAR:.3g} yr after the first epoch; its frequency evolves strongly", PhysicsWarning, stacklevel=2)
+        if source.distance is not None:
+            from ptares.physics.binaries import strain_amplitude
+
+            h0 = float(strain_amplitude(source.chirp_mass * M_SUN, f, source.distance * 1e3 * KPC))
+            if h0 > 1e-9:
+                raise InputError(f"chirp mass and distance give h0 = {h0:.3g}, above 1e-9: surely a typo", f"{path}.distance")
+        if source.chirp_mass is not None and source.chirp_mass > 1e11:
+            warnings.warn(f"{path}: chirp mass {source.chirp_mass:.3g} solar masses is unusually large", PhysicsWarning, stacklevel=2)
+
+
+def validation_error(exc: ValidationError, raw: dict, where: str, prefix: tuple = ()) -> InputError:
+    first = exc.errors()[0]
+    loc = prefix + tuple(p for p in first["loc"] if not (isinstance(p, str) and p.startswith("function-")))
+    return InputError(_message(first), f"{where}: {_location(loc, raw)}" if loc else where)
+
+
+def load_correlate_section(path) -> CorrelateSection:
+    """The ``[correlate]`` table of the TOML file at ``path`` (other tables are not read)."""
+    return load_section(path, "correlate", CorrelateSection)
+
+
+def read_text(path, encoding: str = "utf-8") -> str:
+    """The text of the file at ``path``; a missing or unreadable file is an :class:`InputError` naming it."""
+    try:
+        return Path(path).read_text(encoding=encoding)
+    except FileNotFoundError:
+        raise InputError("file not found", str(path)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read file ({exc.__class__.__name__}: {exc})", str(path)) from None
+
+
+def read_toml(path) -> dict:
+    """The TOML file at ``path`` as data; every reading fault is an :class:`InputError` naming the file."""
+    try:
+        return tomllib.loads(read_text(path))
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML: {exc}", str(path)) from None
+
+
+def with_overrides(section, overrides: dict, option_prefix: str = "--"):
+    """``section`` (a pydantic model) with ``overrides`` applied and validated; faults name the option."""
+    if not overrides:
+        return section
+    try:
+        return type(section).model_validate({**section.model_dump(), **overrides})
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        raise InputError(_message(first), option_prefix + str(first["loc"][0]).replace("_", "-")) from None
+
+
+def load_section(path, name: str, model):
+    """The ``[name]`` table of the TOML file at ``path`` validated by ``model`` (other tables are not read)."""
+    path = Path(path)
+    raw = read_toml(path)
+    if name not in raw:
+        raise InputError(f"has no [{name}] table", str(path))
+    try:
+        return model.model_validate(raw[name])
+    except ValidationError as exc:
+        raise validation_error(exc, raw, str(path), (name,)) from None
+
+
+def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None) -> Config:
+    """Validate TOML ``text``; ``where`` names it in error messages."""
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML: {exc}", where) from None
+    try:
+        config = Config.model_validate(raw)
+    except ValidationError as exc:
+        raise validation_error(exc, raw, where) from None
+    except InputError as exc:
+        raise InputError(exc.message, f"{where}: {exc.where}") from None
+    config._text = text
+    config._path = path
+    return config
+
+
+def load_config(path) -> Config:
+    """Read and validate the TOML config at ``path``."""
+    path = Path(path)
+    return parse_config(read_text(path), where=str(path), path=path)

@@ -1,0 +1,103 @@
+"""Power-law spectra of stochastic signals and the conversions between them.
+
+Conventions (PHYSICS.md, "Stochastic background"; Phinney 2001; Jenet et al. 2006):
+
+* characteristic strain ``h_c(f) = A (f / f_yr)^alpha``;
+* one-sided residual power spectral density
+  ``S(f) = h_c^2 / (12 pi^2 f^3) = A^2 / (12 pi^2) f_yr^-3 (f / f_yr)^-gamma`` in s^2/Hz,
+  with ``gamma = 3 - 2 alpha``;
+* energy density ``Omega_gw(f) = 2 pi^2 f^2 h_c^2 / (3 H0^2)``;
+* Fourier basis ``f_k = k / T``, k = 1..N, with sine and cosine coefficients of
+  variance ``S(f_k) / T`` each, so that the residual variance before any fit is
+  ``sum_k S(f_k) / T``.
+
+Intrinsic red noise of a pulsar uses the same power-law form with its own
+amplitude and index.  Frequencies are in Hz, spans in seconds.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ptares.physics.constants import F_YR
+
+__all__ = [
+    "gamma_from_alpha",
+    "alpha_from_gamma",
+    "characteristic_strain",
+    "residual_psd",
+    "residual_psd_from_strain",
+    "strain_from_residual_psd",
+    "omega_gw",
+    "strain_from_omega_gw",
+    "fourier_frequencies",
+    "coefficient_variance",
+]
+
+
+def gamma_from_alpha(alpha):
+    """Residual spectral index ``gamma = 3 - 2 alpha``."""
+    return 3.0 - 2.0 * np.asarray(alpha, dtype=float)
+
+
+def alpha_from_gamma(gamma):
+    """Strain spectral index ``alpha = (3 - gamma) / 2``."""
+    return 0.5 * (3.0 - np.asarray(gamma, dtype=float))
+
+
+def characteristic_strain(f, amplitude, gamma=13.0 / 3.0):
+    """Characteristic strain ``A (f / f_yr)^alpha`` of a power law of residual index ``gamma``."""
+    return amplitude * (np.asarray(f, dtype=float) / F_YR) ** alpha_from_gamma(gamma)
+
+
+def residual_psd(f, amplitude, gamma=13.0 / 3.0):
+    """One-sided residual power spectral density (s^2/Hz) of a power law."""
+    f = np.asarray(f, dtype=float)
+    return amplitude**2 / (12.0 * np.pi**2) * F_YR**-3 * (f / F_YR) ** (-np.asarray(gamma, dtype=float))
+
+
+def residual_psd_from_strain(f, h_c):
+    """Residual PSD ``h_c^2 / (12 pi^2 f^3)`` from characteristic strain at ``f``."""
+    f = np.asarray(f, dtype=float)
+    return np.asarray(h_c, dtype=float) ** 2 / (12.0 * np.pi**2 * f**3)
+
+
+def strain_from_residual_psd(f, psd):
+    """Characteristic strain from a residual PSD (inverse of :func:`residual_psd_from_strain`)."""
+    f = np.asarray(f, dtype=float)
+    return np.sqrt(12.0 * np.pi**2 * f**3 * np.asarray(psd, dtype=float))
+
+
+def _hubble_constant_si(hubble_constant):
+    if hubble_constant is None:
+        from astropy.cosmology import Planck18
+
+        return float(Planck18.H0.to_value("1/s"))
+    return float(hubble_constant)
+
+
+def omega_gw(f, h_c, hubble_constant=None):
+    """Energy density per log frequency over the closure density.
+
+    ``hubble_constant`` in 1/s; the default is astropy's Planck 2018 value.
+    """
+    h0 = _hubble_constant_si(hubble_constant)
+    f = np.asarray(f, dtype=float)
+    return 2.0 * np.pi**2 * f**2 * np.asarray(h_c, dtype=float) ** 2 / (3.0 * h0**2)
+
+
+def strain_from_omega_gw(f, omega, hubble_constant=None):
+    """Characteristic strain from ``Omega_gw`` (inverse of :func:`omega_gw`)."""
+    h0 = _hubble_constant_si(hubble_constant)
+    f = np.asarray(f, dtype=float)
+    return np.sqrt(3.0 * h0**2 * np.asarray(omega, dtype=float) / (2.0 * np.pi**2 * f**2))
+
+
+def fourier_frequencies(span: float, components: int) -> np.ndarray:
+    """Basis frequencies ``k / span`` for k = 1..components (Hz; span in s)."""
+    return np.arange(1, components + 1) / span
+
+
+def coefficient_variance(span: float, components: int, amplitude: float, gamma: float) -> np.ndarray:
+    """Variance ``S(f_k) / T`` (s^2) of each sine and each cosine coefficient."""
+    return residual_psd(fourier_frequencies(span, components), amplitude, gamma) / span
