@@ -37,8 +37,8 @@ def naive_pair(data, noise, a, b, template):
         p = data.pulsars[index]
         t = (p.mjd - data.start_mjd) * 86400.0
         F = fourier_basis(t, data.span, COMPONENTS)
-        prior = np.repeat(coefficient_variance(data.span, COMPONENTS, noise.red_amplitude[index], noise.red_gamma[index])
-                          + coefficient_variance(data.span, COMPONENTS, noise.common_amplitude, noise.common_gamma), 2)
+        prior = np.repeat(coefficient_variance(data.span, COMPONENTS, noise.red_amplitude[index], noise.red_spectral_index[index])
+                          + coefficient_variance(data.span, COMPONENTS, noise.common_amplitude, noise.common_spectral_index), 2)
         covariance = np.diag(noise.white_sigma(index, p.errors) ** 2) + (F * prior) @ F.T
         u, _, _ = np.linalg.svd(p.design_matrix, full_matrices=True)
         G = u[:, p.design_matrix.shape[1]:]

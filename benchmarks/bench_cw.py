@@ -19,7 +19,7 @@ import numpy as np
 from common import best_of
 
 from ptares.physics.constants import YEAR
-from ptares.simulation.kernels import cw_residuals, cw_residuals_reference
+from ptares.simulation.kernels import wave_residuals, wave_residuals_reference
 
 PULSARS, TOAS, SOURCES = 100, 2000, 1000
 
@@ -44,18 +44,18 @@ def inputs(pulsars, rng):
 def main():
     rng = np.random.default_rng(0)
     full = inputs(PULSARS, rng)
-    cw_residuals(*inputs(2, rng))  # compile
+    wave_residuals(*inputs(2, rng))  # compile
     phases = rng.uniform(0, 300, SOURCES * TOAS)
 
     def numpy_floor():
         for _ in range(2 * PULSARS):  # Earth and pulsar term for every pulsar
             np.sin(phases)
 
-    t_kernel = best_of(lambda: cw_residuals(*full))
+    t_kernel = best_of(lambda: wave_residuals(*full))
     t_floor = best_of(numpy_floor, repeats=2)
     part = inputs(10, np.random.default_rng(1))
-    t_kernel_part = best_of(lambda: cw_residuals(*part))
-    t_twin_part = best_of(lambda: cw_residuals_reference(*part), repeats=1)
+    t_kernel_part = best_of(lambda: wave_residuals(*part))
+    t_twin_part = best_of(lambda: wave_residuals_reference(*part), repeats=1)
 
     print(f"case: {PULSARS} pulsars x {TOAS} TOAs x {SOURCES} binaries, Earth and pulsar terms")
     print(f"numba kernel                        {t_kernel:8.3f} s")

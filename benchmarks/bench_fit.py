@@ -31,10 +31,10 @@ def main():
     config = regular_array(PULSARS, TOAS, COMPONENTS, seed=3, toa_error_us=0.5)
     data = simulate(config)
     ones, zeros = np.ones(PULSARS), np.zeros(PULSARS)
-    red_amplitude, red_gamma = np.full(PULSARS, 1e-15), np.full(PULSARS, 13 / 3)
+    red_amplitude, red_spectral_index = np.full(PULSARS, 1e-15), np.full(PULSARS, 13 / 3)
     correlated = Likelihood(data, COMPONENTS, COMPONENTS, True)
     uncorrelated = Likelihood(data, COMPONENTS, COMPONENTS, False)
-    arguments = (ones, zeros, red_amplitude, red_gamma, 2.4e-15, 13 / 3)
+    arguments = (ones, zeros, red_amplitude, red_spectral_index, 2.4e-15, 13 / 3)
     correlated(*arguments), uncorrelated(*arguments)  # fill the white-noise caches
 
     size = PULSARS * 2 * COMPONENTS

@@ -25,7 +25,7 @@ def regular_array(pulsars: int, toas: int, frequencies: int, seed: int, toa_erro
             "run": {"seed": seed},
             "array": {"random": {"count": pulsars}},
             "observing": {"start": 53000, "span": 10.0, "cadence": span_days / (toas - 1), "toa_error": toa_error_us},
-            "noise": {"red": {"amplitude": 1e-15, "components": frequencies}},
-            "gwb": {"amplitude": 2.4e-15, "components": frequencies},
+            "noise": {"red": {"amplitude": 1e-15, "harmonics": frequencies}},
+            "gwb": {"amplitude": 2.4e-15, "harmonics": frequencies},
         }
     )

@@ -16,7 +16,7 @@ def small_config(**overrides) -> Config:
         "run": {"name": "test", "seed": 11},
         "array": {"random": {"count": 6}},
         "observing": {"start": 53000.0, "span": 6.0, "cadence": 30.0, "toa_error": 0.5},
-        "gwb": {"amplitude": 2e-15, "components": 10},
+        "gwb": {"amplitude": 2e-15, "harmonics": 10},
     }
     raw.update(copy.deepcopy(overrides))
     raw = {k: v for k, v in raw.items() if v is not None}
@@ -49,7 +49,7 @@ toa_error = "300 ns"
 
 [gwb]
 amplitude = 3e-15
-components = 8
+harmonics = 8
 """
 
 

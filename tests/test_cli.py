@@ -106,7 +106,7 @@ def test_zero_amplitude_background_and_many_pulsars_figures(tmp_path, recwarn):
     config = tmp_path / "many.toml"
     config.write_text(
         '[run]\nseed = 1\n[array]\nrandom = {count = 55}\n[observing]\nspan = 3\ncadence = 60\n'
-        "[gwb]\namplitude = 0\ncomponents = 3\n"
+        "[gwb]\namplitude = 0\nharmonics = 3\n"
     )
     out = tmp_path / "out"
     assert main(["simulate", str(config), "--out", str(out)]) == 0

@@ -54,7 +54,7 @@ gamma = {uniform = [2, 6]}
     x, y = build_array(config, 3)
     assert x.white_scale == 2.0 and y.white_scale == 1.0
     assert x.white_quadrature == pytest.approx(1e-7, rel=1e-6, abs=0)
-    assert x.red_gamma == 3.0 and 2 <= y.red_gamma <= 6
+    assert x.red_spectral_index == 3.0 and 2 <= y.red_spectral_index <= 6
     assert 1e-16 <= x.red_amplitude <= 1e-14 and x.red_amplitude != y.red_amplitude
     # the same seed draws the same values
     assert build_array(config, 3) == [x, y]
@@ -77,7 +77,7 @@ BASE = SMALL_TOML
         ("[gwb]", "[gwb]\ncolour = 3", "gwb.colour", "unknown key"),
         ("[run]", "[run]\nspeed = 1", "run.speed", "unknown key"),
         ("seed = 5", 'seed = "five"', "run.seed", "integer"),
-        ("components = 8", "components = 2.5", "gwb.components", "integer"),
+        ("harmonics = 8", "harmonics = 2.5", "gwb.harmonics", "integer"),
         ("amplitude = 3e-15", "amplitude = -3e-15", "gwb.amplitude", "non-negative"),
         ("amplitude = 3e-15", "amplitude = nan", "gwb.amplitude", "finite"),
         ("amplitude = 1e-14", "amplitude = -1e-14", "array.pulsars[1] (Bb).red.amplitude", "non-negative"),
@@ -88,7 +88,7 @@ BASE = SMALL_TOML
         ('toa_error = "300 ns"', 'toa_error = "300 kg"', "observing.toa_error", "does not convert"),
         ('span = "5 yr"', 'span = "five years"', "observing.span", "cannot read"),
         ('distance = "1 kpc"', 'distance = "0 kpc"', "array.pulsars[0] (Aa).distance", "positive"),
-        ("components = 8", 'components = 8\ncorrelation = "quadrupole"', "gwb.correlation", "hellings-downs"),
+        ("harmonics = 8", 'harmonics = 8\ncorrelation = "quadrupole"', "gwb.correlation", "hellings-downs"),
         ('[observing]', '[observing]\ngaps = [[54000, 53000]]', "observing.gaps", "start < end"),
         ('{ name = "Bb"', '{ name = "Aa"', "array", "repeat"),
         ("[gwb]", "[[cw]]\nchirp_mass = 1e9\n[gwb]", "cw[0].ra", "required key is missing"),
@@ -97,9 +97,9 @@ BASE = SMALL_TOML
         ('name = "Aa"', 'name = "A\\u0000b"', "array.pulsars[0]", "letters, digits"),
         ("seed = 5", "seed = 99999999999999999999", "run.seed", ""),
         ("seed = 5", "seed = 5.0", "run.seed", "integer"),
-        ("components = 8", "components = 100000000", "gwb.components", "less than or equal"),
+        ("harmonics = 8", "harmonics = 100000000", "gwb.harmonics", "less than or equal"),
         ("amplitude = 3e-15", "amplitude = 1e300", "gwb.amplitude", "at most"),
-        ("components = 8", "components = 8\ngamma = 1000", "gwb.gamma", "at most"),
+        ("harmonics = 8", "harmonics = 8\ngamma = 1000", "gwb.gamma", "at most"),
         ('toa_error = "300 ns"', 'toa_error = "300 ns"\ntoa_error_scatter = 400', "observing.toa_error_scatter", "at most"),
         ('cadence = "30 d"', "cadence = 1e-9", "observing.cadence", "more than ptares handles"),
         ('cadence_jitter = "2 d"', 'cadence_jitter = "40 d"', "observing.cadence_jitter", "larger than the cadence"),
@@ -107,7 +107,7 @@ BASE = SMALL_TOML
         ('start = 54000', 'start = 54000, gaps = [[53000, 60000]]', "array.pulsars[2] (Cc).gaps", "leaves 0 TOAs"),
         ('ra = "01:00:00"', 'ra = "24:00:00"', "array.pulsars[0] (Aa).ra", "'24:00:00'"),
         ('ra = "01:00:00"', 'ra = "01:60:00"', "array.pulsars[0] (Aa).ra", "cannot read"),
-        ("components = 8", 'components = 8\nsource = "binaries"\ncorrelation = "monopole"', "gwb", "hellings-downs"),
+        ("harmonics = 8", 'harmonics = 8\nsource = "binaries"\ncorrelation = "monopole"', "gwb", "hellings-downs"),
         ('cadence = "30 d"', 'cadence = "-30 d"', "observing.cadence", "positive"),
     ],
 )
@@ -189,3 +189,24 @@ def test_shipped_configs_are_valid(name):
 
     config = load_config(Path(__file__).parent.parent / "configs" / name)
     assert config.run.seed is not None
+
+
+@pytest.mark.parametrize(
+    "table, where, replacement",
+    [
+        ("[gwb]\namplitude = 1e-15\ncomponents = 3", "gwb.components", "'gwb.harmonics'"),
+        ("[noise.red]\namplitude = 1e-15\ncomponents = 3", "noise.red.components", "'noise.red.harmonics'"),
+        ("[fit]\nred_components = 3", "fit.red_components", "'fit.red_harmonics'"),
+        ("[fit]\ncw = true", "fit.cw", "'fit.binary'"),
+        ("[fit]\ncw_free = []", "fit.cw_free", "'fit.binary_free'"),
+        ("[fit]\ncw_values = {}", "fit.cw_values", "'fit.binary_values'"),
+        ("[fit]\ncw_pulsar_term = true", "fit.cw_pulsar_term", "'fit.binary_pulsar_term'"),
+        ('[[cw]]\nstrain = 1e-14\nfrequency = 10\nra = 1\ndec = 1\nevolve = false', "cw[0].evolve", "'cw[0].frequency_evolution'"),
+    ],
+)
+def test_renamed_keys_are_refused_with_their_replacement(table, where, replacement):
+    """A key renamed before the first release is an unknown key whose message names the new key."""
+    with pytest.raises(InputError) as caught:
+        parse_config('[array]\nrandom = {count = 3}\n' + table)
+    line = str(caught.value)
+    assert f"{where}: unknown key;" in line and f"is now {replacement}" in line and "\n" not in line

@@ -13,7 +13,7 @@ from ptares.inputs.config import parse_config
 from ptares.physics.binaries import chirp_time
 from ptares.physics.constants import KPC, M_SUN, YEAR, C
 from ptares.physics.sky import polarisation_tensors, unit_vector
-from ptares.simulation.kernels import cw_residuals, cw_residuals_reference
+from ptares.simulation.kernels import wave_residuals, wave_residuals_reference
 from ptares.simulation.simulate import simulate
 
 
@@ -41,7 +41,7 @@ def integrated_residuals(source, pulsar, times):
     m = chirp_time(mass)
 
     def rhs(t, y):
-        rate = 96 / 5 * np.pi ** (8 / 3) * m ** (5 / 3) * y[0] ** (11 / 3) if source.get("evolve", True) else 0.0
+        rate = 96 / 5 * np.pi ** (8 / 3) * m ** (5 / 3) * y[0] ** (11 / 3) if source.get("frequency_evolution", True) else 0.0
         return [rate, np.pi * y[0]]
 
     span = times[-1]
@@ -83,7 +83,7 @@ GEOMETRIES = [
 def test_residuals_match_integrated_redshift(pulsar, geometry, pulsar_term, evolve):
     """Tolerance: for a fixed frequency the antiderivative is exact (1e-6 covers the integrator); with
     evolution it neglects terms of relative size (4/3) (df/dt) / (2 pi f^2) ~ 2e-5 here, hence 1e-4."""
-    source = {"name": "b", "chirp_mass": 1.5e9, "frequency": 20.0, "strain": 1e-14, "evolve": evolve, "pulsar_term": pulsar_term, **geometry}
+    source = {"name": "b", "chirp_mass": 1.5e9, "frequency": 20.0, "strain": 1e-14, "frequency_evolution": evolve, "pulsar_term": pulsar_term, **geometry}
     data = simulate(cw_config(pulsar, source))
     ours = data.pulsars[0].injected["cw"]
     times = (data.pulsars[0].mjd - data.start_mjd) * 86400.0
@@ -107,8 +107,8 @@ def test_evolving_equals_fixed_when_evolution_is_negligible():
     the phase difference at the pulsar term is about omega tau^2 / tau_c < 1e-7 rad."""
     pulsar, geometry = GEOMETRIES[1]
     common = {"chirp_mass": 1e6, "frequency": 5.0, "strain": 1e-14, **geometry}
-    fixed = simulate(cw_config(pulsar, {**common, "evolve": False})).pulsars[0].injected["cw"]
-    moving = simulate(cw_config(pulsar, {**common, "evolve": True})).pulsars[0].injected["cw"]
+    fixed = simulate(cw_config(pulsar, {**common, "frequency_evolution": False})).pulsars[0].injected["cw"]
+    moving = simulate(cw_config(pulsar, {**common, "frequency_evolution": True})).pulsars[0].injected["cw"]
     np.testing.assert_allclose(moving, fixed, atol=1e-6 * np.max(np.abs(fixed)))
 
 
@@ -133,15 +133,15 @@ def test_kernel_equals_numpy_twin(seed):
     pulsar[::5, :, 3] = 0.0  # some sources without pulsar terms
     fplus, fcross = rng.normal(size=(2, sources, pulsars))
     weights = rng.normal(size=(sources, 2))
-    fast = cw_residuals(times, bounds, earth, pulsar, fplus, fcross, weights)
-    slow = cw_residuals_reference(times, bounds, earth, pulsar, fplus, fcross, weights)
+    fast = wave_residuals(times, bounds, earth, pulsar, fplus, fcross, weights)
+    slow = wave_residuals_reference(times, bounds, earth, pulsar, fplus, fcross, weights)
     assert np.max(np.abs(fast - slow)) < 1e-12 * np.max(np.abs(slow))
 
 
 def test_pulsar_behind_the_source_sees_nothing():
     """A pulsar exactly behind the source: Earth and pulsar terms cancel (1 + Omega . p = 0)."""
     pulsar = {"name": "A", "ra": 150.0, "dec": -30.0, "distance": 1.0}
-    source = {"chirp_mass": 1e9, "distance": 50.0, "frequency": 10.0, "ra": 150.0, "dec": -30.0, "evolve": False}
+    source = {"chirp_mass": 1e9, "distance": 50.0, "frequency": 10.0, "ra": 150.0, "dec": -30.0, "frequency_evolution": False}
     assert np.all(simulate(cw_config(pulsar, source)).pulsars[0].injected["cw"] == 0.0)
 
 
@@ -198,7 +198,7 @@ def test_bad_sources_name_the_field(old, new, where, words):
 
 
 def test_strain_without_mass_is_fine_when_not_evolving():
-    config = parse_config(BASE.replace('chirp_mass = "1e9 Msun"\ndistance = "100 Mpc"', "strain = 1e-14\nevolve = false"))
+    config = parse_config(BASE.replace('chirp_mass = "1e9 Msun"\ndistance = "100 Mpc"', "strain = 1e-14\nfrequency_evolution = false"))
     assert config.cw[0].strain == 1e-14
 
 
@@ -235,7 +235,7 @@ def test_fast_evolving_binary_with_a_toa_at_the_reference_time():
     the neglected term of the slowly-evolving antiderivative, (4/3) (df/dt) / (2 pi f^2) = 1.7e-3 here."""
     pulsar = {"name": "A", "ra": 40.0, "dec": 20.0, "distance": 0.5}
     source = {"name": "b", "chirp_mass": 3e10, "frequency": 10.0, "strain": 1e-14, "ra": 150.0, "dec": -30.0,
-              "inclination": 0.7, "polarization": 0.4, "phase": 1.1, "evolve": True, "pulsar_term": False}
+              "inclination": 0.7, "polarization": 0.4, "phase": 1.1, "frequency_evolution": True, "pulsar_term": False}
     data = simulate(cw_config(pulsar, source))
     ours = data.pulsars[0].injected["cw"]
     assert np.all(np.isfinite(ours)) and np.any(ours != 0)

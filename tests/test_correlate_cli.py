@@ -15,7 +15,7 @@ def dataset_path(tmp_path_factory):
 
     from ptares.simulation.simulate import simulate
 
-    config = small_config(array={"random": {"count": 7}}, gwb={"amplitude": 1e-14, "components": 8})
+    config = small_config(array={"random": {"count": 7}}, gwb={"amplitude": 1e-14, "harmonics": 8})
     return write_dataset(simulate(config), tmp_path_factory.mktemp("d") / "dataset.h5")
 
 
@@ -38,14 +38,14 @@ def test_correlate_writes_json_and_figures(dataset_path, tmp_path, capsys):
 def test_correlate_config_section_and_values_noise(dataset_path, tmp_path):
     config = tmp_path / "c.toml"
     config.write_text(
-        '[correlate]\nnoise = "values"\nscrambles = 0\nphase_shifts = 0\nbins = 5\ncomponents = 6\n'
+        '[correlate]\nnoise = "values"\nscrambles = 0\nphase_shifts = 0\nbins = 5\nharmonics = 6\n'
         '[correlate.noise_values]\nwhite_quadrature = "10 ns"\ncommon_amplitude = 1e-14\n'
         "[correlate.noise_values.pulsars.RP001]\nred_amplitude = 1e-15\n"
     )
     out = tmp_path / "c"
     assert main(["correlate", str(dataset_path), "--out", str(out), "--config", str(config)]) == 0
     summary = json.loads((out / "correlations.json").read_text())
-    assert summary["settings"]["noise"] == "values" and summary["settings"]["components"] == 6
+    assert summary["settings"]["noise"] == "values" and summary["settings"]["harmonics"] == 6
     assert "p_value" not in summary["estimates"]["hellings-downs"]
     assert not (out / "nulls.png").exists()
 
@@ -107,7 +107,7 @@ def test_config_without_correlate_table(dataset_path, tmp_path, capsys):
         (lambda d: setattr(d.pulsars[0], "ra", float("nan")), "position or distance"),
         (lambda d: d.pulsars[0].noise.__setitem__("white_quadrature", float("nan")), "noise parameter"),
         (lambda d: d.signals["gwb"].__setitem__("amplitude", float("nan")), "signal parameter amplitude"),
-        (lambda d: d.signals["gwb"].__setitem__("components", 7.5), "whole number"),
+        (lambda d: d.signals["gwb"].__setitem__("harmonics", 7.5), "whole number"),
     ],
 )
 def test_more_broken_datasets(dataset_path, tmp_path, capsys, change, words):

@@ -40,7 +40,7 @@ def config_for(amplitude, correlation="hellings-downs"):
     return small_config(
         array={"pulsars": LISTED},
         observing={"start": 53000, "span": 10.0, "cadence": 30.0, "cadence_jitter": 5.0, "toa_error": 0.2},
-        gwb={"amplitude": amplitude, "components": COMPONENTS, "correlation": correlation},
+        gwb={"amplitude": amplitude, "harmonics": COMPONENTS, "correlation": correlation},
     )
 
 

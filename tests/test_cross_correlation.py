@@ -18,8 +18,8 @@ from ptares.simulation.simulate import simulate
 YEAR = 365.25 * 86400.0
 
 
-def basis(times, span, components):
-    k = np.arange(1, components + 1)
+def basis(times, span, harmonics):
+    k = np.arange(1, harmonics + 1)
     phase = 2 * np.pi * np.outer(times, k) / span
     return np.hstack([np.sin(phase), np.cos(phase)])
 
@@ -29,23 +29,23 @@ def psd(f, amplitude, gamma):
     return amplitude**2 / (12 * np.pi**2) * YEAR**3 * (f * YEAR) ** (-gamma)
 
 
-def dense_rho_sigma(dataset, a, b, noise, components, gamma):
+def dense_rho_sigma(dataset, a, b, noise, harmonics, gamma):
     """Anholm et al. 2009 / Chamberlin et al. 2015 with explicit dense matrices:
     rho = r_a^T P_a^-1 S_ab P_b^-1 r_b / tr(P_a^-1 S_ab P_b^-1 S_ba), sigma = tr(...)^(-1/2), where P^-1 is
     the inverse of the auto-covariance on the complement of the timing model,
     G (G^T P G)^-1 G^T with G spanning the null space of M^T (scipy-free numpy SVD)."""
     span = dataset.span
-    f = np.arange(1, components + 1) / span
+    f = np.arange(1, harmonics + 1) / span
     template = np.concatenate([psd(f, 1.0, gamma), psd(f, 1.0, gamma)]) / span
     inverses, bases = [], []
     for index in (a, b):
         p = dataset.pulsars[index]
         t = (p.mjd - dataset.start_mjd) * 86400.0
-        F = basis(t, span, components)
-        fr = np.arange(1, noise.red_components + 1) / span
-        Fr = basis(t, span, noise.red_components)
-        red = np.concatenate([psd(fr, noise.red_amplitude[index], noise.red_gamma[index])] * 2) / span
-        common = np.concatenate([psd(f, noise.common_amplitude, noise.common_gamma)] * 2) / span
+        F = basis(t, span, harmonics)
+        fr = np.arange(1, noise.red_harmonics + 1) / span
+        Fr = basis(t, span, noise.red_harmonics)
+        red = np.concatenate([psd(fr, noise.red_amplitude[index], noise.red_spectral_index[index])] * 2) / span
+        common = np.concatenate([psd(f, noise.common_amplitude, noise.common_spectral_index)] * 2) / span
         white = (noise.white_scale[index] * p.errors) ** 2 + noise.white_quadrature[index] ** 2
         P = np.diag(white) + (Fr * red) @ Fr.T + (F * common) @ F.T
         u, s, vt = np.linalg.svd(p.design_matrix, full_matrices=True)
@@ -65,8 +65,8 @@ def test_fast_estimator_equals_dense_formula(red):
         array={"random": {"count": 3}},
         observing={"start": 53000, "span": 8.0, "cadence": 20.0, "cadence_jitter": 5.0, "toa_error": 0.3,
                    "toa_error_scatter": 0.2, "gaps": [[54000, 54200]]},
-        noise={"red": {"amplitude": red, "gamma": 3.0, "components": 12}, "white": {"quadrature": 0.1}},
-        gwb={"amplitude": 5e-15, "components": 8},
+        noise={"red": {"amplitude": red, "gamma": 3.0, "harmonics": 12}, "white": {"quadrature": 0.1}},
+        gwb={"amplitude": 5e-15, "harmonics": 8},
         timing_model={"fit": ["offset", "spin_frequency", "spin_down", "yearly"]},
     )
     data = simulate(config)
@@ -85,7 +85,7 @@ def test_equal_white_noise_closed_form():
     config = small_config(
         array={"random": {"count": 4}},
         observing={"start": 53000, "span": 6.0, "cadence": 15.0, "toa_error": 0.5},
-        gwb={"amplitude": 1e-14, "components": 6},
+        gwb={"amplitude": 1e-14, "harmonics": 6},
         timing_model={"fit": []},
     )
     data = simulate(config)
@@ -108,7 +108,7 @@ def test_equal_white_noise_closed_form():
 def test_optimal_statistic_formula():
     """A^2 = sum rho Gamma / sigma^2 / sum Gamma^2 / sigma^2, sigma_A2 = (sum Gamma^2/sigma^2)^(-1/2) (PHYSICS.md);
     the joint fit of a single pattern is the same estimate."""
-    config = small_config(array={"random": {"count": 6}}, gwb={"amplitude": 5e-15, "components": 8})
+    config = small_config(array={"random": {"count": 6}}, gwb={"amplitude": 5e-15, "harmonics": 8})
     data = simulate(config)
     products = fourier_products(data, noise_from_dataset(data), 8, 13 / 3)
     pairs = pair_correlations(products, np.array([p.position for p in data.pulsars]))

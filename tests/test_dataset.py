@@ -27,7 +27,7 @@ def test_layout_matches_documentation(dataset, tmp_path):
             assert set(g.attrs) == {"ra", "dec", "distance", "distance_error"}
             assert set(g["injected"]) == {"white", "red", "gwb"}
             assert g["design_matrix"].shape == (g["mjd"].size, 3)
-            assert {"white_scale", "white_quadrature", "red_amplitude", "red_gamma"} <= set(g["injected"].attrs)
+            assert {"white_scale", "white_quadrature", "red_amplitude", "red_spectral_index"} <= set(g["injected"].attrs)
         assert f["signals/gwb"].attrs["correlation"] == "hellings-downs"
 
 

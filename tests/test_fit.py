@@ -41,10 +41,10 @@ def test_white_noise_scale_matches_analytic_posterior(tmp_path):
     data = white_only()
     p = data.pulsars[0]
     name = p.name
-    section = FitSection(common="none", red="none", white="free", fixed={f"{name}_white_log10_quadrature": -np.inf},
+    section = FitSection(common="none", red="none", white="free", fixed={f"white_lg_quadrature@{name}": -np.inf},
                          max_steps=4000, seed=5)
     model = FitModel(data, section)
-    assert model.names == [f"{name}_white_scale"]
+    assert model.names == [f"white_scale@{name}"]
     run = run_sampler(model, tmp_path / "c.h5")
     summary = summarise(model, run)
     # Q: residuals whitened by the quoted errors, offset projected out (weighted mean removed)
@@ -53,7 +53,7 @@ def test_white_noise_scale_matches_analytic_posterior(tmp_path):
     Q = np.sum(w * residual**2)
     n = p.mjd.size
     posterior_u = stats.invgamma(n / 2 - 1, scale=Q / 2)
-    entry = summary["parameters"][f"{name}_white_scale"]
+    entry = summary["parameters"][f"white_scale@{name}"]
     for q, value in zip((0.15865, 0.5, 0.84135), (entry["interval68"][0], entry["median"], entry["interval68"][1])):
         s_q = np.sqrt(posterior_u.ppf(q))
         density = posterior_u.pdf(s_q**2) * 2 * s_q
@@ -66,7 +66,7 @@ def loud_background(seed):
     config = small_config(
         array={"random": {"count": 5}},
         observing={"start": 53000, "span": 10.0, "cadence": 30.0, "toa_error": 0.1},
-        gwb={"amplitude": 1e-14, "components": 8},
+        gwb={"amplitude": 1e-14, "harmonics": 8},
     )
     return simulate(config, seed=seed)
 
@@ -76,9 +76,9 @@ def test_loud_background_interval_contains_injected(tmp_path):
     data = loud_background(3)
     model = FitModel(data, FitSection(common="hellings-downs", max_steps=3000, seed=2))
     summary = summarise(model, run_sampler(model, tmp_path / "c.h5"))
-    low, high = summary["parameters"]["gwb_log10_A"]["interval95"]
+    low, high = summary["parameters"]["common_lg_amplitude"]["interval95"]
     assert low < -14 < high
-    assert summary["parameters"]["gwb_log10_A"]["injected"] == pytest.approx(-14, rel=1e-6, abs=0)
+    assert summary["parameters"]["common_lg_amplitude"]["injected"] == pytest.approx(-14, rel=1e-6, abs=0)
 
 
 @pytest.mark.statistical
@@ -88,9 +88,9 @@ def test_credible_intervals_cover(tmp_path):
     inside = 0
     for seed in range(16):
         data = loud_background(100 + seed)
-        model = FitModel(data, FitSection(fixed={"gwb_gamma": 13 / 3}, max_steps=2500, seed=seed))
+        model = FitModel(data, FitSection(fixed={"common_spectral_index": 13 / 3}, max_steps=2500, seed=seed))
         summary = summarise(model, run_sampler(model, tmp_path / f"c{seed}.h5"))
-        low, high = summary["parameters"]["gwb_log10_A"]["interval68"]
+        low, high = summary["parameters"]["common_lg_amplitude"]["interval68"]
         inside += low < -14 < high
     low_bound, high_bound = stats.binom(16, 0.68).ppf([0.001, 0.999])
     assert low_bound <= inside <= high_bound, inside
@@ -162,12 +162,12 @@ def test_fit_command_outputs(tmp_path, capsys):
     config = tmp_path / "c.toml"
     config.write_text(
         "[run]\nseed = 2\n[array]\nrandom = {count = 4}\n[observing]\nspan = 8\ncadence = 30\ntoa_error = 0.1\n"
-        "[gwb]\namplitude = 1e-14\ncomponents = 6\n[fit]\nmax_steps = 400\nfixed = {gwb_gamma = 4.3333}\n"
+        "[gwb]\namplitude = 1e-14\nharmonics = 6\n[fit]\nmax_steps = 400\nfixed = {common_spectral_index = 4.3333}\n"
     )
     out = tmp_path / "o"
     assert main(["fit", str(config), "--out", str(out)]) == 0
     summary = json.loads((out / "posterior.json").read_text())
-    entry = summary["parameters"]["gwb_log10_A"]
+    entry = summary["parameters"]["common_lg_amplitude"]
     assert set(entry) >= {"median", "interval68", "interval95", "autocorr_time", "injected"}
     assert set(summary) >= {"acceptance_fraction", "effective_samples", "converged"}
     for name in ("corner.png", "trace.png"):
@@ -182,11 +182,11 @@ def test_fit_command_outputs(tmp_path, capsys):
 @pytest.mark.parametrize(
     "table, words",
     [
-        ("[fit]\npriors = {gwb_log10_A = {uniform = [-12, -18]}}", "lower < upper"),
-        ("[fit]\npriors = {gwb_log10_A = {log_uniform = [0, 1]}}", "positive"),
-        ("[fit]\npriors = {gwb_log10_A = {normal = [-14, -1]}}", "positive sd"),
-        ("[fit]\nfixed = {gwb_spin = 3}", "fit.fixed.gwb_spin: the model has no parameter"),
-        ("[fit]\npriors = {cw_phase = {uniform = [0, 1]}}", "not a free parameter"),
+        ("[fit]\npriors = {common_lg_amplitude = {uniform = [-12, -18]}}", "lower < upper"),
+        ("[fit]\npriors = {common_lg_amplitude = {log_uniform = [0, 1]}}", "positive"),
+        ("[fit]\npriors = {common_lg_amplitude = {normal = [-14, -1]}}", "positive sd"),
+        ("[fit]\nfixed = {common_spin = 3}", "fit.fixed.common_spin: the model has no parameter"),
+        ("[fit]\npriors = {binary_phase = {uniform = [0, 1]}}", "not a free parameter"),
         ('[fit]\npulsars = ["RP001", "Nowhere"]', "fit.pulsars: the dataset has no pulsar(s) Nowhere"),
         ('[fit]\ncommon = "quadrupole"', "fit.common"),
         ("[fit]\nwalkers = 2", "fewer than twice"),
@@ -210,34 +210,34 @@ def test_continuous_wave_model_reproduces_injection():
         array={"random": {"count": 3}},
         gwb=None,
         cw=[{"name": "b", "chirp_mass": 1e9, "distance": 30.0, "frequency": 15.0, "ra": 40.0, "dec": -20.0,
-             "inclination": 0.8, "polarization": 0.3, "phase": 1.2, "evolve": False}],
+             "inclination": 0.8, "polarization": 0.3, "phase": 1.2, "frequency_evolution": False}],
     )
     data = simulate(config)
-    model = FitModel(data, FitSection(common="none", cw=True, cw_pulsar_term=True))
+    model = FitModel(data, FitSection(common="none", binary=True, binary_pulsar_term=True))
     signal = model._signal(model.values)
     for p, s in zip(data.pulsars, signal):
         np.testing.assert_allclose(s, p.injected["cw"], rtol=0, atol=1e-9 * np.abs(p.injected["cw"]).max())
-    assert model.names == ["cw_log10_h0", "cw_phase", "cw_cos_inclination", "cw_polarization"]
+    assert model.names == ["binary_lg_strain", "binary_phase", "binary_cos_inclination", "binary_polarization"]
 
 
-def test_unknown_cw_values_and_missing_values():
+def test_unknown_binary_values_and_missing_values():
     data = loud_background(7)
     with pytest.raises(InputError, match="needs values"):
-        FitModel(data, FitSection(cw=True))
-    with pytest.raises(InputError, match="has no parameter 'spin'"):
-        FitModel(data, FitSection(cw=True, cw_values={"spin": 1.0}))
+        FitModel(data, FitSection(binary=True))
+    with pytest.raises(InputError, match="has no quantity 'spin'"):
+        FitModel(data, FitSection(binary=True, binary_values={"spin": 1.0}))
 
 
 @pytest.mark.parametrize(
     "table, words",
     [
-        ("[fit]\nfixed = {gwb_gamma = nan}", "outside the allowed range"),
-        ("[fit]\nfixed = {gwb_gamma = inf}", "outside the allowed range"),
-        ('[fit]\nwhite = "free"\nfixed = {RP001_white_scale = 0}', "outside the allowed range"),
-        ('[fit]\nred = "none"\nfixed = {RP001_red_log10_A = -12.5}', "not used by this model"),
-        ("[fit]\npriors = {gwb_log10_A = {uniform = [-20, 400]}}", "outside the allowed"),
+        ("[fit]\nfixed = {common_spectral_index = nan}", "outside the allowed range"),
+        ("[fit]\nfixed = {common_spectral_index = inf}", "outside the allowed range"),
+        ('[fit]\nwhite = "free"\nfixed = {"white_scale@RP001" = 0}', "outside the allowed range"),
+        ('[fit]\nred = "none"\nfixed = {"red_lg_amplitude@RP001" = -12.5}', "not used by this model"),
+        ("[fit]\npriors = {common_lg_amplitude = {uniform = [-20, 400]}}", "outside the allowed"),
         ('[fit]\nwhite = "free"\npriors = {white_scale = {normal = [1, 0.5]}}', "outside the allowed"),
-        ('[fit]\ncw = true\ncw_free = ["phase", "phase"]', "listed twice"),
+        ('[fit]\nbinary = true\nbinary_free = ["phase", "phase"]', "listed twice"),
     ],
 )
 def test_fixed_values_and_priors_are_checked(tmp_path, capsys, table, words):
@@ -283,11 +283,11 @@ def test_posterior_draws_keep_what_the_fit_held_fixed(tmp_path):
     from ptares.correlation.noise import noise_from_chains
 
     data = loud_background(9)
-    model = FitModel(data, FitSection(fixed={"gwb_gamma": 3.0}, components=4, max_steps=200))
+    model = FitModel(data, FitSection(fixed={"common_spectral_index": 3.0}, harmonics=4, max_steps=200))
     run_sampler(model, tmp_path / "c.h5")
     draws = noise_from_chains(data, tmp_path / "c.h5", draws=5)
     assert len(draws) == 5
-    assert all(d.common_gamma == 3.0 and d.common_components == 4 for d in draws)
+    assert all(d.common_spectral_index == 3.0 and d.common_harmonics == 4 for d in draws)
     assert len({d.common_amplitude for d in draws}) == 5
     with pytest.raises(InputError, match="another dataset"):
         noise_from_chains(loud_background(10), tmp_path / "c.h5")
@@ -300,3 +300,35 @@ def test_short_run_writes_valid_json(tmp_path):
     text = (tmp_path / "o" / "posterior.json").read_text()
     assert "NaN" not in text and "Infinity" not in text
     json.loads(text)
+
+
+def test_parameter_names_separate_pulsar_and_quantity():
+    """Pulsar names may hold ``_ . - +``: every free parameter splits back into its quantity and pulsar."""
+    from ptares.inference.parameters import split
+
+    names = ["J0437-4715", "B1937+21.a", "odd_name-2"]
+    config = small_config(
+        array={"pulsars": [{"name": n, "ra": 10.0 * i, "dec": 5.0 * i} for i, n in enumerate(names)]},
+        observing={"start": 53000, "span": 3.0, "cadence": 20.0},
+        gwb={"amplitude": 1e-14, "harmonics": 4},
+    )
+    model = FitModel(simulate(config, seed=1), FitSection(white="free", red="free"))
+    per_pulsar = [split(n) for n in model.names if "@" in n]
+    assert {pulsar for _, pulsar in per_pulsar} == set(names)
+    assert {q for q, _ in per_pulsar} == {"white_scale", "white_lg_quadrature", "red_lg_amplitude", "red_spectral_index"}
+    assert "common_lg_amplitude" in model.names and "common_spectral_index" in model.names
+
+
+def test_binary_frequency_prior_comes_from_the_data():
+    """Default prior on lg f_GW: uniform over [1/T, 1/(2 x cadence)] (common practice: the lowest
+    frequency the span resolves and the Nyquist frequency of the sampling)."""
+    from ptares.inference.model import binary_frequency_prior
+
+    data = loud_background(7)  # 30-day cadence, no jitter
+    prior = binary_frequency_prior(data)
+    assert 10**prior.low == pytest.approx(1.0 / data.span, rel=1e-12)
+    assert 10**prior.high == pytest.approx(0.5 / (30 * 86400.0), rel=1e-9)
+    model = FitModel(data, FitSection(binary=True, binary_free=["lg_frequency"], common="none",
+                                      binary_values={"lg_strain": -14, "phase": 0, "cos_inclination": 0,
+                                                     "polarization": 0, "right_ascension": 1, "sin_declination": 0}))
+    assert model.priors == [prior]

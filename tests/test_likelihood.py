@@ -22,7 +22,7 @@ def sine_cosine(times, span, count):
     return np.hstack([np.sin(2 * np.pi * np.outer(times, k) / span), np.cos(2 * np.pi * np.outer(times, k) / span)])
 
 
-def brute_force(data, scale, quadrature, red_amplitude, red_gamma, amplitude, gamma, components, red_components, correlated):
+def brute_force(data, scale, quadrature, red_amplitude, red_spectral_index, amplitude, gamma, harmonics, red_harmonics, correlated):
     """log N(G^T r; 0, G^T C G) with scipy.stats.multivariate_normal: the full covariance C of all
     pulsars (white, red, common process with Gamma = Hellings–Downs or identity), projected onto
     the complement of each pulsar's timing model (G from numpy's SVD).  The Hellings–Downs curve is
@@ -38,14 +38,14 @@ def brute_force(data, scale, quadrature, red_amplitude, red_gamma, amplitude, ga
         hd = np.where(x > 0, 1.5 * x * np.log(np.where(x > 0, x, 1.0)) - x / 4 + 0.5, 0.5)
     gamma_ab = hd if correlated else np.zeros((len(coords),) * 2)
     np.fill_diagonal(gamma_ab, 1.0)
-    f = np.arange(1, components + 1) / span
+    f = np.arange(1, harmonics + 1) / span
     common = np.concatenate([psd(f, amplitude, gamma)] * 2) / span
-    fr = np.arange(1, red_components + 1) / span
+    fr = np.arange(1, red_harmonics + 1) / span
     bases, red_bases, projections = [], [], []
     for p in data.pulsars:
         t = (p.mjd - data.start_mjd) * 86400.0
-        bases.append(sine_cosine(t, span, components))
-        red_bases.append(sine_cosine(t, span, red_components))
+        bases.append(sine_cosine(t, span, harmonics))
+        red_bases.append(sine_cosine(t, span, red_harmonics))
         u = np.linalg.svd(p.design_matrix, full_matrices=True)[0]
         projections.append(u[:, p.design_matrix.shape[1]:])
     sizes = np.cumsum([0] + [p.mjd.size for p in data.pulsars])
@@ -54,7 +54,7 @@ def brute_force(data, scale, quadrature, red_amplitude, red_gamma, amplitude, ga
         for b in range(len(data.pulsars)):
             block = gamma_ab[a, b] * (bases[a] * common) @ bases[b].T
             if a == b:
-                red = np.concatenate([psd(fr, red_amplitude[a], red_gamma[a])] * 2) / span
+                red = np.concatenate([psd(fr, red_amplitude[a], red_spectral_index[a])] * 2) / span
                 block += np.diag((scale[a] * p.errors) ** 2 + quadrature[a] ** 2) + (red_bases[a] * red) @ red_bases[a].T
             C[sizes[a] : sizes[a + 1], sizes[b] : sizes[b + 1]] = block
     G = scipy.linalg.block_diag(*projections)
@@ -68,8 +68,8 @@ def data():
         array={"random": {"count": 3}},
         observing={"start": 53000, "span": 6.0, "cadence": 30.0, "cadence_jitter": 5.0, "toa_error": 0.3,
                    "toa_error_scatter": 0.2},
-        noise={"red": {"amplitude": 3e-15, "components": 6}},
-        gwb={"amplitude": 5e-15, "components": 5},
+        noise={"red": {"amplitude": 3e-15, "harmonics": 6}},
+        gwb={"amplitude": 5e-15, "harmonics": 5},
         timing_model={"fit": ["offset", "spin_frequency", "spin_down", "yearly"]},
     )
     return simulate(config)
@@ -77,16 +77,16 @@ def data():
 
 @pytest.mark.parametrize("correlated", [False, True])
 @pytest.mark.parametrize("red_amplitude", [[2e-15, 1e-15, 5e-15], [2e-15, 0.0, 5e-15]])
-@pytest.mark.parametrize("components, red_components", [(5, 6), (6, 4)])
-def test_likelihood_equals_dense_gaussian_density(data, correlated, red_amplitude, components, red_components):
+@pytest.mark.parametrize("harmonics, red_harmonics", [(5, 6), (6, 4)])
+def test_likelihood_equals_dense_gaussian_density(data, correlated, red_amplitude, harmonics, red_harmonics):
     """1e-8 relative, for both common-process models, with and without red noise in every pulsar
     (the batched and the per-pulsar paths)."""
     scale = np.array([1.1, 0.9, 1.3])
     quadrature = np.array([1e-7, 2e-7, 0.0])
-    red_gamma = np.array([3.0, 4.0, 5.0])
-    likelihood = Likelihood(data, components, red_components, correlated)
-    ours = likelihood(scale, quadrature, np.array(red_amplitude), red_gamma, 6e-15, 4.0)
-    reference = brute_force(data, scale, quadrature, red_amplitude, red_gamma, 6e-15, 4.0, components, red_components, correlated)
+    red_spectral_index = np.array([3.0, 4.0, 5.0])
+    likelihood = Likelihood(data, harmonics, red_harmonics, correlated)
+    ours = likelihood(scale, quadrature, np.array(red_amplitude), red_spectral_index, 6e-15, 4.0)
+    reference = brute_force(data, scale, quadrature, red_amplitude, red_spectral_index, 6e-15, 4.0, harmonics, red_harmonics, correlated)
     assert ours == pytest.approx(reference, rel=1e-8, abs=0)
 
 

@@ -27,9 +27,9 @@ def power_law_psd(f, amplitude, gamma):
     return amplitude**2 / (12 * np.pi**2) * YEAR**3 * (f * YEAR) ** (-gamma)
 
 
-def fourier_basis(times, span, components):
-    """Columns sin(2 pi k t / T), cos(2 pi k t / T) for k = 1..components."""
-    k = np.arange(1, components + 1)
+def fourier_basis(times, span, harmonics):
+    """Columns sin(2 pi k t / T), cos(2 pi k t / T) for k = 1..harmonics."""
+    k = np.arange(1, harmonics + 1)
     phase = 2 * np.pi * np.outer(times, k) / span
     return np.hstack([np.sin(phase), np.cos(phase)])
 
@@ -62,15 +62,15 @@ def test_background_variance_matches_sum_of_spectrum(pattern):
     (Gaussian quadratic form).  T and the time origin come from the config (12 yr from
     MJD 53000), not from the dataset.  Each pulsar's z-score must be small.
     """
-    amplitude, gamma, components, count = 2.4e-15, 13 / 3, 20, 300
+    amplitude, gamma, harmonics, count = 2.4e-15, 13 / 3, 20, 300
     config = small_config(
         array={"random": {"count": 8}},
         observing={"start": 53000, "span": 12.0, "cadence": 20.0, "cadence_jitter": 4.0, "toa_error": 0.1},
-        gwb={"amplitude": amplitude, "gamma": gamma, "components": components, "correlation": pattern},
+        gwb={"amplitude": amplitude, "gamma": gamma, "harmonics": harmonics, "correlation": pattern},
     )
     runs = realisations(config, count)
     span, origin = 12 * YEAR, 53000.0
-    variance = np.repeat(power_law_psd(np.arange(1, components + 1) / span, amplitude, gamma) / span, 2)
+    variance = np.repeat(power_law_psd(np.arange(1, harmonics + 1) / span, amplitude, gamma) / span, 2)
     variance = np.concatenate([variance[0::2], variance[1::2]])  # sine block, then cosine block
     for a in range(len(runs[0].pulsars)):
         # the jittered schedule differs between realisations: take each one's exact moments
@@ -78,7 +78,7 @@ def test_background_variance_matches_sum_of_spectrum(pattern):
         for run in runs:
             pulsar = run.pulsars[a]
             times = (pulsar.mjd - origin) * 86400.0
-            basis = fourier_basis(times, span, components)
+            basis = fourier_basis(times, span, harmonics)
             weighted_gram = basis.T @ basis * variance[None, :]
             means.append(np.trace(weighted_gram) / times.size)
             variances.append(2 * np.trace(weighted_gram @ weighted_gram) / times.size**2)
@@ -91,7 +91,7 @@ def test_background_variance_matches_sum_of_spectrum(pattern):
 def test_binned_pair_correlations_follow_pattern(pattern):
     """Average over realisations of r_a . r_b / (n sum_k S/T) in angular bins equals the mean Gamma
     of the bin (identical schedules, so the expectation is exactly Gamma_ab)."""
-    amplitude, gamma, components, count = 3e-15, 13 / 3, 15, 250
+    amplitude, gamma, harmonics, count = 3e-15, 13 / 3, 15, 250
     rng = np.random.default_rng(77)  # fixed pulsar positions: a random array would move with the seed
     listed = [
         {"name": f"S{i:02d}", "ra": float(rng.uniform(0, 360)), "dec": float(np.degrees(np.arcsin(rng.uniform(-1, 1))))}
@@ -100,11 +100,11 @@ def test_binned_pair_correlations_follow_pattern(pattern):
     config = small_config(
         array={"pulsars": listed},
         observing={"start": 53000, "span": 10.0, "cadence": 30.0, "toa_error": 0.01},
-        gwb={"amplitude": amplitude, "gamma": gamma, "components": components, "correlation": pattern},
+        gwb={"amplitude": amplitude, "gamma": gamma, "harmonics": harmonics, "correlation": pattern},
     )
     runs = realisations(config, count, first_seed=5000)
     span = 10 * YEAR
-    power = np.sum(power_law_psd(np.arange(1, components + 1) / span, amplitude, gamma) / span)
+    power = np.sum(power_law_psd(np.arange(1, harmonics + 1) / span, amplitude, gamma) / span)
     a, b, angles = pair_angles(listed)
     expected_gamma = independent_pattern(pattern, angles)
     edges = np.linspace(0, np.pi, 7)
@@ -125,21 +125,21 @@ def test_binned_pair_correlations_follow_pattern(pattern):
 def test_red_noise_spectrum_recovered():
     """Least-squares Fourier coefficients of the injected red noise have mean power S(f_k)/T,
     and a straight-line fit of log power against log f recovers -gamma (Lentati et al. 2013 basis)."""
-    amplitude, gamma, components, count = 1e-14, 3.5, 12, 400
+    amplitude, gamma, harmonics, count = 1e-14, 3.5, 12, 400
     config = small_config(
         array={"random": {"count": 1}},
         observing={"start": 53000, "span": 10.0, "cadence": 14.0, "toa_error": 0.01},
-        noise={"red": {"amplitude": amplitude, "gamma": gamma, "components": components}},
+        noise={"red": {"amplitude": amplitude, "gamma": gamma, "harmonics": harmonics}},
         gwb=None,
     )
     runs = realisations(config, count, first_seed=9000)
     span = 10 * YEAR
     times = (runs[0].pulsars[0].mjd - 53000.0) * 86400.0
-    basis = fourier_basis(times, span, components)
+    basis = fourier_basis(times, span, harmonics)
     series = np.array([run.pulsars[0].injected["red"] for run in runs])
     coefficients = np.linalg.lstsq(basis, series.T, rcond=None)[0]
-    power = 0.5 * (coefficients[:components] ** 2 + coefficients[components:] ** 2).mean(axis=1)
-    frequencies = np.arange(1, components + 1) / span
+    power = 0.5 * (coefficients[:harmonics] ** 2 + coefficients[harmonics:] ** 2).mean(axis=1)
+    frequencies = np.arange(1, harmonics + 1) / span
     expected = power_law_psd(frequencies, amplitude, gamma) / span
     # the mean of 2 * count unit-variance chi-squared(1) terms has relative sd 1 / sqrt(count)
     z = (power / expected - 1) * np.sqrt(count)
@@ -155,7 +155,7 @@ def test_binary_population_background_matches_gaussian_power_and_hellings_downs(
     residual variance equals the Gaussian background's sum_k S(f_k)/T and the binned pair
     correlations follow Hellings–Downs (Earth terms correlate, pulsar terms do not).  The
     population is non-Gaussian, so standard errors come from the spread of the realisations."""
-    amplitude, gamma, components, count = 2e-15, 13 / 3, 10, 150
+    amplitude, gamma, harmonics, count = 2e-15, 13 / 3, 10, 150
     rng = np.random.default_rng(78)
     listed = [
         {"name": f"B{i:02d}", "ra": float(rng.uniform(0, 360)), "dec": float(np.degrees(np.arcsin(rng.uniform(-1, 1))))}
@@ -164,11 +164,11 @@ def test_binary_population_background_matches_gaussian_power_and_hellings_downs(
     config = small_config(
         array={"pulsars": listed},
         observing={"start": 53000, "span": 10.0, "cadence": 30.0, "toa_error": 0.01},
-        gwb={"amplitude": amplitude, "gamma": gamma, "components": components, "source": "binaries", "binaries": 300},
+        gwb={"amplitude": amplitude, "gamma": gamma, "harmonics": harmonics, "source": "binaries", "binaries": 300},
     )
     runs = realisations(config, count, first_seed=7000)
     span = 10 * YEAR
-    power = np.sum(power_law_psd(np.arange(1, components + 1) / span, amplitude, gamma) / span)
+    power = np.sum(power_law_psd(np.arange(1, harmonics + 1) / span, amplitude, gamma) / span)
 
     variance = np.array([np.mean([np.mean(p.injected["gwb"] ** 2) for p in run.pulsars]) for run in runs])
     z = (variance.mean() - power) / (variance.std(ddof=1) / np.sqrt(count))

@@ -25,7 +25,7 @@ cadence = "30 d"
 toa_error = "200 ns"
 [gwb]
 amplitude = 1e-15
-components = 6
+harmonics = 6
 [correlate]
 scrambles = 0
 phase_shifts = 10
@@ -134,8 +134,8 @@ def test_seeds_are_derived_from_the_index(tmp_path):
 def test_pp_plot_from_fit_rows():
     rng = np.random.default_rng(0)
     rows = [{"status": "ok", "hd_snr": float(rng.normal()), "injected_amplitude": 1e-15, "hd_amplitude2": 0.0,
-             "hd_sigma": 1.0, "gwb_log10_A_quantile": float(q)} for q in rng.uniform(size=30)]
-    assert set(sweep_figures(rows)) == {"detection.png", "recovery.png", "snr.png", "pp.png"}
+             "hd_sigma": 1.0, "common_lg_amplitude.quantile": float(q)} for q in rng.uniform(size=30)]
+    assert set(sweep_figures(rows)) == {"detection.png", "recovery.png", "snr.png", "coverage.png"}
 
 
 def test_list_valued_axis_and_seed_axis(tmp_path, capsys):

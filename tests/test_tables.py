@@ -29,7 +29,7 @@ def write_tables(tmp_path, toas=None, catalogue=CATALOGUE, mode="schedule", extr
     (tmp_path / "pulsars.csv").write_text(catalogue)
     config = tmp_path / "c.toml"
     config.write_text(f'[run]\nseed = 3\n[array]\ntable = "toas.csv"\ncatalogue = "pulsars.csv"\nmode = "{mode}"\n'
-                      f"[gwb]\namplitude = 5e-15\ncomponents = 8\n{extra}")
+                      f"[gwb]\namplitude = 5e-15\nharmonics = 8\n{extra}")
     return config
 
 
@@ -148,14 +148,14 @@ def test_background_on_a_gappy_uneven_table_schedule_has_the_expected_variance(t
     lines += [f"Lark,{float(m)!r},0.5" for m in np.sort(rng.uniform(53000, 56650, 80))]
     config = load_config(write_tables(tmp_path, toas="pulsar,mjd,error_us\n" + "\n".join(lines) + "\n",
                                       extra='correlation = "uncorrelated"\n'))
-    count, components, amplitude = 300, 8, 5e-15
+    count, harmonics, amplitude = 300, 8, 5e-15
     runs = [simulate(config, seed=s) for s in range(count)]
     span = runs[0].span
     year = 365.25 * 86400.0
-    f = np.arange(1, components + 1) / span
+    f = np.arange(1, harmonics + 1) / span
     variance = np.concatenate([amplitude**2 / (12 * np.pi**2) * year**3 * (f * year) ** (-13 / 3) / span] * 2)
     t = (runs[0].pulsar("Kite").mjd - runs[0].start_mjd) * 86400.0
-    k = np.arange(1, components + 1)
+    k = np.arange(1, harmonics + 1)
     basis = np.hstack([np.sin(2 * np.pi * np.outer(t, k) / span), np.cos(2 * np.pi * np.outer(t, k) / span)])
     gram = basis.T @ basis * variance[None, :]
     expected = np.trace(gram) / t.size  # = sum_k S(f_k)/T
@@ -172,7 +172,7 @@ def test_analysis_commands_accept_an_imported_dataset(tmp_path, capsys):
     dataset = str(tmp_path / "i" / "dataset.h5")
     settings = tmp_path / "s.toml"
     settings.write_text('[correlate]\nnoise = "values"\nscrambles = 0\nphase_shifts = 5\nfit_trials = 10\n'
-                        "[fit]\nmax_steps = 60\ncomponents = 5\n")
+                        "[fit]\nmax_steps = 60\nharmonics = 5\n")
     assert main(["correlate", dataset, "--out", str(tmp_path / "c"), "--config", str(settings)]) == 0
     assert main(["correlate", dataset, "--out", str(tmp_path / "c2")]) == 2
     assert "injected noise" in capsys.readouterr().err
@@ -207,7 +207,7 @@ def test_more_table_faults(tmp_path, capsys, toas, catalogue, words):
 
 
 def test_catalogue_noise_columns_apply_in_schedule_mode(tmp_path):
-    catalogue = "name,ra,dec,distance,white_scale,red_amplitude,red_gamma\nKite,10,10,1,1.5,3e-15,4.0\nLark,20,20,1,,,\n"
+    catalogue = "name,ra,dec,distance,white_scale,red_amplitude,red_spectral_index\nKite,10,10,1,1.5,3e-15,4.0\nLark,20,20,1,,,\n"
     data = simulate(load_config(write_tables(tmp_path, catalogue=catalogue)))
     assert data.pulsar("Kite").noise["white_scale"] == 1.5 and data.pulsar("Kite").noise["red_amplitude"] == 3e-15
     assert data.pulsar("Lark").noise["white_scale"] == 1.0 and data.pulsar("Lark").noise["red_amplitude"] == 0.0

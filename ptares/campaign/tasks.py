@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from ptares.errors import InputError
+from ptares.inference.parameters import COMMON_AMPLITUDE, COMMON_INDEX
 from ptares.inputs.config import Config, SweepSection, validation_error, read_toml
 
 __all__ = ["Task", "load_sweep", "derive_seed", "expand", "run_task"]
@@ -25,11 +26,11 @@ __all__ = ["Task", "load_sweep", "derive_seed", "expand", "run_task"]
 
 #: results.csv columns after the axis columns.
 COLUMNS = [
-    "injected_amplitude", "injected_gamma", "injected_correlation",
+    "injected_amplitude", "injected_spectral_index", "injected_correlation",
     "hd_amplitude2", "hd_sigma", "hd_snr", "hd_p_value", "monopole_snr", "dipole_snr",
     "fit_chi2", "fit_p_calibrated",
-    "gwb_log10_A_median", "gwb_log10_A_low68", "gwb_log10_A_high68", "gwb_log10_A_quantile",
-    "gwb_gamma_median", "gwb_gamma_quantile", "fit_converged",
+    "common_lg_amplitude.median", "common_lg_amplitude.low68", "common_lg_amplitude.high68",
+    "common_lg_amplitude.quantile", "common_spectral_index.median", "common_spectral_index.quantile", "fit_converged",
     "status", "error", "run_time",
 ]
 
@@ -130,14 +131,14 @@ def _check_keys(raw: dict, keys, where: str) -> None:
 def _summary_of_fit(model, run, summary) -> dict:
     row = {"fit_converged": summary["converged"]}
     samples = run.chain[summary["burn"] :: model.section.thin].reshape(-1, model.ndim)
-    for name in ("gwb_log10_A", "gwb_gamma"):
+    for name in (COMMON_AMPLITUDE, COMMON_INDEX):
         if name in model.names:
             entry = summary["parameters"][name]
-            row[f"{name}_median"] = entry["median"]
-            if name == "gwb_log10_A":
-                row[f"{name}_low68"], row[f"{name}_high68"] = entry["interval68"]
+            row[f"{name}.median"] = entry["median"]
+            if name == COMMON_AMPLITUDE:
+                row[f"{name}.low68"], row[f"{name}.high68"] = entry["interval68"]
             if name in model.injected:
-                row[f"{name}_quantile"] = float(np.mean(samples[:, model.names.index(name)] < model.injected[name]))
+                row[f"{name}.quantile"] = float(np.mean(samples[:, model.names.index(name)] < model.injected[name]))
     return row
 
 
@@ -156,7 +157,7 @@ def run_task(task: Task) -> dict:
         config = Config.model_validate(task.raw)
         data = simulate(config)
         gwb = data.signals.get("gwb", {})
-        row.update(injected_amplitude=float(gwb.get("amplitude", 0.0)), injected_gamma=gwb.get("gamma"),
+        row.update(injected_amplitude=float(gwb.get("amplitude", 0.0)), injected_spectral_index=gwb.get("gamma"),
                    injected_correlation=gwb.get("correlation"))
         if "correlate" in task.stages:
             result = correlate(data, noise_from_dataset(data), config.correlate)

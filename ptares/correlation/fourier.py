@@ -27,18 +27,18 @@ __all__ = ["fourier_basis", "unit_template", "FourierProducts", "check_dataset",
 MEMORY_LIMIT = 4e9
 
 
-def fourier_basis(times, span: float, components: int) -> np.ndarray:
-    """Columns ``sin(2 pi k t / T), cos(2 pi k t / T)`` interleaved, k = 1..components; ``times`` in s."""
-    phase = 2.0 * np.pi * np.outer(times, np.arange(1, components + 1)) / span
-    basis = np.empty((len(times), 2 * components))
+def fourier_basis(times, span: float, harmonics: int) -> np.ndarray:
+    """Columns ``sin(2 pi k t / T), cos(2 pi k t / T)`` interleaved, k = 1..harmonics; ``times`` in s."""
+    phase = 2.0 * np.pi * np.outer(times, np.arange(1, harmonics + 1)) / span
+    basis = np.empty((len(times), 2 * harmonics))
     basis[:, 0::2] = np.sin(phase)
     basis[:, 1::2] = np.cos(phase)
     return basis
 
 
-def unit_template(span: float, components: int, gamma: float) -> np.ndarray:
+def unit_template(span: float, harmonics: int, gamma: float) -> np.ndarray:
     """``Phi`` of the template: ``S(f_k) / T`` for unit amplitude, repeated for sine and cosine (s^2)."""
-    return np.repeat(coefficient_variance(span, components, 1.0, gamma), 2)
+    return np.repeat(coefficient_variance(span, harmonics, 1.0, gamma), 2)
 
 
 @dataclass(frozen=True)
@@ -60,8 +60,8 @@ def check_dataset(dataset: Dataset) -> None:
         for key, value in parameters.items():
             if isinstance(value, float) and not np.isfinite(value):
                 raise InputError(f"signal parameter {key} is {value}", f"dataset signal {name}")
-        if "components" in parameters and not float(parameters["components"]).is_integer():
-            raise InputError(f"components must be a whole number, got {parameters['components']}", f"dataset signal {name}")
+        if "harmonics" in parameters and not float(parameters["harmonics"]).is_integer():
+            raise InputError(f"harmonics must be a whole number, got {parameters['harmonics']}", f"dataset signal {name}")
     for p in dataset.pulsars:
         where = f"dataset pulsar {p.name}"
         if not all(np.isfinite(v) for v in (p.ra, p.dec, p.distance, p.distance_error)):
@@ -86,29 +86,29 @@ def check_dataset(dataset: Dataset) -> None:
             raise InputError(f"{n} TOAs do not exceed the {p.design_matrix.shape[1]} timing-model columns", where)
 
 
-def fourier_products(dataset: Dataset, noise: NoiseModel, components: int, gamma: float) -> FourierProducts:
-    """``X_a`` and ``Z_a`` of every pulsar for a template of ``components`` frequencies and index ``gamma``."""
+def fourier_products(dataset: Dataset, noise: NoiseModel, harmonics: int, gamma: float) -> FourierProducts:
+    """``X_a`` and ``Z_a`` of every pulsar for a template of ``harmonics`` frequencies and index ``gamma``."""
     span = dataset.span
-    memory = len(dataset.pulsars) * (2 * components) ** 2 * 8
+    memory = len(dataset.pulsars) * (2 * harmonics) ** 2 * 8
     if memory > MEMORY_LIMIT:
-        raise InputError(f"{components} frequencies for {len(dataset.pulsars)} pulsars need {memory / 1e9:.1f} GB; "
-                         f"use fewer (at most {MEMORY_LIMIT / 1e9:.0f} GB is allowed)", "components")
-    basis_size = max(components, noise.red_components, noise.common_components)
-    phi = unit_template(span, components, gamma)
-    X = np.empty((len(dataset.pulsars), 2 * components))
-    Z = np.empty((len(dataset.pulsars), 2 * components, 2 * components))
+        raise InputError(f"{harmonics} frequencies for {len(dataset.pulsars)} pulsars need {memory / 1e9:.1f} GB; "
+                         f"use fewer (at most {MEMORY_LIMIT / 1e9:.0f} GB is allowed)", "harmonics")
+    basis_size = max(harmonics, noise.red_harmonics, noise.common_harmonics)
+    phi = unit_template(span, harmonics, gamma)
+    X = np.empty((len(dataset.pulsars), 2 * harmonics))
+    Z = np.empty((len(dataset.pulsars), 2 * harmonics, 2 * harmonics))
     common = np.zeros(2 * basis_size)
     if noise.common_amplitude > 0:
-        common[: 2 * noise.common_components] = np.repeat(
-            coefficient_variance(span, noise.common_components, noise.common_amplitude, noise.common_gamma), 2
+        common[: 2 * noise.common_harmonics] = np.repeat(
+            coefficient_variance(span, noise.common_harmonics, noise.common_amplitude, noise.common_spectral_index), 2
         )
     for a, p in enumerate(dataset.pulsars):
         times = (p.mjd - dataset.start_mjd) * 86400.0
         F = fourier_basis(times, span, basis_size)
         prior = common.copy()
         if noise.red_amplitude[a] > 0:
-            red = coefficient_variance(span, noise.red_components, noise.red_amplitude[a], noise.red_gamma[a])
-            prior[: 2 * noise.red_components] += np.repeat(red, 2)
+            red = coefficient_variance(span, noise.red_harmonics, noise.red_amplitude[a], noise.red_spectral_index[a])
+            prior[: 2 * noise.red_harmonics] += np.repeat(red, 2)
         inv_n = 1.0 / noise.white_sigma(a, p.errors) ** 2
         kept = prior > 0  # columns without prior power add nothing to the covariance
         T = np.hstack([p.design_matrix, F[:, kept]])
@@ -119,7 +119,7 @@ def fourier_products(dataset: Dataset, noise: NoiseModel, components: int, gamma
             factor = scipy.linalg.cho_factor(sigma)
         except np.linalg.LinAlgError:
             raise InputError("noise covariance is not positive definite (degenerate timing model?)", f"pulsar {p.name}") from None
-        Ft = F[:, : 2 * components]
+        Ft = F[:, : 2 * harmonics]
         tnf = T.T @ (Ft * inv_n[:, None])
         tnr = T.T @ (p.residuals * inv_n)
         X[a] = Ft.T @ (p.residuals * inv_n) - tnf.T @ scipy.linalg.cho_solve(factor, tnr)

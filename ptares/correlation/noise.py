@@ -28,11 +28,11 @@ class NoiseModel:
     white_scale: np.ndarray
     white_quadrature: np.ndarray  #: s
     red_amplitude: np.ndarray
-    red_gamma: np.ndarray
-    red_components: int
+    red_spectral_index: np.ndarray
+    red_harmonics: int
     common_amplitude: float
-    common_gamma: float
-    common_components: int = 30
+    common_spectral_index: float
+    common_harmonics: int = 30
 
     def white_sigma(self, index: int, toa_errors: np.ndarray) -> np.ndarray:
         """White-noise standard deviation (s) of each TOA of pulsar ``index``."""
@@ -46,7 +46,7 @@ def noise_from_dataset(dataset: Dataset) -> NoiseModel:
         white_scale = np.array([n["white_scale"] for n in noise], dtype=float)
         white_quadrature = np.array([n["white_quadrature"] for n in noise], dtype=float)
         red_amplitude = np.array([n["red_amplitude"] for n in noise], dtype=float)
-        red_gamma = np.array([n["red_gamma"] for n in noise], dtype=float)
+        red_spectral_index = np.array([n["red_spectral_index"] for n in noise], dtype=float)
     except KeyError as exc:
         raise InputError(f"has no injected noise parameter {exc} (not simulated by ptares?)", "dataset") from None
     red = dataset.signals.get("red", {})
@@ -55,11 +55,11 @@ def noise_from_dataset(dataset: Dataset) -> NoiseModel:
         white_scale=white_scale,
         white_quadrature=white_quadrature,
         red_amplitude=red_amplitude,
-        red_gamma=red_gamma,
-        red_components=int(red.get("components", 30)),
+        red_spectral_index=red_spectral_index,
+        red_harmonics=int(red.get("harmonics", 30)),
         common_amplitude=float(gwb.get("amplitude", 0.0)),
-        common_gamma=float(gwb.get("gamma", 13.0 / 3.0)),
-        common_components=int(gwb.get("components", 30)),
+        common_spectral_index=float(gwb.get("gamma", 13.0 / 3.0)),
+        common_harmonics=int(gwb.get("harmonics", 30)),
     )
 
 
@@ -68,11 +68,11 @@ def noise_from_values(
     white_scale=1.0,
     white_quadrature=0.0,
     red_amplitude=0.0,
-    red_gamma=13.0 / 3.0,
-    red_components=30,
+    red_spectral_index=13.0 / 3.0,
+    red_harmonics=30,
     common_amplitude=0.0,
-    common_gamma=13.0 / 3.0,
-    common_components=30,
+    common_spectral_index=13.0 / 3.0,
+    common_harmonics=30,
     pulsars: dict | None = None,
 ) -> NoiseModel:
     """Noise given as values: defaults for every pulsar, ``pulsars`` maps names to per-pulsar overrides.
@@ -84,7 +84,7 @@ def noise_from_values(
         "white_scale": np.full(count, float(white_scale)),
         "white_quadrature": np.full(count, float(white_quadrature)),
         "red_amplitude": np.full(count, float(red_amplitude)),
-        "red_gamma": np.full(count, float(red_gamma)),
+        "red_spectral_index": np.full(count, float(red_spectral_index)),
     }
     names = dataset.names
     for name, overrides in (pulsars or {}).items():
@@ -95,10 +95,10 @@ def noise_from_values(
                 raise InputError(f"unknown noise parameter {key!r}", f"correlate.noise_values.pulsars.{name}")
             columns[key][names.index(name)] = float(value)
     return NoiseModel(
-        red_components=int(red_components),
+        red_harmonics=int(red_harmonics),
         common_amplitude=float(common_amplitude),
-        common_gamma=float(common_gamma),
-        common_components=int(common_components),
+        common_spectral_index=float(common_spectral_index),
+        common_harmonics=int(common_harmonics),
         **columns,
     )
 
@@ -107,7 +107,7 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
     """Noise models from ``draws`` random posterior samples of a ``ptares fit`` (its ``chains.h5``).
 
     Parameters the fit held fixed keep the values it held them at; the fit's
-    common process (``gwb_log10_A``, ``gwb_gamma``, on its frequencies) becomes
+    common process (``common_lg_amplitude``, ``common_spectral_index``, on its frequencies) becomes
     the common process, and red noise the fit left out stays out.  Burn-in is
     two integrated autocorrelation times, as in the fit's summary.  The chains
     must come from a fit of this very dataset.
@@ -119,6 +119,15 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
     import h5py
 
     from ptares.dataset import fingerprint
+    from ptares.inference.parameters import (
+        COMMON_AMPLITUDE,
+        COMMON_INDEX,
+        RED_AMPLITUDE,
+        RED_INDEX,
+        WHITE_QUADRATURE,
+        WHITE_SCALE,
+        for_pulsar,
+    )
 
     path = Path(path)
     if not path.is_file():
@@ -127,8 +136,8 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
         with h5py.File(path, "r") as f:
             names = [n.decode() if isinstance(n, bytes) else str(n) for n in f.attrs["parameter_names"]]
             held = json.loads(f.attrs["held_values"])
-            common_components = int(f.attrs["common_components"])
-            red_components = int(f.attrs["red_components"])
+            common_harmonics = int(f.attrs["common_harmonics"])
+            red_harmonics = int(f.attrs["red_harmonics"])
             origin = f.attrs["dataset_fingerprint"]
         backend = emcee.backends.HDFBackend(str(path), name="chains", read_only=True)
         steps = backend.iteration
@@ -150,17 +159,17 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
     for row in picked:
         values = {**held, **dict(zip(names, map(float, row)))}
         per_pulsar = {
-            "white_scale": [values[f"{n}_white_scale"] for n in dataset.names],
-            "white_quadrature": [10 ** values[f"{n}_white_log10_quadrature"] for n in dataset.names],
-            "red_amplitude": [10 ** values[f"{n}_red_log10_A"] if red_components else 0.0 for n in dataset.names],
-            "red_gamma": [values[f"{n}_red_gamma"] for n in dataset.names],
+            "white_scale": [values[for_pulsar(WHITE_SCALE, n)] for n in dataset.names],
+            "white_quadrature": [10 ** values[for_pulsar(WHITE_QUADRATURE, n)] for n in dataset.names],
+            "red_amplitude": [10 ** values[for_pulsar(RED_AMPLITUDE, n)] if red_harmonics else 0.0 for n in dataset.names],
+            "red_spectral_index": [values[for_pulsar(RED_INDEX, n)] for n in dataset.names],
         }
         models.append(
             NoiseModel(
-                red_components=max(red_components, 1),
-                common_amplitude=10 ** values["gwb_log10_A"] if common_components and "gwb_log10_A" in values else 0.0,
-                common_gamma=values.get("gwb_gamma", 13.0 / 3.0),
-                common_components=max(common_components, 1),
+                red_harmonics=max(red_harmonics, 1),
+                common_amplitude=10 ** values[COMMON_AMPLITUDE] if common_harmonics and COMMON_AMPLITUDE in values else 0.0,
+                common_spectral_index=values.get(COMMON_INDEX, 13.0 / 3.0),
+                common_harmonics=max(common_harmonics, 1),
                 **{k: np.array(v, dtype=float) for k, v in per_pulsar.items()},
             )
         )

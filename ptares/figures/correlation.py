@@ -18,7 +18,7 @@ __all__ = ["correlations_figure", "nulls_figure"]
 def correlations_figure(result):
     """Binned pair correlations against angle with the recovered Hellings–Downs curve and its expected scatter.
 
-    ``result`` is a :class:`ptares.correlate.CorrelationResult`.
+    ``result`` is a :class:`ptares.correlation.analysis.CorrelationResult`.
     """
     hd = result.estimates["hellings-downs"]
     binned = result.binned

@@ -56,25 +56,25 @@ class Likelihood:
     Parameters
     ----------
     dataset : :class:`ptares.dataset.Dataset`
-    components : frequencies of the common process (k/T, k = 1..components).
-    red_components : frequencies of each pulsar's red noise (0: no red noise).
+    harmonics : frequencies of the common process (k/T, k = 1..harmonics).
+    red_harmonics : frequencies of each pulsar's red noise (0: no red noise).
     correlated : True for a Hellings–Downs common process, False for an uncorrelated one.
 
     :meth:`__call__` takes per-pulsar arrays ``white_scale``, ``white_quadrature`` (s),
-    ``red_amplitude``, ``red_gamma``, the common ``amplitude`` and ``gamma``, and an
+    ``red_amplitude``, ``red_spectral_index``, the common ``amplitude`` and ``gamma``, and an
     optional ``signal`` (list of per-pulsar residuals, s) subtracted first.
     """
 
-    def __init__(self, dataset, components: int, red_components: int, correlated: bool):
+    def __init__(self, dataset, harmonics: int, red_harmonics: int, correlated: bool):
         self.span = dataset.span
-        self.components = int(components)
-        self.red_components = int(red_components)
-        self.size = 2 * max(self.components, self.red_components)
+        self.harmonics = int(harmonics)
+        self.red_harmonics = int(red_harmonics)
+        self.size = 2 * max(self.harmonics, self.red_harmonics)
         self.correlated = bool(correlated)
         core = (len(dataset.pulsars) * self.size) ** 2 * 8 if correlated else len(dataset.pulsars) * self.size**2 * 8
         if core > MEMORY_LIMIT:
             raise InputError(f"{self.size // 2} frequencies for {len(dataset.pulsars)} pulsars need {core / 1e9:.1f} GB; "
-                             "use fewer", "fit.components")
+                             "use fewer", "fit.harmonics")
         self.pulsars = []
         for p in dataset.pulsars:
             times = (p.mjd - dataset.start_mjd) * 86400.0
@@ -132,28 +132,28 @@ class Likelihood:
             self._white_cache[key] = result
         return result
 
-    def _spectra(self, red_amplitude, red_gamma, amplitude, gamma):
+    def _spectra(self, red_amplitude, red_spectral_index, amplitude, gamma):
         """Per-pulsar red variances (P, 2Kb) and the common variances (2Kb,), zero beyond each basis."""
         red = np.zeros((len(self.pulsars), self.size))
-        if self.red_components:
+        if self.red_harmonics:
             for a in range(len(self.pulsars)):
                 if red_amplitude[a] > 0:
-                    red[a, : 2 * self.red_components] = np.repeat(
-                        coefficient_variance(self.span, self.red_components, red_amplitude[a], red_gamma[a]), 2
+                    red[a, : 2 * self.red_harmonics] = np.repeat(
+                        coefficient_variance(self.span, self.red_harmonics, red_amplitude[a], red_spectral_index[a]), 2
                     )
         common = np.zeros(self.size)
-        if amplitude > 0 and self.components:
-            common[: 2 * self.components] = np.repeat(coefficient_variance(self.span, self.components, amplitude, gamma), 2)
+        if amplitude > 0 and self.harmonics:
+            common[: 2 * self.harmonics] = np.repeat(coefficient_variance(self.span, self.harmonics, amplitude, gamma), 2)
         return red, common
 
     # --- the likelihood -------------------------------------------------------
-    def __call__(self, white_scale, white_quadrature, red_amplitude, red_gamma, amplitude=0.0, gamma=13.0 / 3.0,
+    def __call__(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
                  signal=None) -> float:
         pieces = [
             self._projected(a, white_scale[a], white_quadrature[a], None if signal is None else signal[a])
             for a in range(len(self.pulsars))
         ]
-        red, common = self._spectra(red_amplitude, red_gamma, amplitude, gamma)
+        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
         constant = sum(-0.5 * (piece[3] + piece[4] * _LOG_2PI) - 0.5 * piece[2] for piece in pieces)
         if self.correlated and amplitude > 0:
             return constant + self._correlated(pieces, red, common)
@@ -199,7 +199,7 @@ class Likelihood:
 
     def _correlated(self, pieces, red, common):
         P = len(pieces)
-        columns = 2 * max(self.components, self.red_components if np.any(red) else 0)
+        columns = 2 * max(self.harmonics, self.red_harmonics if np.any(red) else 0)
         sigma = np.zeros((P * columns, P * columns))
         d = np.empty(P * columns)
         for a, piece in enumerate(pieces):

@@ -1,11 +1,12 @@
 """The model ``ptares fit`` samples: parameters, priors and the log posterior.
 
-Parameters are named ``gwb_log10_A`` and ``gwb_gamma`` (common process),
-``<pulsar>_red_log10_A``, ``<pulsar>_red_gamma``, ``<pulsar>_white_scale``,
-``<pulsar>_white_log10_quadrature`` (log10 of seconds), and
-``cw_log10_h0``, ``cw_phase`` (orbital phase at the first epoch),
-``cw_cos_inclination``, ``cw_polarization``, ``cw_ra``, ``cw_sin_dec``,
-``cw_log10_frequency`` (GW frequency in Hz).  Whatever is not free is held at a
+Parameter names follow :mod:`ptares.inference.parameters`: ``common_lg_amplitude``
+and ``common_spectral_index`` for the common process; ``white_scale@<pulsar>``,
+``white_lg_quadrature@<pulsar>`` (lg of seconds), ``red_lg_amplitude@<pulsar>``,
+``red_spectral_index@<pulsar>``; and for a continuous wave ``binary_lg_strain``,
+``binary_phase`` (orbital phase at the first epoch), ``binary_cos_inclination``,
+``binary_polarization``, ``binary_right_ascension``, ``binary_sin_declination``,
+``binary_lg_frequency`` (GW frequency in Hz).  Whatever is not free is held at a
 fixed value: the dataset's injected truth by default, or the config's.  The
 continuous-wave model is a binary of constant frequency (Earth term, and the
 pulsar term at the catalogue distances when asked for).
@@ -21,56 +22,80 @@ from ptares.dataset import Dataset
 from ptares.errors import InputError, PhysicsWarning
 from ptares.inference import priors as prior_module
 from ptares.inference.likelihood import Likelihood, NotPositiveDefinite
+from ptares.inference.parameters import (
+    BINARY_QUANTITIES,
+    COMMON_AMPLITUDE,
+    COMMON_INDEX,
+    PER_PULSAR,
+    RED_AMPLITUDE,
+    RED_INDEX,
+    WHITE_QUADRATURE,
+    WHITE_SCALE,
+    binary,
+    for_pulsar,
+    quantity,
+)
 from ptares.inputs.config import FitSection
 from ptares.simulation.signals.continuous import Binary, PulsarLayout
 
-__all__ = ["FitModel", "DEFAULT_PRIORS"]
+__all__ = ["FitModel", "DEFAULT_PRIORS", "binary_frequency_prior"]
 
-#: Default priors by generic parameter name.
+#: Default priors by quantity.  Red noise: amplitude and index ranges as in published
+#: array noise analyses (e.g. Agazie et al. 2023, ApJL 951, L10, from memory).  The
+#: continuous-wave strain: lg h0 in [-18, -11]; by the h0 formula (PHYSICS.md) a binary of
+#: chirp mass 1e10 M_sun at 10 Mpc emitting at 100 nHz has h0 ~ 6e-12, and h0 = 1e-18 leaves
+#: residuals h0 / (2 pi f) of tens of picoseconds, far below any TOA error.  The
+#: continuous-wave frequency prior comes from the data (:func:`binary_frequency_prior`).
 DEFAULT_PRIORS = {
-    "gwb_log10_A": prior_module.Uniform(-18.0, -12.0),
-    "gwb_gamma": prior_module.Uniform(0.0, 7.0),
-    "red_log10_A": prior_module.Uniform(-20.0, -11.0),
-    "red_gamma": prior_module.Uniform(0.0, 7.0),
-    "white_scale": prior_module.Uniform(0.1, 5.0),
-    "white_log10_quadrature": prior_module.Uniform(-9.0, -4.0),
-    "cw_log10_h0": prior_module.Uniform(-18.0, -11.0),
-    "cw_phase": prior_module.Uniform(0.0, 2.0 * np.pi),
-    "cw_cos_inclination": prior_module.Uniform(-1.0, 1.0),
-    "cw_polarization": prior_module.Uniform(0.0, np.pi),
-    "cw_ra": prior_module.Uniform(0.0, 2.0 * np.pi),
-    "cw_sin_dec": prior_module.Uniform(-1.0, 1.0),
-    "cw_log10_frequency": prior_module.Uniform(-9.0, -7.0),
+    COMMON_AMPLITUDE: prior_module.Uniform(-18.0, -12.0),
+    COMMON_INDEX: prior_module.Uniform(0.0, 7.0),
+    RED_AMPLITUDE: prior_module.Uniform(-20.0, -11.0),
+    RED_INDEX: prior_module.Uniform(0.0, 7.0),
+    WHITE_SCALE: prior_module.Uniform(0.1, 5.0),
+    WHITE_QUADRATURE: prior_module.Uniform(-9.0, -4.0),
+    binary("lg_strain"): prior_module.Uniform(-18.0, -11.0),
+    binary("phase"): prior_module.Uniform(0.0, 2.0 * np.pi),
+    binary("cos_inclination"): prior_module.Uniform(-1.0, 1.0),
+    binary("polarization"): prior_module.Uniform(0.0, np.pi),
+    binary("right_ascension"): prior_module.Uniform(0.0, 2.0 * np.pi),
+    binary("sin_declination"): prior_module.Uniform(-1.0, 1.0),
 }
-_PER_PULSAR = ("red_log10_A", "red_gamma", "white_scale", "white_log10_quadrature")
 
-#: Values each generic parameter may take (fixed values and prior supports must lie inside).
+#: Values each quantity may take (fixed values and prior supports must lie inside).
 VALID = {
-    "gwb_log10_A": (-np.inf, -9.0), "red_log10_A": (-np.inf, -9.0), "cw_log10_h0": (-np.inf, -9.0),
-    "gwb_gamma": (-10.0, 10.0), "red_gamma": (-10.0, 10.0),
-    "white_scale": (1e-6, 1e3), "white_log10_quadrature": (-np.inf, -2.0),
-    "cw_phase": (-1e6, 1e6), "cw_cos_inclination": (-1.0, 1.0), "cw_polarization": (-1e6, 1e6),
-    "cw_ra": (-1e6, 1e6), "cw_sin_dec": (-1.0, 1.0), "cw_log10_frequency": (-10.0, -5.0),
+    COMMON_AMPLITUDE: (-np.inf, -9.0), RED_AMPLITUDE: (-np.inf, -9.0), binary("lg_strain"): (-np.inf, -9.0),
+    COMMON_INDEX: (-10.0, 10.0), RED_INDEX: (-10.0, 10.0),
+    WHITE_SCALE: (1e-6, 1e3), WHITE_QUADRATURE: (-np.inf, -2.0),
+    binary("phase"): (-1e6, 1e6), binary("cos_inclination"): (-1.0, 1.0), binary("polarization"): (-1e6, 1e6),
+    binary("right_ascension"): (-1e6, 1e6), binary("sin_declination"): (-1.0, 1.0), binary("lg_frequency"): (-10.0, -5.0),
 }
 
+_NAMING = "parameters are named like 'common_lg_amplitude' or 'red_lg_amplitude@PULSAR' (README: Fits)"
 
-def generic(name: str) -> str:
-    """``RP001_red_gamma`` -> ``red_gamma``; other names unchanged."""
-    return next((g for g in _PER_PULSAR if name.endswith("_" + g)), name)
+
+def binary_frequency_prior(dataset: Dataset) -> prior_module.Uniform:
+    """Uniform prior on lg f_GW over [1/T, the Nyquist frequency of the finest cadence].
+
+    T is the dataset's span; a pulsar's cadence is the median interval between its
+    distinct epochs, and the finest is the shortest of these over the array.
+    """
+    cadences = [np.median(np.diff(np.unique(p.mjd))) * 86400.0 for p in dataset.pulsars if len(np.unique(p.mjd)) > 1]
+    low = 1.0 / dataset.span
+    high = 0.5 / min(cadences)
+    return prior_module.Uniform(float(np.log10(low)), float(np.log10(high)))
 
 
 def _check_value(key: str, value: float, where: str) -> None:
-    low, high = VALID[generic(key)]
+    low, high = VALID[quantity(key)]
     if np.isnan(value) or not (low <= value <= high) or (np.isinf(value) and not np.isinf(low)):
         raise InputError(f"{value} is outside the allowed range [{low:g}, {high:g}]", where)
 
 
 def _check_support(prior, key: str, where: str) -> None:
-    low, high = VALID[generic(key)]
+    low, high = VALID[quantity(key)]
     bounds = (getattr(prior, "low", -np.inf), getattr(prior, "high", np.inf))
     if bounds[0] < low or bounds[1] > high:
         raise InputError(f"the prior reaches [{bounds[0]:g}, {bounds[1]:g}], outside the allowed [{low:g}, {high:g}]", where)
-_CW = ("log10_h0", "phase", "cos_inclination", "polarization", "ra", "sin_dec", "log10_frequency")
 
 
 def _subset(dataset: Dataset, names) -> Dataset:
@@ -99,49 +124,52 @@ class FitModel:
         injected_red = any(p.noise.get("red_amplitude", 0) > 0 for p in dataset.pulsars)
         self.red_mode = section.red or ("injected" if injected_red else "none")
         gwb = dataset.signals.get("gwb", {})
-        self.components = section.components or int(gwb.get("components", 30))
-        red_components = int(dataset.signals.get("red", {}).get("components", section.red_components))
+        self.harmonics = section.harmonics or int(gwb.get("harmonics", 30))
+        red_harmonics = int(dataset.signals.get("red", {}).get("harmonics", section.red_harmonics))
         if self.red_mode == "free":
-            red_components = section.red_components
+            red_harmonics = section.red_harmonics
         self.likelihood = Likelihood(
             dataset,
-            components=self.components if section.common != "none" else 0,
-            red_components=red_components if self.red_mode != "none" else 0,
+            harmonics=self.harmonics if section.common != "none" else 0,
+            red_harmonics=red_harmonics if self.red_mode != "none" else 0,
             correlated=section.common == "hellings-downs",
         )
 
         # every parameter the model has, with its default (injected) value
         values = {}
         for p in dataset.pulsars:
-            values[f"{p.name}_white_scale"] = float(p.noise.get("white_scale", 1.0))
+            values[for_pulsar(WHITE_SCALE, p.name)] = float(p.noise.get("white_scale", 1.0))
             quadrature = float(p.noise.get("white_quadrature", 0.0))
-            values[f"{p.name}_white_log10_quadrature"] = np.log10(quadrature) if quadrature > 0 else -np.inf
+            values[for_pulsar(WHITE_QUADRATURE, p.name)] = np.log10(quadrature) if quadrature > 0 else -np.inf
             amplitude = float(p.noise.get("red_amplitude", 0.0))
-            values[f"{p.name}_red_log10_A"] = np.log10(amplitude) if amplitude > 0 else -np.inf
-            values[f"{p.name}_red_gamma"] = float(p.noise.get("red_gamma", 13.0 / 3.0))
+            values[for_pulsar(RED_AMPLITUDE, p.name)] = np.log10(amplitude) if amplitude > 0 else -np.inf
+            values[for_pulsar(RED_INDEX, p.name)] = float(p.noise.get("red_spectral_index", 13.0 / 3.0))
         free = []
         if section.white == "free":
-            free += [f"{n}_white_{k}" for n in pulsars for k in ("scale", "log10_quadrature")]
+            free += [for_pulsar(q, n) for n in pulsars for q in (WHITE_SCALE, WHITE_QUADRATURE)]
         if self.red_mode == "free":
-            free += [f"{n}_red_{k}" for n in pulsars for k in ("log10_A", "gamma")]
+            free += [for_pulsar(q, n) for n in pulsars for q in (RED_AMPLITUDE, RED_INDEX)]
         if section.common != "none":
-            values["gwb_log10_A"] = np.log10(gwb["amplitude"]) if gwb.get("amplitude", 0) > 0 else -np.inf
-            values["gwb_gamma"] = float(gwb.get("gamma", 13.0 / 3.0))
-            free += ["gwb_log10_A", "gwb_gamma"]
-        if section.cw:
-            values.update(self._cw_defaults(dataset, section))
-            free += [f"cw_{k}" for k in section.cw_free]
+            values[COMMON_AMPLITUDE] = np.log10(gwb["amplitude"]) if gwb.get("amplitude", 0) > 0 else -np.inf
+            values[COMMON_INDEX] = float(gwb.get("gamma", 13.0 / 3.0))
+            free += [COMMON_AMPLITUDE, COMMON_INDEX]
+        self.default_priors = dict(DEFAULT_PRIORS)
+        if section.binary:
+            self.default_priors[binary("lg_frequency")] = binary_frequency_prior(dataset)
+            values.update(self._binary_defaults(dataset, section))
+            free += [binary(k) for k in section.binary_free]
         self.injected = {k: v for k, v in values.items() if np.isfinite(v)}
 
-        known = set(values) | set(DEFAULT_PRIORS)
-        used = set(free) | {k for k in values if k.startswith(("gwb_", "cw_")) or k.endswith(("_white_scale", "_white_log10_quadrature"))}
+        known = set(values) | set(self.default_priors)
+        used = set(free) | {k for k in values if quantity(k) in (COMMON_AMPLITUDE, COMMON_INDEX, WHITE_SCALE, WHITE_QUADRATURE)
+                            or k.startswith("binary_")}
         if self.red_mode != "none":
-            used |= {k for k in values if k.endswith(("_red_log10_A", "_red_gamma"))}
+            used |= {k for k in values if quantity(k) in (RED_AMPLITUDE, RED_INDEX)}
         for key, value in section.fixed.items():
-            targets = [k for k in values if generic(k) == key and k != key] if key in _PER_PULSAR else [key]
+            targets = [k for k in values if quantity(k) == key and k != key] if key in PER_PULSAR else [key]
             for target in targets:
                 if target not in values:
-                    raise InputError(f"the model has no parameter {key!r}", f"fit.fixed.{key}")
+                    raise InputError(f"the model has no parameter {key!r}; {_NAMING}", f"fit.fixed.{key}")
                 if target not in used:
                     raise InputError(f"{key!r} is not used by this model (red = {self.red_mode!r}, common = {section.common!r})",
                                      f"fit.fixed.{key}")
@@ -151,8 +179,8 @@ class FitModel:
                     free.remove(target)
         for key in section.priors:
             if key not in known:
-                raise InputError(f"the model has no parameter {key!r}", f"fit.priors.{key}")
-            if key not in free and not any(f.endswith("_" + key) for f in free):
+                raise InputError(f"the model has no parameter {key!r}; {_NAMING}", f"fit.priors.{key}")
+            if key not in free and not any(quantity(f) == key for f in free):
                 raise InputError(f"{key!r} is not a free parameter of this model", f"fit.priors.{key}")
         if not free:
             raise InputError("no free parameters: nothing to fit", "fit")
@@ -164,43 +192,43 @@ class FitModel:
             [q.times for q in self.likelihood.pulsars],
         )
         for name, prior in zip(free, self.priors):
-            key = name if name in section.priors else generic(name)
+            key = name if name in section.priors else quantity(name)
             _check_support(prior, name, f"fit.priors.{key}")
         self._warned = False
 
-    @staticmethod
-    def _cw_defaults(dataset, section):
+    def _binary_defaults(self, dataset, section):
         sources = dataset.signals.get("cw", {}).get("sources")
         values = {}
         if sources is not None and len(sources):
             s = sources[0]
             values = {
-                "cw_log10_h0": float(np.log10(s["strain"])),
-                "cw_phase": float(s["phase"]),
-                "cw_cos_inclination": float(np.cos(s["inclination"])),
-                "cw_polarization": float(s["polarization"]),
-                "cw_ra": float(s["ra"]),
-                "cw_sin_dec": float(np.sin(s["dec"])),
-                "cw_log10_frequency": float(np.log10(s["frequency"])),
+                binary("lg_strain"): float(np.log10(s["strain"])),
+                binary("phase"): float(s["phase"]),
+                binary("cos_inclination"): float(np.cos(s["inclination"])),
+                binary("polarization"): float(s["polarization"]),
+                binary("right_ascension"): float(s["ra"]),
+                binary("sin_declination"): float(np.sin(s["dec"])),
+                binary("lg_frequency"): float(np.log10(s["frequency"])),
             }
-        for key, value in section.cw_values.items():
-            if key not in _CW:
-                raise InputError(f"the continuous-wave model has no parameter {key!r}", f"fit.cw_values.{key}")
-            values[f"cw_{key}"] = float(value)
-        missing = [k for k in _CW if f"cw_{k}" not in values and k not in section.cw_free]
+        for key, value in section.binary_values.items():
+            if key not in BINARY_QUANTITIES:
+                raise InputError(f"the continuous-wave model has no quantity {key!r} (it has {', '.join(BINARY_QUANTITIES)})",
+                                 f"fit.binary_values.{key}")
+            values[binary(key)] = float(value)
+        missing = [k for k in BINARY_QUANTITIES if binary(k) not in values and k not in section.binary_free]
         if missing:
-            raise InputError(f"needs values for {', '.join(missing)} (no injected source to take them from)", "fit.cw_values")
-        for k in section.cw_free:
-            values.setdefault(f"cw_{k}", float(DEFAULT_PRIORS[f"cw_{k}"].ppf(0.5)))
+            raise InputError(f"needs values for {', '.join(missing)} (no injected source to take them from)", "fit.binary_values")
+        for k in section.binary_free:
+            values.setdefault(binary(k), float(self.default_priors[binary(k)].ppf(0.5)))
         return values
 
     def _prior(self, name: str):
         if name in self.section.priors:
             return prior_module.from_config(self.section.priors[name])
-        kind = generic(name)
+        kind = quantity(name)
         if kind in self.section.priors:
             return prior_module.from_config(self.section.priors[kind])
-        return DEFAULT_PRIORS[kind]
+        return self.default_priors[kind]
 
     @property
     def ndim(self) -> int:
@@ -220,26 +248,27 @@ class FitModel:
         return values
 
     def _signal(self, v):
-        if not self.section.cw:
+        if not self.section.binary:
             return None
-        binary = Binary(
-            name="fit", ra=v["cw_ra"], dec=float(np.arcsin(np.clip(v["cw_sin_dec"], -1, 1))),
-            frequency=10 ** v["cw_log10_frequency"], strain=10 ** v["cw_log10_h0"],
-            inclination=float(np.arccos(np.clip(v["cw_cos_inclination"], -1, 1))), polarization=v["cw_polarization"],
-            phase=v["cw_phase"], pulsar_term=self.section.cw_pulsar_term,
+        source = Binary(
+            name="fit", ra=v[binary("right_ascension")],
+            dec=float(np.arcsin(np.clip(v[binary("sin_declination")], -1, 1))),
+            frequency=10 ** v[binary("lg_frequency")], strain=10 ** v[binary("lg_strain")],
+            inclination=float(np.arccos(np.clip(v[binary("cos_inclination")], -1, 1))),
+            polarization=v[binary("polarization")], phase=v[binary("phase")], pulsar_term=self.section.binary_pulsar_term,
         )
-        return self._layout.residuals([binary])
+        return self._layout.residuals([source])
 
     def log_likelihood(self, x) -> float:
         v = self.parameters(x)
         names = self.dataset.names
         value = self.likelihood(
-            white_scale=np.array([v[f"{n}_white_scale"] for n in names]),
-            white_quadrature=np.array([10 ** v[f"{n}_white_log10_quadrature"] for n in names]),
-            red_amplitude=np.array([10 ** v[f"{n}_red_log10_A"] for n in names]),
-            red_gamma=np.array([v[f"{n}_red_gamma"] for n in names]),
-            amplitude=10 ** v["gwb_log10_A"] if "gwb_log10_A" in v else 0.0,
-            gamma=v.get("gwb_gamma", 13.0 / 3.0),
+            white_scale=np.array([v[for_pulsar(WHITE_SCALE, n)] for n in names]),
+            white_quadrature=np.array([10 ** v[for_pulsar(WHITE_QUADRATURE, n)] for n in names]),
+            red_amplitude=np.array([10 ** v[for_pulsar(RED_AMPLITUDE, n)] for n in names]),
+            red_spectral_index=np.array([v[for_pulsar(RED_INDEX, n)] for n in names]),
+            amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
+            gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
             signal=self._signal(v),
         )
         if np.isnan(value):

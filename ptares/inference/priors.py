@@ -77,7 +77,7 @@ class Normal:
 
 
 def from_config(prior) -> object:
-    """A prior object from a validated :class:`ptares.config.Prior`."""
+    """A prior object from a validated :class:`ptares.inputs.config.Prior`."""
     if prior.uniform is not None:
         return Uniform(*prior.uniform)
     if prior.log_uniform is not None:

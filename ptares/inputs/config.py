@@ -70,12 +70,22 @@ class Draw(BaseModel):
 
 
 def _quantity(unit: str | None):
-    """Before-validator reading a number (or unit string) into ``unit``."""
+    """Before-validator reading a number, a unit string or an astropy Quantity into ``unit``."""
     return (lambda v: to_unit(v, unit)) if unit else parse_number
 
 
+def _bounds_list(bounds: Any):
+    """Draw bounds as a list: a tuple, or an astropy Quantity of two values (``[1, 3] * u.us``), becomes one."""
+    if isinstance(bounds, tuple):
+        return list(bounds)
+    if getattr(bounds, "unit", None) is not None and getattr(bounds, "shape", None) == (2,):
+        return [bounds[0], bounds[1]]
+    return bounds
+
+
 def _drawable(unit: str | None):
-    """Before-validator for a value that is a fixed quantity or a :class:`Draw` table."""
+    """Before-validator for a value that is a fixed quantity (number, unit string, astropy Quantity)
+    or a :class:`Draw` table whose bounds are such quantities."""
     read = _quantity(unit)
 
     def parse(value: Any):
@@ -84,6 +94,7 @@ def _drawable(unit: str | None):
         if len(value) != 1 or next(iter(value)) not in ("uniform", "log_uniform"):
             raise ValueError("a drawn value is a table {uniform = [low, high]} or {log_uniform = [low, high]}")
         kind, bounds = next(iter(value.items()))
+        bounds = _bounds_list(bounds)
         if not isinstance(bounds, list) or len(bounds) != 2:
             raise ValueError(f"{kind} needs a list of two bounds [low, high]")
         low, high = (read(b) for b in bounds)
@@ -143,7 +154,7 @@ def _safe_name(name: str) -> str:
 
 NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9_+\-.]{0,63}")
 SafeName = Annotated[str, AfterValidator(_safe_name)]
-MAX_COMPONENTS = 10_000
+MAX_HARMONICS = 10_000
 MAX_TOAS = 1_000_000  #: per pulsar
 MJD_RANGE = (15_000.0, 100_000.0)  #: 1899 to 2132
 MaxAmplitude = AfterValidator(_at_most(1e-9))  # beyond this residuals exceed a second: surely a typo
@@ -185,12 +196,12 @@ class RedNoise(_Section):
     """``[noise.red]``: intrinsic power-law red noise of each pulsar (zero amplitude: none).
 
     ``amplitude`` (dimensionless, at f = 1/yr) and ``gamma`` are drawable;
-    ``components`` is the number of Fourier frequencies k/T.
+    ``harmonics`` is the number of Fourier frequencies k/T.
     """
 
     amplitude: Drawable(None, NonNegative, MaxAmplitude) = 0.0
     gamma: Drawable(None, SpectralIndex) = 13.0 / 3.0
-    components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
 
 
 class NoiseSection(_Section):
@@ -278,7 +289,7 @@ class ArraySection(_Section):
     """``[array]``: a list of ``pulsars``, a ``random`` array, or plain tables.
 
     ``table`` (TOAs) and ``catalogue`` (pulsars) are CSV files, relative to the
-    config file (see :mod:`ptares.tables`); ``mode = "schedule"`` takes only
+    config file (see :mod:`ptares.inputs.tables`); ``mode = "schedule"`` takes only
     their epochs and errors, ``"inject"`` keeps their residuals and adds the
     configured signals.  ``window`` = [first MJD, last MJD] sets the span T of
     the Fourier basis (default: the TOAs' extent).  ``signals`` names a JSON
@@ -334,7 +345,7 @@ class Background(_Section):
     """``[gwb]``: a stochastic background with a power-law spectrum.
 
     ``amplitude`` of the characteristic strain at f = 1/yr; ``gamma`` the
-    residual spectral index (13/3 for circular binaries); ``components`` the
+    residual spectral index (13/3 for circular binaries); ``harmonics`` the
     number of Fourier frequencies k/T; ``correlation`` the inter-pulsar pattern.
     ``source = "binaries"`` builds it from about ``binaries`` circular binaries
     across the band instead of Gaussian Fourier coefficients;
@@ -343,7 +354,7 @@ class Background(_Section):
 
     amplitude: Quantity(None, NonNegative, MaxAmplitude)
     gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
-    components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     correlation: Literal[CORRELATIONS] = "hellings-downs"
     source: Literal["gaussian", "binaries"] = "gaussian"
     binaries: Count = Field(default=1000, ge=1, le=1_000_000)
@@ -364,7 +375,7 @@ class ContinuousWave(_Section):
     orbital) or ``orbital_frequency`` in nHz, at the array's first epoch;
     ``ra``/``dec`` as for pulsars; ``inclination`` (in [0, pi]),
     ``polarization`` and ``phase`` (orbital phase at the first epoch) in
-    radians; ``evolve`` switches radiation-reaction evolution, ``pulsar_term``
+    radians; ``frequency_evolution`` switches radiation-reaction evolution, ``pulsar_term``
     the pulsar term.
     """
 
@@ -379,7 +390,7 @@ class ContinuousWave(_Section):
     inclination: Quantity("rad") = 0.0
     polarization: Quantity("rad") = 0.0
     phase: Quantity("rad") = 0.0
-    evolve: bool = True
+    frequency_evolution: bool = True
     pulsar_term: bool = True
 
     @field_validator("inclination")
@@ -395,8 +406,8 @@ class ContinuousWave(_Section):
             raise ValueError("give either 'frequency' (GW) or 'orbital_frequency', not both or neither")
         if (self.distance is None) == (self.strain is None):
             raise ValueError("give either 'distance' or 'strain', not both or neither")
-        if self.chirp_mass is None and (self.distance is not None or self.evolve):
-            need = "'distance'" if self.distance is not None else "'evolve = true'"
+        if self.chirp_mass is None and (self.distance is not None or self.frequency_evolution):
+            need = "'distance'" if self.distance is not None else "'frequency_evolution = true'"
             raise ValueError(f"'chirp_mass' is needed with {need}")
         return self
 
@@ -412,7 +423,7 @@ class PulsarNoise(_Section):
     white_scale: Optional[Quantity(None, Positive)] = None
     white_quadrature: Optional[Quantity("us", NonNegative)] = None
     red_amplitude: Optional[Quantity(None, NonNegative, MaxAmplitude)] = None
-    red_gamma: Optional[Quantity(None, SpectralIndex)] = None
+    red_spectral_index: Optional[Quantity(None, SpectralIndex)] = None
 
     def given(self) -> dict:
         return {k: v for k, v in self.model_dump().items() if v is not None}
@@ -427,18 +438,18 @@ class CorrelateNoise(_Section):
     white_scale: Quantity(None, Positive) = 1.0
     white_quadrature: Quantity("us", NonNegative) = 0.0
     red_amplitude: Quantity(None, NonNegative, MaxAmplitude) = 0.0
-    red_gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
-    red_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    red_spectral_index: Quantity(None, SpectralIndex) = 13.0 / 3.0
+    red_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     common_amplitude: Quantity(None, NonNegative, MaxAmplitude) = 0.0
-    common_gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
-    common_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    common_spectral_index: Quantity(None, SpectralIndex) = 13.0 / 3.0
+    common_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     pulsars: dict[str, "PulsarNoise"] = {}
 
 
 class CorrelateSection(_Section):
     """``[correlate]``: settings of ``ptares correlate``.
 
-    ``gamma`` and ``components`` shape the template (default: the injected
+    ``gamma`` and ``harmonics`` shape the template (default: the injected
     background's, else 13/3 and 30); ``noise`` is ``"injected"`` (the dataset's
     truth), ``"values"`` (``[correlate.noise_values]``) or ``"posterior"``
     (``draws`` samples of a ``ptares fit`` whose ``chains.h5`` is ``chains``: the
@@ -450,7 +461,7 @@ class CorrelateSection(_Section):
     """
 
     gamma: Optional[Quantity(None, SpectralIndex)] = None
-    components: Optional[Count] = Field(default=None, ge=1, le=MAX_COMPONENTS)
+    harmonics: Optional[Count] = Field(default=None, ge=1, le=MAX_HARMONICS)
     noise: Literal["injected", "values", "posterior"] = "injected"
     chains: Optional[str] = None
     draws: Count = Field(default=50, ge=1, le=100_000)
@@ -502,42 +513,51 @@ class Prior(BaseModel):
         return self
 
 
+#: Quantities of the continuous-wave (one binary) fit model; parameter names add ``binary_``
+#: (see :mod:`ptares.inference.parameters`): lg of the strain h0, orbital phase at the first
+#: epoch (rad), cos of the inclination, polarisation angle (rad), right ascension (rad), sin of
+#: the declination, lg of the GW frequency (Hz).
+BINARY_QUANTITIES = ("lg_strain", "phase", "cos_inclination", "polarization", "right_ascension",
+                     "sin_declination", "lg_frequency")
+
+
 class FitSection(_Section):
     """``[fit]``: the model ``ptares fit`` samples and how.
 
     ``common``: the common process, ``"uncorrelated"``, ``"hellings-downs"`` or
-    ``"none"``, on ``components`` frequencies; ``red``: each pulsar's red noise
+    ``"none"``, on ``harmonics`` frequencies; ``red``: each pulsar's red noise
     ``"free"``, ``"injected"`` (fixed at the dataset's truth) or ``"none"``, on
-    ``red_components`` frequencies; ``white``: ``"injected"`` or ``"free"``;
-    ``cw``: fit a continuous wave, with parameters ``cw_free`` free and the rest
-    from ``cw_values`` (else the dataset's first injected source).  ``fixed``
-    pins any parameter to a value; ``priors`` replaces default priors (keys are
-    parameter names, or a per-pulsar name without the pulsar, e.g.
-    ``red_log10_A``).  Sampler: ``walkers`` (0: automatic), ``max_steps``, stop
-    when the chain is longer than ``autocorr_factor`` autocorrelation times,
-    ``thin``, ``burn`` (default two autocorrelation times), ``start`` at draws
-    from the prior or near the maximum posterior, ``seed``, ``workers``
-    (processes for likelihood calls; 1: none).  ``pulsars`` limits the fit to
-    those pulsars.
+    ``red_harmonics`` frequencies; ``white``: ``"injected"`` or ``"free"``;
+    ``binary``: fit a continuous wave from one binary, with the quantities in
+    ``binary_free`` free and the rest from ``binary_values`` (else the dataset's
+    first injected source).  ``fixed`` pins any parameter to a value; ``priors``
+    replaces default priors (keys are parameter names, or a per-pulsar quantity
+    without ``@pulsar``, e.g. ``red_lg_amplitude``, for every pulsar; see
+    :mod:`ptares.inference.parameters`).  Sampler: ``walkers`` (0: automatic),
+    ``max_steps``, stop when the chain is longer than ``autocorr_factor``
+    autocorrelation times, ``thin``, ``burn`` (default two autocorrelation
+    times), ``start`` at draws from the prior or near the maximum posterior,
+    ``seed``, ``workers`` (processes for likelihood calls; 1: none).
+    ``pulsars`` limits the fit to those pulsars.
     """
 
     common: Literal["uncorrelated", "hellings-downs", "none"] = "uncorrelated"
-    components: Optional[Count] = Field(default=None, ge=1, le=MAX_COMPONENTS)
+    harmonics: Optional[Count] = Field(default=None, ge=1, le=MAX_HARMONICS)
     red: Optional[Literal["free", "injected", "none"]] = None
-    red_components: Count = Field(default=30, ge=1, le=MAX_COMPONENTS)
+    red_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     white: Literal["injected", "free"] = "injected"
-    cw: bool = False
-    cw_free: tuple[Literal["log10_h0", "phase", "cos_inclination", "polarization", "ra", "sin_dec", "log10_frequency"], ...] = (
-        "log10_h0", "phase", "cos_inclination", "polarization")
-    cw_values: dict[str, float] = {}
-    cw_pulsar_term: bool = False
+    binary: bool = False
+    binary_free: tuple[Literal[BINARY_QUANTITIES], ...] = ("lg_strain", "phase", "cos_inclination", "polarization")
+    binary_values: dict[str, float] = {}
+    binary_pulsar_term: bool = False
 
-    @field_validator("cw_free")
+    @field_validator("binary_free")
     @classmethod
     def _unique_free(cls, names):
         if len(set(names)) != len(names):
             raise ValueError("a parameter is listed twice")
         return names
+
     fixed: dict[str, float] = {}
     priors: dict[str, Prior] = {}
     pulsars: Optional[tuple[str, ...]] = None
@@ -642,7 +662,7 @@ class Config(_Section):
             return path
         return self._path.parent / path
 
-    def cw_name(self, index: int) -> str:
+    def source_name(self, index: int) -> str:
         """The name of ``[[cw]]`` source ``index``: its own, or ``cw<index + 1>``."""
         return self.cw[index].name or f"cw{index + 1}"
 
@@ -666,9 +686,27 @@ def _location(loc: tuple, raw: dict) -> str:
     return text
 
 
-def _message(error: dict) -> str:
+#: Keys renamed before the first release: an old key is still an unknown key, with a hint.
+RENAMED = {
+    "components": ("harmonics", "the number of Fourier frequencies"),
+    "red_components": ("red_harmonics", "the number of red-noise Fourier frequencies"),
+    "common_components": ("common_harmonics", "the number of common-process Fourier frequencies"),
+    "evolve": ("frequency_evolution", "radiation-reaction frequency evolution"),
+    "cw": ("binary", "the continuous-wave fit switch"),
+    "cw_free": ("binary_free", "the list of free continuous-wave quantities"),
+    "cw_values": ("binary_values", "the table of fixed continuous-wave quantities"),
+    "cw_pulsar_term": ("binary_pulsar_term", "the continuous-wave fit's pulsar-term switch"),
+}
+
+
+def _message(error: dict, location: str = "") -> str:
     kind = error["type"]
     if kind == "extra_forbidden":
+        key = str(error["loc"][-1]) if error["loc"] else ""
+        if key in RENAMED:
+            new, what = RENAMED[key]
+            parent = re.sub(r" \([^)]*\)", "", location.rpartition(".")[0])
+            return f"unknown key; {what} is now '{parent + '.' if parent else ''}{new}'"
         return "unknown key"
     if kind == "missing":
         return "required key is missing"
@@ -736,9 +774,9 @@ def _check_sources(config: Config) -> None:
     first = min(s.start for s in schedules)
     span = max(s.start + s.span * YEAR / DAY for s in schedules) - first  # days
     nyquist = 1.0 / (2.0 * min(s.cadence for s in schedules) * DAY)
-    names = [config.cw_name(i) for i in range(len(config.cw))]
+    names = [config.source_name(i) for i in range(len(config.cw))]
     for i, source in enumerate(config.cw):
-        path = f"cw[{i}] ({config.cw_name(i)})"
+        path = f"cw[{i}] ({config.source_name(i)})"
         if names.count(names[i]) > 1:
             raise InputError("source names must be unique", f"{path}.name")
         key = "frequency" if source.frequency is not None else "orbital_frequency"
@@ -747,7 +785,7 @@ def _check_sources(config: Config) -> None:
             raise InputError(f"GW frequency {f * 1e9:.4g} nHz completes no full cycle in the {span / 365.25:.3g}-yr span", f"{path}.{key}")
         if f > nyquist:
             raise InputError(f"GW frequency {f * 1e9:.4g} nHz is above the cadence's Nyquist frequency {nyquist * 1e9:.4g} nHz", f"{path}.{key}")
-        if source.evolve:
+        if source.frequency_evolution:
             tau = float(time_to_coalescence(source.chirp_mass * M_SUN, f))
             if tau <= span * DAY:
                 raise InputError(f"the binary merges {tau / YEAR:.3g} yr after the first epoch, within the span", f"{path}.chirp_mass")
@@ -766,7 +804,8 @@ def _check_sources(config: Config) -> None:
 def validation_error(exc: ValidationError, raw: dict, where: str, prefix: tuple = ()) -> InputError:
     first = exc.errors()[0]
     loc = prefix + tuple(p for p in first["loc"] if not (isinstance(p, str) and p.startswith("function-")))
-    return InputError(_message(first), f"{where}: {_location(loc, raw)}" if loc else where)
+    location = _location(loc, raw)
+    return InputError(_message(first, location), f"{where}: {location}" if loc else where)
 
 
 def load_correlate_section(path) -> CorrelateSection:

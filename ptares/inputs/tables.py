@@ -10,7 +10,7 @@ microseconds) and ``frequency_mhz``.  Columns ``injected_<component>_s`` and
 Catalogue, one row per pulsar: ``name``, ``ra``, ``dec`` (degrees or
 sexagesimal, or ``ra_rad``/``dec_rad``), ``distance`` and ``distance_error``
 (kpc, also ``distance_kpc``...), and optionally the noise columns
-``white_scale``, ``white_quadrature_s``, ``red_amplitude``, ``red_gamma``.
+``white_scale``, ``white_quadrature_s``, ``red_amplitude``, ``red_spectral_index``.
 
 Files are read with Python's csv module; every fault names the file, the row
 (the header is row 1) and the column, and nothing is written.
@@ -35,7 +35,7 @@ from ptares.inputs.units import parse_dec, parse_ra
 __all__ = ["PulsarRow", "TableArray", "read_tables", "export_tables"]
 
 _UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "ns": 1e-9}
-_NOISE = {"white_scale": 1.0, "white_quadrature_s": 1.0, "red_amplitude": 1.0, "red_gamma": 1.0, "true_distance_kpc": 1.0}
+_NOISE = {"white_scale": 1.0, "white_quadrature_s": 1.0, "red_amplitude": 1.0, "red_spectral_index": 1.0, "true_distance_kpc": 1.0}
 
 
 @dataclass
@@ -45,7 +45,7 @@ class PulsarRow:
     dec: float  #: radians
     distance: float  #: kpc
     distance_error: float  #: kpc
-    noise: dict = field(default_factory=dict)  #: white_scale, white_quadrature (s), red_amplitude, red_gamma
+    noise: dict = field(default_factory=dict)  #: white_scale, white_quadrature (s), red_amplitude, red_spectral_index
 
 
 @dataclass
@@ -237,9 +237,9 @@ def export_tables(dataset: Dataset, directory) -> list:
             row += [repr(float(p.injected[c][i])) if c in p.injected else "0.0" for c in components]
             row += [repr(float(p.measured[i])) if p.measured is not None else "0.0"] if has_measured else []
             rows.append(row)
-    noise_keys = ["white_scale", "white_quadrature", "red_amplitude", "red_gamma", "distance"]
+    noise_keys = ["white_scale", "white_quadrature", "red_amplitude", "red_spectral_index", "distance"]
     catalogue_header = ["name", "ra_rad", "dec_rad", "distance_kpc", "distance_error_kpc",
-                        "white_scale", "white_quadrature_s", "red_amplitude", "red_gamma", "true_distance_kpc"]
+                        "white_scale", "white_quadrature_s", "red_amplitude", "red_spectral_index", "true_distance_kpc"]
     catalogue_rows = [
         [p.name, repr(float(p.ra)), repr(float(p.dec)), repr(float(p.distance)), repr(float(p.distance_error))]
         + [repr(float(p.noise[k])) if k in p.noise else "" for k in noise_keys]

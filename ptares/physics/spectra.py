@@ -93,11 +93,11 @@ def strain_from_omega_gw(f, omega, hubble_constant=None):
     return np.sqrt(3.0 * h0**2 * np.asarray(omega, dtype=float) / (2.0 * np.pi**2 * f**2))
 
 
-def fourier_frequencies(span: float, components: int) -> np.ndarray:
-    """Basis frequencies ``k / span`` for k = 1..components (Hz; span in s)."""
-    return np.arange(1, components + 1) / span
+def fourier_frequencies(span: float, harmonics: int) -> np.ndarray:
+    """Basis frequencies ``k / span`` for k = 1..harmonics (Hz; span in s)."""
+    return np.arange(1, harmonics + 1) / span
 
 
-def coefficient_variance(span: float, components: int, amplitude: float, gamma: float) -> np.ndarray:
+def coefficient_variance(span: float, harmonics: int, amplitude: float, gamma: float) -> np.ndarray:
     """Variance ``S(f_k) / T`` (s^2) of each sine and each cosine coefficient."""
-    return residual_psd(fourier_frequencies(span, components), amplitude, gamma) / span
+    return residual_psd(fourier_frequencies(span, harmonics), amplitude, gamma) / span

@@ -47,7 +47,7 @@ class PulsarSetup:
     white_scale: float
     white_quadrature: float  #: s
     red_amplitude: float
-    red_gamma: float
+    red_spectral_index: float
     true_distance: float  #: kpc, the distance pulsar terms use (drawn when the config varies distances)
 
     @property
@@ -104,7 +104,7 @@ def build_array(config: Config, seed: int, tables=None) -> list[PulsarSetup]:
                  observing=config.observing,
                  white=WhiteOverride(scale=p.noise.get("white_scale"),
                                      quadrature=p.noise["white_quadrature"] * 1e6 if "white_quadrature" in p.noise else None),
-                 red=RedOverride(amplitude=p.noise.get("red_amplitude"), gamma=p.noise.get("red_gamma")))
+                 red=RedOverride(amplitude=p.noise.get("red_amplitude"), gamma=p.noise.get("red_spectral_index")))
             for p in tables.pulsars
         ]
     elif config.array.random is not None:
@@ -163,7 +163,7 @@ def build_array(config: Config, seed: int, tables=None) -> list[PulsarSetup]:
                     _first(white and white.quadrature, noise.white.quadrature), seed, name, "white_quadrature", _US
                 ),
                 red_amplitude=_resolve(_first(red and red.amplitude, noise.red.amplitude), seed, name, "red_amplitude"),
-                red_gamma=_resolve(_first(red and red.gamma, noise.red.gamma), seed, name, "red_gamma"),
+                red_spectral_index=_resolve(_first(red and red.gamma, noise.red.gamma), seed, name, "red_spectral_index"),
                 true_distance=_true_distance(
                     float(entry["distance"]), float(entry["distance_error"]), config.array.vary_distances, seed, name
                 ),

@@ -16,7 +16,7 @@ import math
 import numba
 import numpy as np
 
-__all__ = ["synthesise", "synthesise_reference", "cw_residuals", "cw_residuals_reference"]
+__all__ = ["synthesise", "synthesise_reference", "wave_residuals", "wave_residuals_reference"]
 
 
 @numba.njit(parallel=True, cache=True)
@@ -75,7 +75,7 @@ def synthesise_reference(times, owner, df, sine, cosine) -> np.ndarray:
 #     h(x) = (1 - (1 - x)^(5/8)) / (5 x / 8),
 # which is the Peters evolution of the GW phase written about the term's own
 # reference moment (rate = 0: a monochromatic wave).  See
-# :mod:`ptares.signals.continuous` for how the parameters are prepared.  The
+# :mod:`ptares.simulation.signals.continuous` for how the parameters are prepared.  The
 # kernel needs many sines and cosines, so it uses its own branch-light
 # ``_sincos`` (Cody–Waite reduction, Taylor polynomials on |r| <= pi/4) that
 # LLVM can vectorise, and evaluates (1 - x)^(1/8) with three square roots.
@@ -180,7 +180,7 @@ def _add_term(out, times, theta0, angular, rate, amp, ep, ex, series):  # pragma
 
 
 @numba.njit(parallel=True, cache=True, error_model="numpy")
-def _cw_residuals(times, bounds, earth, pulsar, fplus, fcross, weights):  # pragma: no cover - compiled
+def _wave_residuals(times, bounds, earth, pulsar, fplus, fcross, weights):  # pragma: no cover - compiled
     out = np.zeros(times.size)
     for a in numba.prange(bounds.size - 1):
         lo, hi = bounds[a], bounds[a + 1]
@@ -201,7 +201,7 @@ def _cw_residuals(times, bounds, earth, pulsar, fplus, fcross, weights):  # prag
     return out
 
 
-def cw_residuals(times, bounds, earth, pulsar, fplus, fcross, weights) -> np.ndarray:
+def wave_residuals(times, bounds, earth, pulsar, fplus, fcross, weights) -> np.ndarray:
     """Summed continuous-wave residuals (s) at every TOA.
 
     Parameters
@@ -213,7 +213,7 @@ def cw_residuals(times, bounds, earth, pulsar, fplus, fcross, weights) -> np.nda
     fplus, fcross : (S, P) antenna patterns.
     weights : (S, 2) inclination weights ``(1 + cos^2 i) / 2`` and ``-cos i``.
     """
-    return _cw_residuals(
+    return _wave_residuals(
         np.ascontiguousarray(times, dtype=np.float64),
         np.ascontiguousarray(bounds, dtype=np.int64),
         np.ascontiguousarray(earth, dtype=np.float64),
@@ -234,8 +234,8 @@ def _term_reference(t, theta0, angular, rate, amp):
     return amp[:, None] * y * np.sin(theta), amp[:, None] * y * np.cos(theta)
 
 
-def cw_residuals_reference(times, bounds, earth, pulsar, fplus, fcross, weights) -> np.ndarray:
-    """Numpy twin of :func:`cw_residuals` (same inputs)."""
+def wave_residuals_reference(times, bounds, earth, pulsar, fplus, fcross, weights) -> np.ndarray:
+    """Numpy twin of :func:`wave_residuals` (same inputs)."""
     out = np.zeros(len(times))
     for a in range(len(bounds) - 1):
         t = np.asarray(times[bounds[a] : bounds[a + 1]], dtype=float)

@@ -1,7 +1,7 @@
 """From a validated config to a simulated dataset.
 
-The steps, in order: resolve the array (:mod:`ptares.pulsar_array`), draw each
-pulsar's TOAs, draw every component (:mod:`ptares.signals`) on them, add the
+The steps, in order: resolve the array (:mod:`ptares.simulation.array`), draw each
+pulsar's TOAs, draw every component (:mod:`ptares.simulation.signals`) on them, add the
 components, and fit the timing model out of the sum.  Components are stored
 before the fit (``injected``), the sum after it (``residuals``).
 """
@@ -136,7 +136,7 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
                     "white_scale": p.white_scale,
                     "white_quadrature": p.white_quadrature,
                     "red_amplitude": p.red_amplitude,
-                    "red_gamma": p.red_gamma,
+                    "red_spectral_index": p.red_spectral_index,
                     "distance": p.true_distance,
                 },
             )

@@ -1,4 +1,4 @@
-"""Sampling a :class:`~ptares.fit_model.FitModel` with emcee, checkpointed so that nothing is lost.
+"""Sampling a :class:`~ptares.inference.model.FitModel` with emcee, checkpointed so that nothing is lost.
 
 Chains go to an HDF5 file through emcee's own HDF backend, in batches of
 steps (every 100 steps, every 10 s, and when the run stops).  Rerunning the same fit with the same output resumes from the last saved
@@ -135,8 +135,8 @@ def run_sampler(model: FitModel, path, progress: bool = False, overwrite: bool =
             f.attrs["injected"] = json.dumps(model.injected)
             f.attrs["held_values"] = json.dumps({k: v for k, v in model.values.items() if k not in model.names},
                                                 default=str)
-            f.attrs["common_components"] = model.components if model.section.common != "none" else 0
-            f.attrs["red_components"] = model.likelihood.red_components
+            f.attrs["common_harmonics"] = model.harmonics if model.section.common != "none" else 0
+            f.attrs["red_harmonics"] = model.likelihood.red_harmonics
             f.attrs["dataset_fingerprint"] = fingerprint(model.dataset)
     elif backend.shape != (walkers, model.ndim):
         raise InputError("the saved chains have another number of walkers", str(path))
@@ -248,5 +248,5 @@ def summarise(model: FitModel, run: FitRun) -> dict:
         "burn": int(burn),
         "thin": model.section.thin,
         "model": {"common": model.section.common, "red": model.red_mode, "white": model.section.white,
-                  "cw": model.section.cw, "components": model.components},
+                  "binary": model.section.binary, "harmonics": model.harmonics},
     }

@@ -1,8 +1,8 @@
 """Signal and noise components, a plug-in family.
 
-Each module defines one component (see :mod:`ptares.signals.base` for the
+Each module defines one component (see :mod:`ptares.simulation.signals.base` for the
 protocol) and a ``from_config(config, pulsars)`` builder (``pulsars``: the resolved
-:class:`~ptares.pulsar_array.PulsarSetup` list) that returns it, or ``None``
+:class:`~ptares.simulation.array.PulsarSetup` list) that returns it, or ``None``
 when the config does not ask for it.  Adding a kind means adding a module and
 one line to :data:`BUILDERS`.
 """

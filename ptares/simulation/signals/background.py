@@ -48,15 +48,15 @@ def lower_factor(matrix: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
 class GaussianBackground:
     amplitude: float
     gamma: float
-    components: int
+    harmonics: int
     correlation: str
     name: str = "gwb"
 
     def draw(self, context: Context) -> list[np.ndarray]:
         positions = np.array([p.position for p in context.pulsars])
         factor = lower_factor(correlation_matrix(positions, self.correlation))
-        z = np.array([stream(context.seed, self.name, p.name).standard_normal((2, self.components)) for p in context.pulsars])
-        sd = np.sqrt(coefficient_variance(context.observations.span, self.components, self.amplitude, self.gamma))
+        z = np.array([stream(context.seed, self.name, p.name).standard_normal((2, self.harmonics)) for p in context.pulsars])
+        sd = np.sqrt(coefficient_variance(context.observations.span, self.harmonics, self.amplitude, self.gamma))
         coefficients = np.einsum("ab,bck->cak", factor, z) * sd
         return synthesise_array(context.observations, coefficients[0], coefficients[1])
 
@@ -64,7 +64,7 @@ class GaussianBackground:
         return {
             "amplitude": self.amplitude,
             "gamma": self.gamma,
-            "components": self.components,
+            "harmonics": self.harmonics,
             "correlation": self.correlation,
             "source": "gaussian",
         }
@@ -79,4 +79,4 @@ def from_config(config, pulsars):
         from ptares.simulation.signals import population
 
         return population.from_config(config, pulsars)
-    return GaussianBackground(gwb.amplitude, gwb.gamma, gwb.components, gwb.correlation)
+    return GaussianBackground(gwb.amplitude, gwb.gamma, gwb.harmonics, gwb.correlation)

@@ -11,7 +11,7 @@ model's offset absorbs,
 ``r+(t) = a(t) (1 + cos^2 i)/2 sin 2Phi(t)``, ``rx(t) = -a(t) cos i cos 2Phi(t)``,
 ``a = h0 / (2 pi f)``, evaluated at the Earth and at the pulsar (where the
 binary is seen earlier, at a lower frequency).  Phase and frequency follow
-Peters (1964); see :mod:`ptares.binaries`.  Time ``t`` runs from the array's
+Peters (1964); see :mod:`ptares.physics.binaries`.  Time ``t`` runs from the array's
 first epoch, where the configured frequency and phase hold.
 """
 
@@ -24,7 +24,7 @@ import numpy as np
 from ptares.physics.binaries import strain_amplitude, time_to_coalescence
 from ptares.physics.constants import KPC, M_SUN, C
 from ptares.physics.sky import antenna_patterns, unit_vector
-from ptares.simulation.kernels import cw_residuals
+from ptares.simulation.kernels import wave_residuals
 from ptares.simulation.signals.base import Context
 
 __all__ = ["Binary", "ContinuousWaves", "PulsarLayout", "prepare_terms", "binary_residuals", "from_config"]
@@ -45,7 +45,7 @@ class Binary:
     polarization: float
     phase: float  #: orbital phase at t = 0
     chirp_mass: float = 0.0  #: kg; 0 when unknown (then the binary cannot evolve)
-    evolve: bool = False
+    frequency_evolution: bool = False
     pulsar_term: bool = True
 
 
@@ -58,10 +58,10 @@ def prepare_terms(binaries, positions, distances):
     """Kernel inputs for ``binaries`` seen by pulsars at unit vectors ``positions`` and ``distances`` (kpc).
 
     Returns ``(earth, pulsar, fplus, fcross, weights)`` as documented in
-    :func:`ptares.kernels.cw_residuals`.
+    :func:`ptares.simulation.kernels.wave_residuals`.
     """
     b = _as_arrays(binaries)
-    evolve = np.array([x.evolve for x in binaries], dtype=bool)
+    evolve = np.array([x.frequency_evolution for x in binaries], dtype=bool)
     with_pulsar = np.array([x.pulsar_term for x in binaries], dtype=bool)
     omega = np.pi * b["frequency"]  # orbital angular frequency
     rate = np.zeros(len(binaries))
@@ -113,7 +113,7 @@ class PulsarLayout:
     def residuals(self, binaries) -> list[np.ndarray]:
         """Summed residuals of ``binaries`` in every pulsar."""
         terms = prepare_terms(binaries, self.positions, self.distances)
-        return np.split(cw_residuals(self.times, self.bounds, *terms), self.bounds[1:-1])
+        return np.split(wave_residuals(self.times, self.bounds, *terms), self.bounds[1:-1])
 
 
 def binary_residuals(binaries, context: Context) -> list[np.ndarray]:
@@ -138,13 +138,13 @@ class ContinuousWaves:
     def describe(self, context: Context) -> dict:
         table = np.array(
             [
-                (b.name, b.ra, b.dec, b.frequency, b.strain, b.inclination, b.polarization, b.phase, b.chirp_mass, b.evolve, b.pulsar_term)
+                (b.name, b.ra, b.dec, b.frequency, b.strain, b.inclination, b.polarization, b.phase, b.chirp_mass, b.frequency_evolution, b.pulsar_term)
                 for b in self.binaries
             ],
             dtype=[
                 ("name", "S64"), ("ra", "f8"), ("dec", "f8"), ("frequency", "f8"), ("strain", "f8"),
                 ("inclination", "f8"), ("polarization", "f8"), ("phase", "f8"), ("chirp_mass", "f8"),
-                ("evolve", "?"), ("pulsar_term", "?"),
+                ("frequency_evolution", "?"), ("pulsar_term", "?"),
             ],
         )
         return {"count": len(self.binaries), "sources": table}
@@ -161,7 +161,7 @@ def from_config(config, pulsars):
         h0 = source.strain if source.strain is not None else float(strain_amplitude(mass, f, source.distance * _MPC))
         binaries.append(
             Binary(
-                name=config.cw_name(i),
+                name=config.source_name(i),
                 ra=float(np.radians(source.ra)),
                 dec=float(np.radians(source.dec)),
                 frequency=f,
@@ -170,7 +170,7 @@ def from_config(config, pulsars):
                 polarization=source.polarization,
                 phase=source.phase,
                 chirp_mass=mass,
-                evolve=source.evolve,
+                frequency_evolution=source.frequency_evolution,
                 pulsar_term=source.pulsar_term,
             )
         )

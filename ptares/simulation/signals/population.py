@@ -35,18 +35,18 @@ from ptares.simulation.signals.continuous import (
 __all__ = ["BinaryPopulation", "bin_counts", "draw_population", "from_config"]
 
 
-def bin_counts(binaries: int, components: int) -> np.ndarray:
+def bin_counts(binaries: int, harmonics: int) -> np.ndarray:
     """Binaries per frequency bin: ``max(1, round(N w_k))``, ``w_k`` proportional to ``k^(-11/3)``."""
-    weights = np.arange(1, components + 1) ** (-11.0 / 3.0)
+    weights = np.arange(1, harmonics + 1) ** (-11.0 / 3.0)
     return np.maximum(1, np.rint(binaries * weights / weights.sum())).astype(int)
 
 
-def draw_population(amplitude, gamma, components, binaries, spread_dex, span, rng) -> list:
+def draw_population(amplitude, gamma, harmonics, binaries, spread_dex, span, rng) -> list:
     """A list of :class:`Binary` realising the power law on average."""
-    power = coefficient_variance(span, components, amplitude, gamma)  # S(f_k)/T per bin
+    power = coefficient_variance(span, harmonics, amplitude, gamma)  # S(f_k)/T per bin
     sigma = spread_dex * np.log(10.0)
     population = []
-    for k, count in enumerate(bin_counts(binaries, components), start=1):
+    for k, count in enumerate(bin_counts(binaries, harmonics), start=1):
         frequency = (k + rng.uniform(-0.5, 0.5, count)) / span
         loudness = np.exp(sigma * rng.standard_normal(count) - 0.5 * sigma**2)
         strain = np.sqrt(30.0 * np.pi**2 * frequency**2 * power[k - 1] * loudness / count)
@@ -66,7 +66,7 @@ def draw_population(amplitude, gamma, components, binaries, spread_dex, span, rn
 class BinaryPopulation:
     amplitude: float
     gamma: float
-    components: int
+    harmonics: int
     binaries: int
     loudness_spread: float
     name: str = "gwb"
@@ -74,7 +74,7 @@ class BinaryPopulation:
     def population(self, context: Context) -> list:
         rng = stream(context.seed, self.name, "population")
         return draw_population(
-            self.amplitude, self.gamma, self.components, self.binaries, self.loudness_spread,
+            self.amplitude, self.gamma, self.harmonics, self.binaries, self.loudness_spread,
             context.observations.span, rng,
         )
 
@@ -85,7 +85,7 @@ class BinaryPopulation:
         return {
             "amplitude": self.amplitude,
             "gamma": self.gamma,
-            "components": self.components,
+            "harmonics": self.harmonics,
             "correlation": "hellings-downs",
             "source": "binaries",
             "loudness_spread": self.loudness_spread,
@@ -96,4 +96,4 @@ class BinaryPopulation:
 def from_config(config, pulsars):
     """Used by the background builder when ``[gwb] source = "binaries"``."""
     gwb = config.gwb
-    return BinaryPopulation(gwb.amplitude, gwb.gamma, gwb.components, gwb.binaries, gwb.loudness_spread)
+    return BinaryPopulation(gwb.amplitude, gwb.gamma, gwb.harmonics, gwb.binaries, gwb.loudness_spread)

@@ -2,7 +2,7 @@
 
 Sine and cosine coefficients at ``f_k = k / T`` have variance
 ``S(f_k) / T`` with the pulsar's own amplitude and index (PHYSICS.md,
-"Intrinsic noise"; :func:`ptares.spectra.coefficient_variance`).
+"Intrinsic noise"; :func:`ptares.physics.spectra.coefficient_variance`).
 """
 
 from __future__ import annotations
@@ -20,24 +20,24 @@ __all__ = ["RedNoise", "from_config"]
 
 @dataclass(frozen=True)
 class RedNoise:
-    components: int
+    harmonics: int
     name: str = "red"
 
     def draw(self, context: Context) -> list[np.ndarray]:
         span = context.observations.span
-        coefficients = np.zeros((2, len(context.pulsars), self.components))
+        coefficients = np.zeros((2, len(context.pulsars), self.harmonics))
         for a, pulsar in enumerate(context.pulsars):
             if pulsar.red_amplitude > 0:
-                sd = np.sqrt(coefficient_variance(span, self.components, pulsar.red_amplitude, pulsar.red_gamma))
-                coefficients[:, a] = sd * stream(context.seed, self.name, pulsar.name).standard_normal((2, self.components))
+                sd = np.sqrt(coefficient_variance(span, self.harmonics, pulsar.red_amplitude, pulsar.red_spectral_index))
+                coefficients[:, a] = sd * stream(context.seed, self.name, pulsar.name).standard_normal((2, self.harmonics))
         return synthesise_array(context.observations, coefficients[0], coefficients[1])
 
     def describe(self, context: Context) -> dict:
-        return {"components": self.components}
+        return {"harmonics": self.harmonics}
 
 
 def from_config(config, pulsars):
     """Red noise when any pulsar has a non-zero amplitude."""
     if any(p.red_amplitude > 0 for p in pulsars):
-        return RedNoise(components=config.noise.red.components)
+        return RedNoise(harmonics=config.noise.red.harmonics)
     return None

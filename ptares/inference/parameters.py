@@ -1,0 +1,88 @@
+"""Names of fit parameters: one scheme for chains, summaries, tables, figures and configs.
+
+A parameter of the whole array is named by its quantity alone
+(``common_lg_amplitude``); one pulsar's parameter adds ``@`` and the pulsar's
+name (``red_lg_amplitude@Birch``).  Pulsar names never contain ``@``, so the
+split is unambiguous whatever ``_ . - +`` they hold.  ``lg_`` marks a base-10
+logarithm, as ISO 80000-2 writes it (``lg x = log10 x``).  In ``[fit]`` a
+per-pulsar quantity without ``@pulsar`` stands for every pulsar's.
+"""
+
+from __future__ import annotations
+
+from ptares.inputs.config import BINARY_QUANTITIES
+
+__all__ = [
+    "SEPARATOR",
+    "COMMON_AMPLITUDE",
+    "COMMON_INDEX",
+    "WHITE_SCALE",
+    "WHITE_QUADRATURE",
+    "RED_AMPLITUDE",
+    "RED_INDEX",
+    "PER_PULSAR",
+    "BINARY_QUANTITIES",
+    "LABELS",
+    "binary",
+    "for_pulsar",
+    "split",
+    "quantity",
+    "label",
+]
+
+SEPARATOR = "@"
+
+COMMON_AMPLITUDE = "common_lg_amplitude"  #: lg of the common process's characteristic strain at 1/yr
+COMMON_INDEX = "common_spectral_index"  #: residual spectral index of the common process
+WHITE_SCALE = "white_scale"  #: factor on the quoted TOA uncertainties
+WHITE_QUADRATURE = "white_lg_quadrature"  #: lg of the white noise added in quadrature, in seconds
+RED_AMPLITUDE = "red_lg_amplitude"  #: lg of a pulsar's red-noise amplitude at 1/yr
+RED_INDEX = "red_spectral_index"  #: a pulsar's red-noise spectral index
+
+#: Quantities every pulsar has one of.
+PER_PULSAR = (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX)
+
+def binary(name: str) -> str:
+    """``lg_strain`` -> ``binary_lg_strain``: the parameter name of a continuous-wave quantity."""
+    return f"binary_{name}"
+
+
+def for_pulsar(quantity_name: str, pulsar: str) -> str:
+    """``("red_lg_amplitude", "Birch")`` -> ``red_lg_amplitude@Birch``."""
+    return f"{quantity_name}{SEPARATOR}{pulsar}"
+
+
+def split(name: str) -> tuple:
+    """``red_lg_amplitude@Birch`` -> ``("red_lg_amplitude", "Birch")``; array-wide names give ``(name, None)``."""
+    head, sep, pulsar = name.partition(SEPARATOR)
+    return (head, pulsar) if sep else (name, None)
+
+
+def quantity(name: str) -> str:
+    """The quantity a parameter measures, without its pulsar."""
+    return split(name)[0]
+
+
+#: Axis label (matplotlib math text) of each quantity, with its unit.
+LABELS = {
+    COMMON_AMPLITUDE: r"$\lg A_\mathrm{common}$",
+    COMMON_INDEX: r"$\gamma_\mathrm{common}$",
+    WHITE_SCALE: r"white scale",
+    WHITE_QUADRATURE: r"$\lg(\sigma_\mathrm{quad}\,/\,\mathrm{s})$",
+    RED_AMPLITUDE: r"$\lg A_\mathrm{red}$",
+    RED_INDEX: r"$\gamma_\mathrm{red}$",
+    binary("lg_strain"): r"$\lg h_0$",
+    binary("phase"): r"$\Phi_0\ (\mathrm{rad})$",
+    binary("cos_inclination"): r"$\cos\iota$",
+    binary("polarization"): r"$\psi\ (\mathrm{rad})$",
+    binary("right_ascension"): r"$\alpha\ (\mathrm{rad})$",
+    binary("sin_declination"): r"$\sin\delta$",
+    binary("lg_frequency"): r"$\lg(f_\mathrm{GW}\,/\,\mathrm{Hz})$",
+}
+
+
+def label(name: str) -> str:
+    """Axis label of a parameter: its quantity's math text, and the pulsar in brackets for a pulsar's own."""
+    head, pulsar = split(name)
+    text = LABELS.get(head, head)
+    return f"{text} [{pulsar}]" if pulsar else text
