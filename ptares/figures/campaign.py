@@ -1,4 +1,4 @@
-"""Figures of a campaign: detection probability, recovered amplitude, S/N distributions and interval coverage."""
+"""Figures of a campaign: detection probability, recovered amplitude, S/N distributions and credible-interval coverage."""
 
 from __future__ import annotations
 
@@ -6,12 +6,16 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
 
 from ptares.figures.common import COMPONENT_COLOURS
+from ptares.inference import parameters
 
-__all__ = ["detection_threshold", "sweep_figures"]
+__all__ = ["COVERAGE_PARAMETERS", "coverage_figure", "detection_threshold", "interval_coverage", "sweep_figures"]
+
+#: Parameters whose credible intervals the coverage figure checks; results.csv has ``<name>.quantile``.
+COVERAGE_PARAMETERS = (parameters.COMMON_AMPLITUDE, parameters.COMMON_INDEX)
 
 
 def _ok(rows, key):
@@ -41,8 +45,11 @@ def _groups(rows):
 
 
 def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
-    """Campaign figures by file name: detection probability, recovered amplitude, S/N, and a P-P plot."""
+    """Campaign figures by file name: detection probability, recovered amplitude, S/N distributions
+    (``detection.png``, ``recovery.png``, ``snr.png``) and the coverage of credible intervals (``coverage.png``,
+    when fits ran)."""
     figures = {}
+    every_row = rows
     rows = _ok(rows, "hd_snr")
     if rows:
         threshold, how = detection_threshold(rows, false_alarm)
@@ -98,26 +105,68 @@ def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
         fig.tight_layout()
         figures["snr.png"] = fig
 
-    # only tasks with a background: without one the injected amplitude and index are not defined
-    quantiles = {name: np.sort([r[f"{name}_quantile"] for r in _ok(rows, f"{name}_quantile")
-                                if r.get("injected_amplitude", 1.0) != 0.0])
-                 for name in ("gwb_log10_A", "gwb_gamma")}
-    quantiles = {k: v for k, v in quantiles.items() if v.size}
-    if quantiles:
-        fig, ax = plt.subplots(figsize=(5.0, 5.0))
-        count = min(v.size for v in quantiles.values())
-        grid = np.linspace(0, 1, 101)
-        half_width = 1.36 / np.sqrt(count)  # Kolmogorov-Smirnov 95% band, for the smallest sample shown
-        ax.fill_between(grid, np.clip(grid - half_width, 0, 1), np.clip(grid + half_width, 0, 1), color="#9a9a9a",
-                        alpha=0.25, label=f"95% band ({count} tasks)")
-        for name, values in quantiles.items():
-            ax.plot(np.concatenate([[0], values, [1]]), np.concatenate([[0], np.arange(1, values.size + 1) / values.size, [1]]),
-                    drawstyle="steps-post", label=name)
-        ax.plot([0, 1], [0, 1], color="k", lw=0.8)
-        ax.set_xlabel("credible level")
-        ax.set_ylabel("fraction of injections within it")
-        ax.set_title("P-P plot of posterior coverage", fontsize=10)
-        ax.legend(fontsize=8)
-        fig.tight_layout()
-        figures["pp.png"] = fig
+    coverage = coverage_figure(every_row)
+    if coverage is not None:
+        figures["coverage.png"] = coverage
     return figures
+
+
+def interval_coverage(quantiles, widths):
+    """Fraction of ``quantiles`` inside the central credible interval of each width in ``widths``.
+
+    A task's quantile ``q`` is the fraction of its posterior draws below the
+    injected value; the injected value lies inside the central interval of
+    width ``c`` when ``|2 q - 1| <= c``.
+    """
+    distance = np.abs(2.0 * np.asarray(quantiles, dtype=float) - 1.0)
+    return np.mean(distance[:, None] <= np.asarray(widths, dtype=float)[None, :], axis=0)
+
+
+def coverage_figure(rows):
+    """How often the injected common-process parameters fall inside central credible intervals, by width.
+
+    Uses the fit columns ``<parameter>.quantile`` of the tasks with a background
+    (without one the injected values are not defined); ``None`` when there are none.
+    The band is the central 95% of a binomial count for the number of tasks.
+    """
+    from scipy import stats
+
+    quantiles = {}
+    for name in COVERAGE_PARAMETERS:
+        key = f"{name}.quantile"
+        values = np.array([r[key] for r in _ok(rows, key) if r.get("injected_amplitude", 1.0) != 0.0], dtype=float)
+        values = values[np.isfinite(values)]
+        if values.size:
+            quantiles[name] = values
+    if not quantiles:
+        return None
+    widths = np.linspace(0.0, 1.0, 1001)
+    count = min(v.size for v in quantiles.values())
+    fig, ax = plt.subplots(figsize=(5.6, 6.3))
+    low = stats.binom.ppf(0.025, count, widths) / count
+    high = stats.binom.ppf(0.975, count, widths) / count
+    ax.fill_between(widths, low, high, color="#d9d4c7", lw=0, gid="band",
+                    label=f"95% binomial range, {count} tasks")
+    ax.plot([0, 1], [0, 1], color="#5c5c5c", lw=0.9, label="fraction = width")
+    colours = (COMPONENT_COLOURS["gwb"], COMPONENT_COLOURS["red"])
+    for (name, values), colour in zip(quantiles.items(), colours):
+        inside = interval_coverage(values, widths)
+        ax.plot(widths, inside, color=colour, lw=1.8, gid=f"coverage:{name}",
+                label=f"{parameters.label(name)} ({values.size} tasks)")
+        marks = np.array([0.68, 0.95])
+        ax.plot(marks, interval_coverage(values, marks), "o", color=colour, mfc="white", mew=1.4, ms=5,
+                clip_on=False, zorder=4)
+    ax.plot([], [], "o", color="#5c5c5c", mfc="white", mew=1.4, ms=5, label="widths 0.68 and 0.95")
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1)
+    ax.set_aspect("equal")
+    ax.set_xticks(np.linspace(0, 1, 6))
+    ax.set_yticks(np.linspace(0, 1, 6))
+    ax.grid(color="#e6e6e6", lw=0.6)
+    ax.set_axisbelow(True)
+    ax.set_xlabel("credible interval width")
+    ax.set_ylabel("fraction of injections inside")
+    ax.set_title("Coverage of central credible intervals", fontsize=10)
+    ax.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, frameon=False)
+    fig.tight_layout()
+    return fig

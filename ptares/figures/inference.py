@@ -1,4 +1,12 @@
-"""Figures of a fit: marginal posteriors (corner) and walker traces."""
+"""Figures of a fit: marginal posteriors (corner) and walker traces.
+
+The corner figure shows, below its diagonal, the 68% and 95% highest-density
+regions of each pair of parameters as shaded areas (from a Gaussian-smoothed
+2-D histogram) with the median as a point; on its diagonal, each parameter's
+smoothed marginal density with its central 68% interval shaded darker and the
+median as a point on a stem.  Injected values are orange.  An unconverged fit
+is stamped "not converged" in red.
+"""
 
 from __future__ import annotations
 
@@ -6,81 +14,283 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
+from matplotlib.ticker import MaxNLocator
+from scipy.ndimage import gaussian_filter
 
 from ptares.figures.common import COMPONENT_COLOURS
+from ptares.inference import parameters
 
-__all__ = ["corner_figure", "trace_figure"]
+__all__ = ["NOT_CONVERGED", "central_interval", "corner_figure", "hpd_thresholds", "trace_figure"]
 
 
 MAX_CORNER = 8  #: parameters shown in corner and trace figures
 
+#: Probability held by the shaded regions: inner (darker) and outer (lighter).
+INNER, OUTER = 0.68, 0.95
+
+NOT_CONVERGED = "not converged"  #: the stamp on figures of an unconverged fit
+
+_DARK = "#173f5a"  # outlines and median edges
+_INNER_FILL = "#3d7fa8"
+_OUTER_FILL = "#bcd5e5"
+_INJECTED = "#e36414"
+_STAMP = "#c1121f"
+
 
 def _shown(names):
-    """Common-process and continuous-wave parameters first, then the rest, at most :data:`MAX_CORNER`."""
-    order = sorted(range(len(names)), key=lambda i: (not names[i].startswith(("gwb_", "cw_")), i))
+    """Array-wide common-process and binary parameters first, then the rest, at most :data:`MAX_CORNER`."""
+    order = sorted(range(len(names)), key=lambda i: (not names[i].startswith(("common_", "binary_")), i))
     return order[:MAX_CORNER]
 
 
-def corner_figure(samples, names, injected=None):
-    """One- and two-dimensional marginal posteriors; injected values as lines where known.
+def _scale(values) -> float:
+    """A robust spread of ``values``: the smaller of the standard deviation and IQR / 1.349 (0 if none)."""
+    std = float(np.std(values))
+    q25, q75 = np.percentile(values, [25.0, 75.0])
+    iqr = float(q75 - q25) / 1.349
+    return min(std, iqr) if iqr > 0 else std
 
-    ``samples`` has shape (draws, parameters).  Large models show the common and
-    continuous-wave parameters first, at most :data:`MAX_CORNER` of them.
+
+def _bandwidth(values, dimensions: int) -> float:
+    """Smoothing length of a density estimate from ``values``: Silverman's rule in 1-D, Scott's in 2-D."""
+    factor = 0.9 * values.size ** -0.2 if dimensions == 1 else values.size ** (-1.0 / 6.0)
+    return factor * _scale(values)
+
+
+def _limits(values, truth=None):
+    """Axis limits holding all but the outer 0.1% of ``values`` on each side (and ``truth``), padded.
+
+    The padding leaves room for the smoothing of the density estimates.
     """
-    injected = injected or {}
+    lo, hi = (float(v) for v in np.percentile(values, [0.1, 99.9]))
+    if truth is not None and np.isfinite(truth):
+        lo, hi = min(lo, float(truth)), max(hi, float(truth))
+    span = hi - lo
+    if not span > 1e-12 * max(abs(lo), abs(hi)):  # no spread: a window around the value
+        centre = 0.5 * (lo + hi)
+        pad = 0.05 * abs(centre) if centre != 0.0 else 0.5
+        return centre - pad, centre + pad
+    pad = max(0.08 * span, 2.5 * _bandwidth(values, 2))
+    return lo - pad, hi + pad
+
+
+def _degenerate(values) -> bool:
+    return float(np.ptp(values)) == 0.0
+
+
+def hpd_thresholds(density, fractions):
+    """Density levels whose super-level sets hold ``fractions`` of the total of ``density``.
+
+    The cells are taken from the densest down; the level for fraction ``p`` is
+    the density of the cell at which the running total first reaches ``p``.
+    """
+    flat = np.sort(np.asarray(density, dtype=float).ravel())[::-1]
+    total = np.cumsum(flat)
+    if total[-1] <= 0:
+        return [0.0 for _ in fractions]
+    total /= total[-1]
+    return [float(flat[min(int(np.searchsorted(total, p)), flat.size - 1)]) for p in fractions]
+
+
+def _smoothed(counts, edges, values, dimensions):
+    """``counts`` smoothed by a Gaussian of the density-estimate bandwidth of each column of ``values``."""
+    sigma = [max(_bandwidth(v, dimensions) / (e[1] - e[0]), 0.5) for v, e in zip(values, edges)]
+    return gaussian_filter(counts.astype(float), sigma, mode="constant")
+
+
+def central_interval(values, probability: float = INNER):
+    """``(low, median, high)``: the median and the central interval holding ``probability`` of ``values``."""
+    tail = 50.0 * (1.0 - probability)
+    low, median, high = np.percentile(values, [tail, 50.0, 100.0 - tail])
+    return float(low), float(median), float(high)
+
+
+def _marginal(ax, values, limits, truth):
+    """Smoothed 1-D density, central interval shaded, median on a stem, injected value as a solid line."""
+    low, median, high = central_interval(values)
+    if _degenerate(values):
+        ax.plot([median, median], [0, 1], color=_DARK, lw=1.6, solid_capstyle="butt")
+        ax.plot(median, 1, "o", mfc="white", mec=_DARK, ms=5, mew=1.2, zorder=4)
+        ax.set_ylim(0, 1.15)
+    else:
+        counts, edges = np.histogram(values, bins=200, range=limits)
+        width = edges[1] - edges[0]
+        density = _smoothed(counts, [edges], [values], 1) / (values.size * width)
+        centres = 0.5 * (edges[:-1] + edges[1:])
+        grid = np.linspace(*limits, 400)
+        curve = np.interp(grid, centres, density, left=0.0, right=0.0)
+        ax.fill_between(grid, 0, curve, color=_OUTER_FILL, lw=0, zorder=1)
+        band = np.linspace(low, high, 200)
+        ax.fill_between(band, 0, np.interp(band, centres, density), color=_INNER_FILL, lw=0, zorder=2,
+                        gid="interval68")
+        ax.plot(grid, curve, color=_DARK, lw=0.9, zorder=3)
+        peak = float(np.interp(median, centres, density))
+        ax.plot([median, median], [0, peak], color="white", lw=1.0, zorder=3)
+        ax.plot(median, peak, "o", mfc="white", mec=_DARK, ms=5, mew=1.2, zorder=4, gid="median")
+        ax.set_ylim(0, 1.12 * max(curve.max(), peak, 1e-300))
+    if truth is not None:
+        ax.axvline(truth, color=_INJECTED, lw=1.1, zorder=5, gid="injected")
+    ax.set_yticks([])
+    for side in ("left", "right", "top"):
+        ax.spines[side].set_visible(False)
+
+
+def _joint(ax, x, y, limits_x, limits_y, truth_x, truth_y):
+    """68% and 95% highest-density regions from a smoothed 2-D histogram; the median as a point."""
+    median = (float(np.median(x)), float(np.median(y)))
+    drawn = False
+    if not (_degenerate(x) or _degenerate(y)):
+        counts, xe, ye = np.histogram2d(x, y, bins=80, range=[limits_x, limits_y])
+        density = _smoothed(counts, [xe, ye], [x, y], 2)
+        outer, inner = hpd_thresholds(density, (OUTER, INNER))
+        top = float(density.max())
+        levels = np.unique([outer, inner])
+        if top > 0 and levels[0] > 0 and levels[-1] < top:
+            levels = np.append(levels, top * (1 + 1e-9))
+            xc, yc = 0.5 * (xe[:-1] + xe[1:]), 0.5 * (ye[:-1] + ye[1:])
+            colours = [_OUTER_FILL, _INNER_FILL][-(levels.size - 1):]
+            ax.contourf(xc, yc, density.T, levels=levels, colors=colours, zorder=1)
+            ax.contour(xc, yc, density.T, levels=levels[:-1], colors=_DARK, linewidths=0.6, zorder=2)
+            drawn = True
+    if not drawn:  # too few distinct values for regions: the draws themselves
+        step = max(1, x.size // 2000)
+        ax.plot(x[::step], y[::step], ".", color=_INNER_FILL, ms=2, alpha=0.5, zorder=1)
+    ax.plot(*median, "o", mfc="white", mec=_DARK, ms=5, mew=1.2, zorder=4, gid="median")
+    if truth_x is not None and truth_y is not None:
+        ax.plot(truth_x, truth_y, "+", color=_INJECTED, ms=11, mew=1.6, zorder=5, gid="injected")
+    elif truth_x is not None:
+        ax.axvline(truth_x, color=_INJECTED, lw=0.8, zorder=5)
+    elif truth_y is not None:
+        ax.axhline(truth_y, color=_INJECTED, lw=0.8, zorder=5)
+
+
+def _stamp(fig, x, y, size, rotation=10.0, **kwargs):
+    """The red "not converged" stamp at figure coordinates ``(x, y)``."""
+    return fig.text(x, y, NOT_CONVERGED, ha="center", va="center", fontsize=size, fontweight="bold", color=_STAMP,
+                    rotation=rotation, zorder=10,
+                    bbox={"boxstyle": "round,pad=0.4", "facecolor": "white", "edgecolor": _STAMP, "linewidth": 2.0,
+                          "alpha": kwargs.pop("alpha", 1.0)}, **kwargs)
+
+
+def corner_figure(samples, names, injected=None, converged: bool = True):
+    """One- and two-dimensional marginal posteriors of ``samples`` (shape (draws, parameters)).
+
+    Below the diagonal: the 68% and 95% highest-density regions of each pair,
+    shaded, and the median as a point.  On the diagonal: the smoothed marginal
+    density with its central 68% interval shaded darker and the median on a
+    stem.  Injected values (``injected``, by parameter name) are orange.  Large
+    models show the array-wide (``common_``, ``binary_``) parameters first, at
+    most :data:`MAX_CORNER`.  ``converged=False`` stamps "not converged".
+    """
+    samples = np.asarray(samples, dtype=float)
+    if samples.ndim == 1:
+        samples = samples[:, None]
+    injected = {k: float(v) for k, v in (injected or {}).items() if v is not None}
     shown = _shown(names)
     n = len(shown)
-    fig, axes = plt.subplots(n, n, figsize=(1.9 * n + 1.0, 1.9 * n + 1.0), squeeze=False)
-    for row, i in enumerate(shown):
-        for column, j in enumerate(shown):
+    truths = [injected.get(names[i]) for i in shown]
+    limits = [_limits(samples[:, i], t) for i, t in zip(shown, truths)]
+
+    panel, left, bottom, right = 1.75, 0.9, 0.85, 0.25
+    top = 0.3 if n > 1 else 0.75
+    width, height = left + n * panel + right, bottom + n * panel + top
+    fig, axes = plt.subplots(n, n, figsize=(width, height), squeeze=False)
+    fig.subplots_adjust(left=left / width, right=1 - right / width, bottom=bottom / height, top=1 - top / height,
+                        wspace=0.07, hspace=0.07)
+    for row in range(n):
+        for column in range(n):
             ax = axes[row, column]
             if column > row:
                 ax.set_visible(False)
                 continue
+            i, j = shown[row], shown[column]
             if row == column:
-                ax.hist(samples[:, i], bins=40, color=COMPONENT_COLOURS["gwb"], histtype="stepfilled", alpha=0.6)
-                for q in np.percentile(samples[:, i], [15.865, 50, 84.135]):
-                    ax.axvline(q, color="k", lw=0.7, ls="--")
-                if names[i] in injected:
-                    ax.axvline(injected[names[i]], color="#c1121f", lw=1.5)
-                ax.set_yticks([])
+                _marginal(ax, samples[:, i], limits[row], truths[row])
             else:
-                ax.hist2d(samples[:, j], samples[:, i], bins=40, cmap="Blues")
-                if names[i] in injected and names[j] in injected:
-                    ax.plot(injected[names[j]], injected[names[i]], "s", color="#c1121f", ms=5)
+                _joint(ax, samples[:, j], samples[:, i], limits[column], limits[row], truths[column], truths[row])
+                ax.set_ylim(limits[row])
+            ax.set_xlim(limits[column])
+            ax.xaxis.set_major_locator(MaxNLocator(4, prune="both"))
+            ax.ticklabel_format(useOffset=False, axis="x")
+            ax.tick_params(labelsize=6.5, direction="out", length=2.5)
             if row == n - 1:
-                ax.set_xlabel(names[j], fontsize=7)
+                ax.set_xlabel(parameters.label(names[j]), fontsize=9)
+                for tick in ax.get_xticklabels():
+                    tick.set_rotation(40)
+                    tick.set_horizontalalignment("right")
             else:
                 ax.set_xticklabels([])
-            if column == 0 and row > 0:
-                ax.set_ylabel(names[i], fontsize=7)
-            elif column > 0:
-                ax.set_yticklabels([])
-            ax.tick_params(labelsize=6)
-    title = "Posterior (red: injected; dashed: 16, 50, 84%)"
-    if len(names) > n:
-        title += f" - {n} of {len(names)} parameters"
-    fig.suptitle(title, fontsize=9)
-    fig.tight_layout()
+            if row != column:
+                ax.yaxis.set_major_locator(MaxNLocator(4, prune="both"))
+                ax.ticklabel_format(useOffset=False, axis="y")
+                if column == 0:
+                    ax.set_ylabel(parameters.label(names[i]), fontsize=9)
+                else:
+                    ax.set_yticklabels([])
+    fig.align_labels()
+
+    inner, outer = ((f"central {INNER:.0%}", "marginal density") if n == 1 else
+                    (f"{INNER:.0%} region (1-D: central {INNER:.0%})", f"{OUTER:.0%} region"))
+    handles = [Patch(facecolor=_INNER_FILL, edgecolor=_DARK, lw=0.6, label=inner),
+               Patch(facecolor=_OUTER_FILL, edgecolor=_DARK, lw=0.6, label=outer),
+               Line2D([], [], ls="none", marker="o", mfc="white", mec=_DARK, mew=1.2, ms=5, label="median")]
+    if any(t is not None for t in truths):
+        handles.append(Line2D([], [], ls="none", marker="+", color=_INJECTED, ms=10, mew=1.6, label="injected"))
+    title = f"{n} of {len(names)} parameters shown" if len(names) > n else None
+    corner = axes[0, n - 1].get_position()
+    fig.legend(handles=handles, loc="upper right", bbox_to_anchor=(corner.x1, 1 - 0.05 / height if n == 1 else corner.y1),
+               fontsize=7 if n <= 2 else 8.5, title=title, title_fontsize=7 if n <= 2 else 8.5, frameon=False,
+               handlelength=1.6,
+               ncol=2 if n == 1 else 1)
+    if not converged:
+        if n == 1:
+            _stamp(fig, 0.5 * (corner.x0 + corner.x1), 0.5 * (corner.y0 + corner.y1), 15, alpha=0.85)
+        else:
+            block = n // 2  # the empty upper-right block: rows [0, n - block), columns [n - block, n)
+            first, last = axes[0, n - block].get_position(), axes[n - block - 1, n - 1].get_position()
+            y = 0.5 * (first.y1 + last.y0) if n > 2 else last.y0 + 0.3 * (last.y1 - last.y0)
+            _stamp(fig, 0.5 * (first.x0 + last.x1), y, 14 if n <= 3 else 22)
     return fig
 
 
-def trace_figure(chain, names, burn: int = 0, injected=None):
-    """Walker traces of the shown parameters; the burn-in is shaded."""
-    injected = injected or {}
+def trace_figure(chain, names, burn: int = 0, injected=None, converged: bool = True):
+    """Walker traces of the shown parameters (``chain``: steps, walkers, parameters); the burn-in is shaded.
+
+    Injected values are orange lines; ``converged=False`` says "not converged" in red above the traces.
+    """
+    chain = np.asarray(chain, dtype=float)
+    if chain.ndim == 2:
+        chain = chain[:, None, :]
+    injected = {k: float(v) for k, v in (injected or {}).items() if v is not None}
     shown = _shown(names)
-    fig, axes = plt.subplots(len(shown), 1, figsize=(8.0, 1.3 * len(shown) + 0.8), sharex=True, squeeze=False)
+    fig, axes = plt.subplots(len(shown), 1, figsize=(8.5, 1.25 * len(shown) + 0.9), sharex=True, squeeze=False)
     steps = np.arange(chain.shape[0])
+    walkers = chain.shape[1]
+    alpha = min(1.0, max(0.08, 2.0 / walkers))
     for ax, i in zip(axes[:, 0], shown):
-        ax.axvspan(0, burn, color="#e9c46a", alpha=0.25, lw=0)
-        ax.plot(steps, chain[:, :, i], color=COMPONENT_COLOURS["gwb"], alpha=max(0.08, 2.0 / chain.shape[1]), lw=0.6)
+        if burn > 0:
+            ax.axvspan(0, burn, color="#e9c46a", alpha=0.3, lw=0)
+        ax.plot(steps, chain[:, :, i], color=COMPONENT_COLOURS["gwb"], alpha=alpha, lw=0.6)
         if names[i] in injected:
-            ax.axhline(injected[names[i]], color="#c1121f", lw=1.2)
-        ax.set_ylabel(names[i], fontsize=7)
+            ax.axhline(injected[names[i]], color=_INJECTED, lw=1.2)
+        ax.set_ylabel(parameters.label(names[i]), fontsize=8.5, rotation=0, ha="right", va="center")
         ax.tick_params(labelsize=7)
+        ax.margins(x=0)
     axes[-1, 0].set_xlabel("step")
-    axes[0, 0].set_title(f"Walker traces ({chain.shape[1]} walkers; shaded: burn-in; red: injected)", fontsize=9)
+    words = [f"{walkers} walker{'s' if walkers != 1 else ''}"]
+    if burn > 0:
+        words.append(f"shaded: burn-in ({burn} steps)")
+    if any(names[i] in injected for i in shown):
+        words.append("orange: injected")
+    if len(names) > len(shown):
+        words.append(f"{len(shown)} of {len(names)} parameters")
+    axes[0, 0].set_title("Walker traces: " + "; ".join(words), fontsize=9, loc="left")
+    if not converged:
+        axes[0, 0].set_title(NOT_CONVERGED, loc="right", fontsize=12, fontweight="bold", color=_STAMP,
+                             bbox={"boxstyle": "round,pad=0.3", "facecolor": "white", "edgecolor": _STAMP, "linewidth": 1.8})
     fig.tight_layout()
     return fig
