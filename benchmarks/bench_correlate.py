@@ -20,7 +20,8 @@ import time
 import numpy as np
 from common import regular_array
 
-from ptares.correlation.fourier import fourier_basis, fourier_products, unit_template
+from ptares.correlation.fourier import fourier_products, unit_template
+from ptares.physics.spectra import fourier_basis
 from ptares.correlation.noise import noise_from_dataset
 from ptares.correlation.pairs import optimal_statistic, pair_correlations
 from ptares.physics.patterns import correlation_matrix

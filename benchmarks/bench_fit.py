@@ -18,7 +18,7 @@ import numpy as np
 import scipy.linalg
 from common import best_of, regular_array
 
-from ptares.correlation.fourier import fourier_basis
+from ptares.physics.spectra import fourier_basis
 from ptares.inference.likelihood import Likelihood
 from ptares.physics.spectra import coefficient_variance
 from ptares.simulation.simulate import simulate

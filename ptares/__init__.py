@@ -7,20 +7,20 @@ The subpackages read as the pipeline, and data flows one way through them:
 :mod:`ptares.inference` (likelihood, priors, samplers) -> :mod:`ptares.campaign`
 (many runs), with :mod:`ptares.figures` for each stage and :mod:`ptares.cli` as a
 thin shell over the functions exported here.
+
+From Python (a notebook, a script), :func:`simulate`, :func:`correlate`, :func:`fit`
+and :func:`sweep` (:mod:`ptares.api`) run the stages and return result objects with
+short summaries; configs may be files, :class:`Config` objects or dicts of sections
+with astropy Quantities.  The subpackages are named ``simulation``, ``correlation``,
+``inference`` and ``campaign`` so that these function names stay free.
 """
 
-from importlib.metadata import PackageNotFoundError, version
-
-try:
-    __version__ = version("ptares")
-except PackageNotFoundError:  # pragma: no cover - running from a source tree
-    __version__ = "0.0.0+unknown"
-
-from ptares.dataset import Dataset, PulsarData, load_dataset, write_dataset  # noqa: E402
-from ptares.errors import InputError  # noqa: E402
-from ptares.inputs.config import Config, load_config, parse_config  # noqa: E402
-from ptares.physics.patterns import correlation_matrix, dipole, hellings_downs, monopole  # noqa: E402
-from ptares.simulation.simulate import simulate  # noqa: E402
+from ptares.api import FitResult, Interrupted, SweepResult, config_from, correlate, fit, simulate, sweep
+from ptares.dataset import Dataset, PulsarData, load_dataset, write_dataset
+from ptares.errors import InputError
+from ptares.inputs.config import Config, load_config, parse_config
+from ptares.physics.patterns import correlation_matrix, dipole, hellings_downs, monopole
+from ptares.version import __version__
 
 __all__ = [
     "__version__",
@@ -36,5 +36,22 @@ __all__ = [
     "load_dataset",
     "write_dataset",
     "simulate",
+    "correlate",
+    "fit",
+    "sweep",
+    "config_from",
+    "CorrelationResult",
+    "FitResult",
+    "SweepResult",
+    "Interrupted",
     "InputError",
 ]
+
+
+def __getattr__(name):
+    """``ptares.CorrelationResult`` on first use (its module pulls in scipy.stats, which ``import ptares`` avoids)."""
+    if name == "CorrelationResult":
+        from ptares.correlation.analysis import CorrelationResult
+
+        return CorrelationResult
+    raise AttributeError(f"module 'ptares' has no attribute {name!r}")

@@ -7,14 +7,13 @@ with status 2; nothing is written for a run that fails its checks.
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 import warnings
 from pathlib import Path
 
-from ptares import __version__
+from ptares.version import __version__
+from ptares.api import COMMAND_LINE, check_output_directory
 from ptares.errors import InputError, PhysicsWarning
-from ptares.inputs.config import with_overrides
 
 _default_showwarning = warnings.showwarning
 
@@ -47,7 +46,7 @@ def _summary(config) -> str:
             lines.append("signal     white noise")
         elif component.name == "red":
             n = sum(p.red_amplitude > 0 for p in pulsars)
-            lines.append(f"signal     red noise in {n} pulsars, {component.components} frequencies")
+            lines.append(f"signal     red noise in {n} pulsars, {component.harmonics} frequencies")
         elif component.name == "gwb":
             described = component.describe(context)
             made = (
@@ -55,13 +54,13 @@ def _summary(config) -> str:
             )
             lines.append(
                 f"signal     background A = {component.amplitude:.3g}, gamma = {component.gamma:.3g}, "
-                f"{component.components} frequencies, {described['correlation']}, {made}"
+                f"{component.harmonics} frequencies, {described['correlation']}, {made}"
             )
         elif component.name == "cw":
             for b in component.binaries:
                 lines.append(
                     f"signal     binary {b.name}: f = {b.frequency * 1e9:.3g} nHz, h0 = {b.strain:.3g}, "
-                    f"{'evolving' if b.evolve else 'fixed frequency'}, {'with' if b.pulsar_term else 'no'} pulsar term"
+                    f"{'evolving' if b.frequency_evolution else 'fixed frequency'}, {'with' if b.pulsar_term else 'no'} pulsar term"
                 )
     return "\n".join(lines)
 
@@ -75,104 +74,22 @@ def _check(args) -> int:
     return 0
 
 
-OUTPUTS = ("dataset.h5", "residuals.png", "sky.png", "correlation.png")
-
-
-def _check_output_directory(out: Path, overwrite: bool, outputs=OUTPUTS) -> None:
-    """Fail before any work if ``out`` cannot take the outputs or would lose earlier ones."""
-    existing = out
-    while not existing.exists():
-        existing = existing.parent
-    if not existing.is_dir():
-        raise InputError("exists and is not a directory", str(existing))
-    if not os.access(existing, os.W_OK | os.X_OK):
-        raise InputError("directory is not writable", str(existing))
-    if not overwrite:
-        present = [name for name in outputs if (out / name).exists()]
-        if outputs is OUTPUTS:
-            present += sorted(p.name for p in out.glob("residuals-*.png"))
-        if present:
-            raise InputError(f"already holds {', '.join(present)}; pass --overwrite to replace them", str(out))
-
-
 def _simulate(args) -> int:
-    from ptares.dataset import write_dataset
-    from ptares.figures.dataset import dataset_figures
-    from ptares.inputs.config import load_config
-    from ptares.simulation.simulate import simulate
+    from ptares import api
 
-    config = load_config(args.config)
-    out = Path(args.out)
-    _check_output_directory(out, args.overwrite)
-    dataset = simulate(config, progress=True)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-        target = write_dataset(dataset, out / "dataset.h5")
-        print(f"wrote {target} ({len(dataset.pulsars)} pulsars, seed {dataset.seed})")
-        if not args.no_figures:
-            for path in dataset_figures(dataset, out):
-                print(f"wrote {path}")
-    except OSError as exc:
-        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
+    api.simulate(args.config, out=args.out, overwrite=args.overwrite, figures=not args.no_figures, verbose=True)
     return 0
 
 
 def _correlate(args) -> int:
-    from ptares.correlation.analysis import correlate
-    from ptares.correlation.noise import noise_from_dataset, noise_from_values
-    from ptares.dataset import load_dataset
-    from ptares.figures.common import save_figure
-    from ptares.figures.correlation import correlations_figure, nulls_figure
-    from ptares.inputs.config import CorrelateSection, load_correlate_section
+    from ptares import api
 
-    section = load_correlate_section(args.config) if args.config else CorrelateSection()
-    overrides = {k: getattr(args, k) for k in ("gamma", "components", "noise", "chains", "draws", "bins", "scrambles",
-                                               "phase_shifts", "seed") if getattr(args, k) is not None}
+    options = {k: getattr(args, k) for k in ("gamma", "harmonics", "noise", "chains", "draws", "bins", "scrambles",
+                                             "phase_shifts", "seed") if getattr(args, k) is not None}
     if args.overlays:
-        overrides["overlays"] = True
-    section = with_overrides(section, overrides)
-    dataset = load_dataset(args.dataset)
-    if section.noise == "injected":
-        noise = noise_from_dataset(dataset)
-    elif section.noise == "posterior":
-        from ptares.correlation.noise import noise_from_chains
-
-        chains = Path(section.chains)
-        if args.config and not chains.is_absolute():
-            chains = Path(args.config).parent / chains
-        noise = noise_from_chains(dataset, chains, section.draws, section.seed)
-    else:
-        values = section.noise_values
-        noise = noise_from_values(
-            dataset,
-            white_scale=values.white_scale,
-            white_quadrature=values.white_quadrature * 1e-6,
-            red_amplitude=values.red_amplitude,
-            red_gamma=values.red_gamma,
-            red_components=values.red_components,
-            common_amplitude=values.common_amplitude,
-            common_gamma=values.common_gamma,
-            common_components=values.common_components,
-            pulsars={
-                name: {k: v * 1e-6 if k == "white_quadrature" else v for k, v in table.given().items()}
-                for name, table in values.pulsars.items()
-            },
-        )
-    out = Path(args.out)
-    outputs = ("correlations.json", "correlations.png", "nulls.png")
-    _check_output_directory(out, args.overwrite, outputs)
-    result = correlate(dataset, noise, section, progress=True)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-        result.write(out / "correlations.json")
-        print(f"wrote {out / 'correlations.json'}")
-        save_figure(correlations_figure(result), out / "correlations.png")
-        print(f"wrote {out / 'correlations.png'}")
-        if result.nulls:
-            save_figure(nulls_figure(result), out / "nulls.png")
-            print(f"wrote {out / 'nulls.png'}")
-    except OSError as exc:
-        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
+        options["overlays"] = True
+    result = api.correlate(args.dataset, args.out, settings=args.config, overwrite=args.overwrite, verbose=True,
+                           **options)
     hd = result.estimates["hellings-downs"]
     p_text = ""
     if "p_value" in hd:
@@ -182,65 +99,19 @@ def _correlate(args) -> int:
 
 
 def _fit(args) -> int:
-    from ptares.dataset import fingerprint, load_dataset, write_dataset, write_json
-    from ptares.figures.common import save_figure
-    from ptares.figures.inference import corner_figure, trace_figure
-    from ptares.inference.model import FitModel
-    from ptares.inference.samplers.ensemble import run_sampler, summarise
-    from ptares.inputs.config import FitSection, load_config, load_section
-    from ptares.simulation.simulate import simulate
+    from ptares import api
 
-    source = Path(args.source)
-    out = Path(args.out)
-    if source.suffix.lower() in (".h5", ".hdf5"):
-        dataset = load_dataset(source)
-        section = load_section(args.config, "fit", FitSection) if args.config else FitSection()
-        write_copy = False
-    else:
-        config = load_config(source)
-        section = config.fit
-        if args.config:
-            section = load_section(args.config, "fit", FitSection)
-        dataset = None
-        write_copy = True
-    overrides = {k: getattr(args, k) for k in ("max_steps", "walkers", "workers", "seed") if getattr(args, k) is not None}
-    section = with_overrides(section, overrides)
-    # chains.h5 is resumed, not overwritten; the other outputs are rewritten at the end of every run
-    _check_output_directory(out, True)
-    if dataset is None:
-        dataset = simulate(config, progress=True)
-    model = FitModel(dataset, section)
+    options = {k: getattr(args, k) for k in ("max_steps", "walkers", "workers", "seed") if getattr(args, k) is not None}
     try:
-        out.mkdir(parents=True, exist_ok=True)
-        if write_copy:
-            copy = out / "dataset.h5"
-            if copy.exists() and fingerprint(load_dataset(copy)) != fingerprint(dataset):
-                if not args.overwrite:
-                    raise InputError("holds a dataset from another config or seed; pass --overwrite or choose another --out",
-                                     str(copy))
-                copy.unlink()
-            if not copy.exists():
-                write_dataset(dataset, copy)
-        chains = out / "chains.h5"
-        print(f"fitting {model.ndim} parameters ({', '.join(model.names[:6])}{', ...' if model.ndim > 6 else ''}) "
-              f"to {len(model.dataset.pulsars)} pulsars; chains in {chains}")
-        try:
-            run = run_sampler(model, chains, progress=True, overwrite=args.overwrite)
-        except KeyboardInterrupt:
-            print(f"ptares: interrupted; the chains so far are in {chains}; run the same command to resume",
-                  file=sys.stderr)
-            return 130
-        summary = summarise(model, run)
-        write_json(out / "posterior.json", summary)
-        samples = run.chain[summary["burn"] :: section.thin].reshape(-1, model.ndim)
-        save_figure(corner_figure(samples, model.names, model.injected), out / "corner.png")
-        save_figure(trace_figure(run.chain, model.names, summary["burn"], model.injected), out / "trace.png")
-    except OSError as exc:
-        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
-    state = "converged" if summary["converged"] else "NOT converged (raise max_steps and rerun to continue)"
-    print(f"{run.steps} steps, {state}; wrote {out / 'posterior.json'}, corner.png, trace.png")
-    for name in model.names[:8]:
-        entry = summary["parameters"][name]
+        result = api.fit(args.source, args.out, settings=args.config, overwrite=args.overwrite, verbose=True, **options)
+    except api.Interrupted as exc:
+        print(f"ptares: interrupted; the chains so far are in {exc.kept}; run the same command to resume",
+              file=sys.stderr)
+        return 130
+    state = "converged" if result.converged else "NOT converged (raise max_steps and rerun to continue)"
+    print(f"{result.steps} steps, {state}; wrote {result.out / 'posterior.json'}, corner.png, trace.png")
+    for name in result.names[:8]:
+        entry = result.parameters[name]
         low, high = entry["interval68"]
         print(f"  {name:28s} {entry['median']:+.4g}  68%: [{low:+.4g}, {high:+.4g}]")
     return 0
@@ -254,28 +125,17 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _sweep(args) -> int:
-    from ptares.campaign.sweep import run_sweep
-    from ptares.campaign.tasks import load_sweep
-    from ptares.figures.campaign import sweep_figures
-    from ptares.figures.common import save_figure
+    from ptares import api
 
-    _, section = load_sweep(args.config)
-    out = Path(args.out)
-    _check_output_directory(out, True)
-    if args.workers < 1:
-        raise InputError("must be at least 1", "--workers")
     try:
-        rows = run_sweep(args.config, out, workers=args.workers, scheduler=args.scheduler, overwrite=args.overwrite)
-    except KeyboardInterrupt:
-        print(f"ptares: interrupted; finished tasks are kept in {out / 'tasks'}; run the same command to resume",
+        result = api.sweep(args.config, args.out, workers=args.workers, scheduler=args.scheduler,
+                           overwrite=args.overwrite, verbose=True)
+    except api.Interrupted as exc:
+        print(f"ptares: interrupted; finished tasks are kept in {exc.kept}; run the same command to resume",
               file=sys.stderr)
         return 130
-    except OSError as exc:
-        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
-    for name, fig in sweep_figures(rows, section.false_alarm).items():
-        save_figure(fig, out / name)
-    failed = [r for r in rows if r["status"] != "ok"]
-    print(f"{len(rows)} tasks, {len(failed)} failed; wrote {out / 'results.csv'} and figures")
+    failed = result.failed
+    print(f"{len(result.rows)} tasks, {len(failed)} failed; wrote {result.out / 'results.csv'} and figures")
     for row in failed[:5]:
         print(f"  task {row['index']}: {row['error']}")
     return 0
@@ -288,7 +148,7 @@ def _import(args) -> int:
 
     config = load_config(args.config)
     out = Path(args.out)
-    _check_output_directory(out, args.overwrite, ("dataset.h5",))
+    check_output_directory(out, args.overwrite, ("dataset.h5",))
     dataset = import_tables(config)
     try:
         target = write_dataset(dataset, out / "dataset.h5")
@@ -304,7 +164,7 @@ def _export(args) -> int:
 
     dataset = load_dataset(args.dataset)
     out = Path(args.out)
-    _check_output_directory(out, args.overwrite, ("toas.csv", "pulsars.csv", "import.toml"))
+    check_output_directory(out, args.overwrite, ("toas.csv", "pulsars.csv", "import.toml"))
     try:
         for path in export_tables(dataset, out):
             print(f"wrote {path}")
@@ -334,7 +194,7 @@ def build_parser() -> argparse.ArgumentParser:
     cor.add_argument("--out", required=True, help="output directory (correlations.json, correlations.png, nulls.png)")
     cor.add_argument("--config", help="TOML file whose [correlate] table holds the settings")
     cor.add_argument("--gamma", type=float, help="spectral index of the template (default: injected, else 13/3)")
-    cor.add_argument("--components", type=int, help="Fourier frequencies of the template")
+    cor.add_argument("--harmonics", type=int, help="Fourier frequencies of the template")
     cor.add_argument("--noise", choices=["injected", "values", "posterior"],
                      help="noise model: dataset truth, [correlate.noise_values], or posterior draws of a fit")
     cor.add_argument("--chains", help="chains.h5 of a ptares fit (with --noise posterior)")
@@ -391,6 +251,7 @@ def _one_line_warning(message, category, filename, lineno, file=None, line=None)
 def main(argv=None) -> int:
     warnings.showwarning = _one_line_warning
     args = build_parser().parse_args(argv)
+    token = COMMAND_LINE.set(True)  # messages name options as --flags
     try:
         return args.run(args)
     except InputError as exc:
@@ -399,6 +260,8 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("ptares: interrupted; nothing was written for the unfinished step", file=sys.stderr)
         return 130
+    finally:
+        COMMAND_LINE.reset(token)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -12,7 +12,7 @@ File layout (also in the README)::
         measured            (n,) s, residuals taken from a table (inject mode, imports), if any
         injected/<component>  (n,) s, before the fit: white, red, gwb, cw
         injected            attrs: white_scale, white_quadrature (s),
-                                   red_amplitude, red_gamma (the injected noise),
+                                   red_amplitude, red_spectral_index (the injected noise),
                                    distance (kpc, used by pulsar terms)
     /signals/<component>    attrs: the component's parameters (e.g. gwb amplitude);
         sources             table of binaries (cw, and a gwb built from binaries)
@@ -65,6 +65,18 @@ class PulsarData:
     def toa_count(self) -> int:
         return int(self.mjd.size)
 
+    def __repr__(self) -> str:
+        """One line: name, TOAs, MJD range, sky position, distance, residual scatter; never the arrays."""
+        if self.toa_count:
+            extent = f"MJD {float(np.min(self.mjd)):.1f} to {float(np.max(self.mjd)):.1f}"
+            scatter = (f", rms residual {_micro(np.sqrt(np.mean(np.square(self.residuals))))} us, "
+                       f"median error {_micro(np.median(self.errors))} us")
+        else:
+            extent, scatter = "no epochs", ""
+        injected = f", injected {', '.join(self.injected)}" if self.injected else ""
+        return (f"PulsarData({self.name}: {self.toa_count} TOAs, {extent}, ra {np.degrees(self.ra):.2f} deg, "
+                f"dec {np.degrees(self.dec):+.2f} deg, {self.distance:.3g} kpc{scatter}{injected})")
+
 
 @dataclass
 class Dataset:
@@ -88,6 +100,65 @@ class Dataset:
             if p.name == name:
                 return p
         raise KeyError(name)
+
+    @property
+    def toa_count(self) -> int:
+        """TOAs of all pulsars together."""
+        return sum(p.toa_count for p in self.pulsars)
+
+    def __repr__(self) -> str:
+        """A few lines: pulsars, TOAs, span, MJD range, seed and the injected signals; never the arrays."""
+        counts = [p.toa_count for p in self.pulsars]
+        epochs = [p.mjd for p in self.pulsars if p.toa_count]
+        lines = [f"Dataset: {len(self.pulsars)} pulsars, {sum(counts)} TOAs"
+                 + (f" ({min(counts)} to {max(counts)} per pulsar)" if counts and min(counts) != max(counts) else "")
+                 + f", seed {self.seed}"]
+        if epochs:
+            first = min(float(np.min(m)) for m in epochs)
+            last = max(float(np.max(m)) for m in epochs)
+            lines.append(f"  span {self.span / 86400.0 / 365.25:.2f} yr, TOAs from MJD {first:.1f} to {last:.1f}")
+        names = self.names
+        if names:
+            lines.append(f"  pulsars {', '.join(names[:5])}{', ...' if len(names) > 5 else ''}")
+        described = [_describe_signal(name, values, self.pulsars) for name, values in self.signals.items()]
+        lines.append("  signals " + ("; ".join(described) if described else "none recorded"))
+        return "\n".join(lines)
+
+
+def _micro(seconds) -> str:
+    """Seconds as microseconds, three significant figures."""
+    return f"{float(seconds) * 1e6:.3g}"
+
+
+def _describe_signal(name: str, values: dict, pulsars: list) -> str:
+    """A few words on one injected component and its key parameters."""
+    if name == "white":
+        return "white noise"
+    if name == "red":
+        count = sum(1 for p in pulsars if float(p.noise.get("red_amplitude", 0.0) or 0.0) > 0.0)
+        return f"red noise in {count} pulsars"
+    if name == "gwb":
+        words = [f"background A = {float(values.get('amplitude', float('nan'))):.3g}"]
+        if "gamma" in values:
+            words.append(f"gamma = {float(values['gamma']):.3g}")
+        if "correlation" in values:
+            words.append(str(values["correlation"]))
+        if values.get("source") == "binaries" and values.get("sources") is not None:
+            words.append(f"from {len(values['sources'])} binaries")
+        elif "source" in values:
+            words.append(str(values["source"]))
+        return ", ".join(words)
+    if name == "cw":
+        sources = values.get("sources")
+        if sources is None or not len(sources):
+            return f"{int(values.get('count', 0))} continuous waves"
+        shown = []
+        for row in sources[:3]:
+            label = row["name"].decode() if isinstance(row["name"], bytes) else str(row["name"])
+            shown.append(f"{label} f = {float(row['frequency']) * 1e9:.3g} nHz, h0 = {float(row['strain']):.3g}")
+        more = f" and {len(sources) - 3} more" if len(sources) > 3 else ""
+        return f"continuous wave{'s' if len(sources) > 1 else ''} " + "; ".join(shown) + more
+    return name
 
 
 class atomic_path:

@@ -280,7 +280,7 @@ def test_converged_fit_is_not_extended_by_a_rerun(tmp_path):
 
 def test_posterior_draws_keep_what_the_fit_held_fixed(tmp_path):
     """noise_from_chains: the fixed index and the fit's frequency count carry over; other data are refused."""
-    from ptares.correlation.noise import noise_from_chains
+    from ptares.inference.posterior_noise import noise_from_chains
 
     data = loud_background(9)
     model = FitModel(data, FitSection(fixed={"common_spectral_index": 3.0}, harmonics=4, max_steps=200))

@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from tqdm.auto import tqdm
 
-from ptares import __version__
+from ptares.version import __version__
 from ptares.correlation.fourier import check_dataset, fourier_products
 from ptares.correlation.noise import NoiseModel
 from ptares.correlation.nulls import p_value, phase_shifts, sky_scrambles
@@ -82,20 +82,42 @@ class CorrelationResult:
         """Write ``to_json()`` atomically; non-finite numbers become null (JSON has no NaN)."""
         write_json(path, self.to_json())
 
+    def __repr__(self) -> str:
+        """A few lines: pairs, noise model, each pattern's A^2, S/N and p-value, the fit quality; no arrays."""
+        draws = self.settings.get("noise_draws", 1)
+        lines = [f"CorrelationResult: {len(self.names)} pulsars, {len(self.pairs.rho)} pairs, "
+                 f"noise {self.settings.get('noise', '?')}" + (f" ({draws} draws)" if draws != 1 else "")
+                 + f", {self.settings.get('harmonics')} frequencies, gamma {float(self.settings.get('gamma', 0.0)):.3g}"]
+        for name in PATTERN_NAMES:
+            e = self.estimates.get(name, {})
+            p_text = ""
+            if "p_value" in e:
+                p_text = f", p {'<=' if e.get('p_value_is_bound') else '='} {e['p_value']:.3g}"
+            lines.append(f"  {name:15s} A^2 = {e.get('amplitude2', float('nan')):.3g} +/- {e.get('sigma', float('nan')):.3g}, "
+                         f"S/N {e.get('snr', float('nan')):.2f}{p_text}")
+        if self.fit:
+            quality = f"  fit quality    chi2 {self.fit.get('chi2', float('nan')):.3g} for {self.fit.get('dof')} dof"
+            if self.fit.get("p_calibrated") is not None:
+                quality += f", p_calibrated {self.fit['p_calibrated']:.3g}"
+            lines.append(quality)
+        if self.injected_amplitude2 is not None:
+            lines.append(f"  injected       A^2 = {self.injected_amplitude2:.3g}")
+        return "\n".join(lines)
+
 
 def template_settings(dataset: Dataset, section: CorrelateSection) -> tuple:
-    """``(gamma, components)`` of the template: the config's, else the injected background's, else 13/3 and 30."""
+    """``(gamma, harmonics)`` of the template: the config's, else the injected background's, else 13/3 and 30."""
     gwb = dataset.signals.get("gwb", {})
     gamma = section.gamma if section.gamma is not None else float(gwb.get("gamma", 13.0 / 3.0))
-    components = section.components if section.components is not None else int(gwb.get("components", 30))
-    return gamma, components
+    harmonics = section.harmonics if section.harmonics is not None else int(gwb.get("harmonics", 30))
+    return gamma, harmonics
 
 
-def _draws(dataset, noise_models, components, gamma, positions, progress):
+def _draws(dataset, noise_models, harmonics, gamma, positions, progress):
     """``(products, pairs)`` under each noise model."""
     draws = []
     for noise in tqdm(noise_models, desc="noise draws", disable=None if progress and len(noise_models) > 1 else True):
-        products = fourier_products(dataset, noise, components, gamma)
+        products = fourier_products(dataset, noise, harmonics, gamma)
         draws.append((products, pair_correlations(products, positions)))
     return draws
 
@@ -130,9 +152,9 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
     check_dataset(dataset)
     if isinstance(noise_models, NoiseModel):
         noise_models = [noise_models]
-    gamma, components = template_settings(dataset, section)
+    gamma, harmonics = template_settings(dataset, section)
     positions = np.array([p.position for p in dataset.pulsars])
-    draws = _draws(dataset, noise_models, components, gamma, positions, progress)
+    draws = _draws(dataset, noise_models, harmonics, gamma, positions, progress)
     products = draws[0][0]
 
     # noise-marginalised: statistics averaged over draws
@@ -202,7 +224,7 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
         fit=fit,
         settings={
             "gamma": gamma,
-            "components": components,
+            "harmonics": harmonics,
             "noise": section.noise,
             "noise_draws": len(noise_models),
             "bins": section.bins,

@@ -18,22 +18,11 @@ import scipy.linalg
 from ptares.correlation.noise import NoiseModel
 from ptares.dataset import Dataset
 from ptares.errors import InputError
+from ptares.limits import MEMORY_LIMIT
+from ptares.physics.spectra import fourier_basis
 from ptares.physics.spectra import coefficient_variance
 
-__all__ = ["fourier_basis", "unit_template", "FourierProducts", "check_dataset", "fourier_products"]
-
-
-#: Largest working memory (bytes) the analyses allow themselves before refusing.
-MEMORY_LIMIT = 4e9
-
-
-def fourier_basis(times, span: float, harmonics: int) -> np.ndarray:
-    """Columns ``sin(2 pi k t / T), cos(2 pi k t / T)`` interleaved, k = 1..harmonics; ``times`` in s."""
-    phase = 2.0 * np.pi * np.outer(times, np.arange(1, harmonics + 1)) / span
-    basis = np.empty((len(times), 2 * harmonics))
-    basis[:, 0::2] = np.sin(phase)
-    basis[:, 1::2] = np.cos(phase)
-    return basis
+__all__ = ["unit_template", "FourierProducts", "check_dataset", "fourier_products"]
 
 
 def unit_template(span: float, harmonics: int, gamma: float) -> np.ndarray:

@@ -18,7 +18,7 @@ import numpy as np
 from ptares.dataset import Dataset
 from ptares.errors import InputError
 
-__all__ = ["NoiseModel", "noise_from_dataset", "noise_from_values", "noise_from_chains"]
+__all__ = ["NoiseModel", "noise_from_dataset", "noise_from_values"]
 
 
 @dataclass(frozen=True)
@@ -101,76 +101,3 @@ def noise_from_values(
         common_harmonics=int(common_harmonics),
         **columns,
     )
-
-
-def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) -> list:
-    """Noise models from ``draws`` random posterior samples of a ``ptares fit`` (its ``chains.h5``).
-
-    Parameters the fit held fixed keep the values it held them at; the fit's
-    common process (``common_lg_amplitude``, ``common_spectral_index``, on its frequencies) becomes
-    the common process, and red noise the fit left out stays out.  Burn-in is
-    two integrated autocorrelation times, as in the fit's summary.  The chains
-    must come from a fit of this very dataset.
-    """
-    import json
-    from pathlib import Path
-
-    import emcee
-    import h5py
-
-    from ptares.dataset import fingerprint
-    from ptares.inference.parameters import (
-        COMMON_AMPLITUDE,
-        COMMON_INDEX,
-        RED_AMPLITUDE,
-        RED_INDEX,
-        WHITE_QUADRATURE,
-        WHITE_SCALE,
-        for_pulsar,
-    )
-
-    path = Path(path)
-    if not path.is_file():
-        raise InputError("chains file not found", str(path))
-    try:
-        with h5py.File(path, "r") as f:
-            names = [n.decode() if isinstance(n, bytes) else str(n) for n in f.attrs["parameter_names"]]
-            held = json.loads(f.attrs["held_values"])
-            common_harmonics = int(f.attrs["common_harmonics"])
-            red_harmonics = int(f.attrs["red_harmonics"])
-            origin = f.attrs["dataset_fingerprint"]
-        backend = emcee.backends.HDFBackend(str(path), name="chains", read_only=True)
-        steps = backend.iteration
-        with np.errstate(invalid="ignore", divide="ignore"):
-            tau = backend.get_autocorr_time(tol=0) if steps > 1 else np.array([np.nan])
-    except (OSError, KeyError, ValueError) as exc:
-        raise InputError(f"not a ptares chains file ({exc})", str(path)) from None
-    if origin != fingerprint(dataset):
-        raise InputError("comes from a fit of another dataset", str(path))
-    burn = int(2 * np.max(tau)) if np.all(np.isfinite(tau)) else steps // 2
-    chain = backend.get_chain(discard=min(burn, max(steps - 1, 0)))
-    if chain.size == 0:
-        raise InputError("holds no samples yet", str(path))
-    samples = chain.reshape(-1, len(names))
-    rng = np.random.default_rng(seed)
-    picked = samples[rng.choice(samples.shape[0], size=min(draws, samples.shape[0]), replace=False)]
-    held = {k: (float(v) if v is not None else -np.inf) for k, v in held.items()}
-    models = []
-    for row in picked:
-        values = {**held, **dict(zip(names, map(float, row)))}
-        per_pulsar = {
-            "white_scale": [values[for_pulsar(WHITE_SCALE, n)] for n in dataset.names],
-            "white_quadrature": [10 ** values[for_pulsar(WHITE_QUADRATURE, n)] for n in dataset.names],
-            "red_amplitude": [10 ** values[for_pulsar(RED_AMPLITUDE, n)] if red_harmonics else 0.0 for n in dataset.names],
-            "red_spectral_index": [values[for_pulsar(RED_INDEX, n)] for n in dataset.names],
-        }
-        models.append(
-            NoiseModel(
-                red_harmonics=max(red_harmonics, 1),
-                common_amplitude=10 ** values[COMMON_AMPLITUDE] if common_harmonics and COMMON_AMPLITUDE in values else 0.0,
-                common_spectral_index=values.get(COMMON_INDEX, 13.0 / 3.0),
-                common_harmonics=max(common_harmonics, 1),
-                **{k: np.array(v, dtype=float) for k, v in per_pulsar.items()},
-            )
-        )
-    return models

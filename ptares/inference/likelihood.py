@@ -26,7 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg
 
-from ptares.correlation.fourier import MEMORY_LIMIT, fourier_basis
+from ptares.limits import MEMORY_LIMIT
+from ptares.physics.spectra import fourier_basis
 from ptares.errors import InputError
 from ptares.physics.patterns import correlation_matrix
 from ptares.physics.spectra import coefficient_variance

@@ -2,9 +2,10 @@
 
 A config value may be a plain number, taken in the field's documented default
 unit, or a string with a unit that astropy.units understands (``"15 yr"``,
-``"200 ns"``, ``"1.2 kpc"``, ``"8 nHz"``).  Everything is converted to one
+``"200 ns"``, ``"1.2 kpc"``, ``"8 nHz"``), or, from Python, an
+:class:`astropy.units.Quantity` (``15 * u.yr``).  Everything is converted to one
 float in the default unit at the boundary; inside ptares, code works in SI
-(see :mod:`ptares.constants`).  Angles have their own reader because right
+(see :mod:`ptares.physics.constants`).  Angles have their own reader because right
 ascension is commonly written in sexagesimal hours.
 """
 
@@ -15,6 +16,7 @@ import warnings
 from fractions import Fraction
 
 import astropy.units as u
+import numpy as np
 from astropy.coordinates import Angle
 
 __all__ = ["to_unit", "parse_ra", "parse_dec", "parse_number"]
@@ -26,11 +28,39 @@ def _finite(value: float, text: object) -> float:
     return value
 
 
+def _is_number(value: object) -> bool:
+    """A plain real number (Python or numpy), not a bool."""
+    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, (bool, np.bool_))
+
+
+def _scalar(value: u.Quantity) -> u.Quantity:
+    """``value`` if it holds one number; a ValueError otherwise."""
+    if not value.isscalar:
+        raise ValueError(f"expected a single quantity, got an array of shape {value.shape}")
+    return value
+
+
+def _quantity_in(value: u.Quantity, unit) -> float:
+    """A scalar astropy Quantity as a float in ``unit`` (``None``: dimensionless)."""
+    value = _scalar(value)
+    target = u.dimensionless_unscaled if unit is None else u.Unit(unit)
+    try:
+        number = float(value.to_value(target))
+    except u.UnitConversionError:
+        if unit is None:
+            raise ValueError(f"expected a dimensionless number, got {value}") from None
+        raise ValueError(f"{value} (a {value.unit.physical_type}) does not convert to {unit} "
+                         f"(a {target.physical_type})") from None
+    return _finite(number, value)
+
+
 def parse_number(value: object) -> float:
-    """A dimensionless number: int, float, or a string such as ``"13/3"``."""
-    if isinstance(value, bool):
+    """A dimensionless number: int, float, a string such as ``"13/3"``, or a dimensionless Quantity."""
+    if isinstance(value, u.Quantity):
+        return _quantity_in(value, None)
+    if isinstance(value, (bool, np.bool_)):
         raise ValueError(f"expected a number, got {value!r}")
-    if isinstance(value, (int, float)):
+    if _is_number(value):
         return _finite(float(value), value)
     if isinstance(value, str):
         try:
@@ -47,12 +77,17 @@ def parse_number(value: object) -> float:
 def to_unit(value: object, unit: str) -> float:
     """Value in ``unit``: a plain number is taken to be in ``unit`` already.
 
-    Raises ``ValueError`` with a readable message when the string does not
-    parse or its unit does not convert.
+    An astropy Quantity is converted to ``unit`` (a dimensionless one is refused:
+    give it a unit).  Raises ``ValueError`` with a readable message when the
+    string does not parse or the unit does not convert.
     """
-    if isinstance(value, bool):
+    if isinstance(value, u.Quantity):
+        if value.unit.physical_type == "dimensionless" and u.Unit(unit).physical_type != "dimensionless":
+            raise ValueError(f"{value} has no unit; give a quantity in {unit} (e.g. 2 * u.{unit}) or a plain number")
+        return _quantity_in(value, unit)
+    if isinstance(value, (bool, np.bool_)):
         raise ValueError(f"expected a number or a quantity in {unit}, got {value!r}")
-    if isinstance(value, (int, float)):
+    if _is_number(value):
         return _finite(float(value), value)
     if not isinstance(value, str):
         raise ValueError(f"expected a number or a quantity in {unit}, got {type(value).__name__}")
@@ -69,10 +104,17 @@ def to_unit(value: object, unit: str) -> float:
 
 
 def _angle(value: object, string_unit: u.UnitBase, what: str) -> float:
-    """An angle in degrees from degrees (number) or a string in ``string_unit``."""
-    if isinstance(value, bool):
+    """An angle in degrees from degrees (number), a string in ``string_unit``, or an angle Quantity."""
+    if isinstance(value, u.Quantity):  # also astropy Angle, Longitude, Latitude
+        _scalar(value)
+        if value.unit.physical_type != "angle":
+            raise ValueError(f"expected {what} as an angle (deg, rad, hourangle), got {value}")
+        if value.unit == u.hourangle:  # exactly 15 degrees an hour (astropy's conversion goes through radians)
+            return _finite(float(value.value) * 15.0, value)
+        return _finite(float(value.to_value(u.deg)), value)
+    if isinstance(value, (bool, np.bool_)):
         raise ValueError(f"expected {what} in degrees or sexagesimal, got {value!r}")
-    if isinstance(value, (int, float)):
+    if _is_number(value):
         return _finite(float(value), value)
     if not isinstance(value, str):
         raise ValueError(f"expected {what} in degrees or sexagesimal, got {type(value).__name__}")
@@ -98,7 +140,8 @@ def parse_ra(value: object) -> float:
 
     Numbers (also quoted ones) are degrees; sexagesimal strings without a unit
     are hours (``"04:37:15.9"`` or ``"4 37 15.9"``); strings with units are
-    read by astropy (``"4h37m15.9s"``, ``"69.3 deg"``).
+    read by astropy (``"4h37m15.9s"``, ``"69.3 deg"``), and so are angle
+    Quantities (``69.3 * u.deg``, ``4.62 * u.hourangle``, ``1.2 * u.rad``).
     """
     degrees = _angle(value, u.hourangle, "right ascension")
     if not 0.0 <= degrees < 360.0 - 1e-9:

@@ -24,6 +24,7 @@ from ptares.physics.constants import F_YR
 __all__ = [
     "gamma_from_alpha",
     "alpha_from_gamma",
+    "fourier_basis",
     "characteristic_strain",
     "residual_psd",
     "residual_psd_from_strain",
@@ -96,6 +97,15 @@ def strain_from_omega_gw(f, omega, hubble_constant=None):
 def fourier_frequencies(span: float, harmonics: int) -> np.ndarray:
     """Basis frequencies ``k / span`` for k = 1..harmonics (Hz; span in s)."""
     return np.arange(1, harmonics + 1) / span
+
+
+def fourier_basis(times, span: float, harmonics: int) -> np.ndarray:
+    """Columns ``sin(2 pi k t / T), cos(2 pi k t / T)`` interleaved, k = 1..harmonics; ``times`` in s."""
+    phase = 2.0 * np.pi * np.outer(times, np.arange(1, harmonics + 1)) / span
+    basis = np.empty((len(times), 2 * harmonics))
+    basis[:, 0::2] = np.sin(phase)
+    basis[:, 1::2] = np.cos(phase)
+    return basis
 
 
 def coefficient_variance(span: float, harmonics: int, amplitude: float, gamma: float) -> np.ndarray:

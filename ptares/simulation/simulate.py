@@ -13,7 +13,7 @@ import datetime
 import numpy as np
 from tqdm.auto import tqdm
 
-from ptares import __version__
+from ptares.version import __version__
 from ptares.dataset import Dataset, PulsarData
 from ptares.errors import InputError
 from ptares.inputs.config import Config

@@ -1,0 +1,687 @@
+"""The Python interface: :func:`simulate`, :func:`correlate`, :func:`fit` and :func:`sweep`.
+
+Each function does what the command of the same name does, and the commands are
+thin shells over them.  A config may be a :class:`~ptares.inputs.config.Config`, a
+TOML file or a dict of sections; wherever a config value is a quantity, an astropy
+Quantity is accepted (converted to the key's default unit; one that does not convert
+is an :class:`~ptares.errors.InputError` naming the key).  Settings are keyword
+arguments named like the keys of ``[correlate]`` and ``[fit]``, or a dict or TOML file
+of such a table.  Files are written only when ``out`` is given; each function
+returns an object whose ``repr`` is a short summary.  Example::
+
+    import astropy.units as u
+    import ptares
+
+    data = ptares.simulate({"array": {"random": {"count": 20}},
+                            "observing": {"span": 15 * u.yr, "cadence": 14 * u.day, "toa_error": 300 * u.ns},
+                            "gwb": {"amplitude": 2e-15}}, seed=3)
+    data                                             # Dataset: 20 pulsars, ... TOAs, span 15.00 yr, signals ...
+    result = ptares.correlate(data, phase_shifts=100, scrambles=0)
+    result.estimates["hellings-downs"]["snr"]
+    posterior = ptares.fit(data, max_steps=2000, out="fit-out")   # chains resume when run again
+    posterior.samples(posterior.names[0])            # (n,) draws after burn-in
+    campaign = ptares.sweep("campaign.toml", "campaign-out", workers=4)
+"""
+
+from __future__ import annotations
+
+import contextvars
+import copy
+import json
+import math
+import os
+import re
+import sys
+import tempfile
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from ptares.dataset import Dataset, load_dataset
+from ptares.errors import InputError
+from ptares.inputs.config import (
+    Config,
+    CorrelateSection,
+    FitSection,
+    load_config,
+    load_section,
+    read_toml,
+    validation_error,
+    with_overrides,
+)
+
+if TYPE_CHECKING:  # imported when first used: it pulls in scipy.stats
+    from ptares.correlation.analysis import CorrelationResult
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+__all__ = ["simulate", "correlate", "fit", "sweep", "FitResult", "SweepResult", "Interrupted", "config_from"]
+
+#: True while the command line runs: messages then name options as ``--overwrite`` rather than ``overwrite=True``.
+COMMAND_LINE = contextvars.ContextVar("ptares_command_line", default=False)
+
+DATASET_OUTPUTS = ("dataset.h5", "residuals.png", "sky.png", "correlation.png")
+CORRELATE_OUTPUTS = ("correlations.json", "correlations.png", "nulls.png")
+
+
+class Interrupted(KeyboardInterrupt):
+    """A resumable run (fit chains, sweep tasks) stopped by Ctrl-C; ``kept`` is where its work so far is kept."""
+
+    def __init__(self, kept: Path):
+        super().__init__(str(kept))
+        self.kept = Path(kept)
+
+
+def _flag(name: str) -> str:
+    """How a message names the switch ``name``: ``--name`` on the command line, ``name=True`` in Python."""
+    return f"--{name.replace('_', '-')}" if COMMAND_LINE.get() else f"{name}=True"
+
+
+def _option(name: str) -> str:
+    """How a message names the option ``name``: ``--name`` on the command line, ``name`` in Python."""
+    return f"--{name.replace('_', '-')}" if COMMAND_LINE.get() else name
+
+
+def _say(verbose: bool, line: str) -> None:
+    if verbose:
+        print(line)
+
+
+def check_output_directory(out, overwrite: bool, outputs=DATASET_OUTPUTS) -> Path:
+    """Fail before any work if ``out`` cannot take the ``outputs`` or would lose earlier ones; returns ``Path(out)``."""
+    out = Path(out)
+    existing = out
+    while not existing.exists():
+        existing = existing.parent
+    if not existing.is_dir():
+        raise InputError("exists and is not a directory", str(existing))
+    if not os.access(existing, os.W_OK | os.X_OK):
+        raise InputError("directory is not writable", str(existing))
+    if not overwrite:
+        present = [name for name in outputs if (out / name).exists()]
+        if outputs is DATASET_OUTPUTS:
+            present += sorted(p.name for p in out.glob("residuals-*.png"))
+        if present:
+            raise InputError(f"already holds {', '.join(present)}; pass {_flag('overwrite')} to replace them", str(out))
+    return out
+
+
+def _cannot_write(exc: OSError, out: Path) -> InputError:
+    return InputError(f"cannot write outputs ({exc.strerror or exc})", str(out))
+
+
+# ---------------------------------------------------------------- configs from files, dicts and Quantities
+
+
+def _merge(base: dict, top: Mapping) -> dict:
+    """``top`` over ``base``, table by table."""
+    merged = copy.deepcopy(base)
+    for key, value in top.items():
+        if isinstance(value, Mapping) and isinstance(merged.get(key), dict):
+            merged[key] = _merge(merged[key], value)
+        else:
+            merged[key] = copy.deepcopy(value)
+    return merged
+
+
+def _plain(value):
+    """A validated config's dump as TOML-like data: no None, draws as ``{kind = [low, high]}``, lists for tuples."""
+    if isinstance(value, dict):
+        if set(value) == {"kind", "low", "high"}:
+            return {value["kind"]: [value["low"], value["high"]]}
+        return {k: _plain(v) for k, v in value.items() if v is not None}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    return value
+
+
+def _raw_config(config: Config) -> dict:
+    """The data a config was made from: its TOML text when it has one, else its validated values."""
+    if config.source_text:
+        return tomllib.loads(config.source_text)
+    return _plain(config.model_dump())
+
+
+_BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
+
+
+def _toml_value(value) -> str:
+    import astropy.units as u
+
+    if isinstance(value, u.Quantity):
+        if not value.isscalar:
+            return _toml_value(list(value))
+        number = float(value.value)
+        if value.unit == u.dimensionless_unscaled:
+            return _toml_value(number)
+        if value.unit == u.hourangle:  # not a unit name astropy's angle parser reads; 15 degrees an hour exactly
+            return json.dumps(f"{number * 15.0!r} deg")
+        return json.dumps(f"{number!r} {value.unit.to_string()}")
+    if isinstance(value, (bool, np.bool_)):
+        return "true" if value else "false"
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        number = float(value)
+        return repr(number) if math.isfinite(number) else ("nan" if math.isnan(number) else ("inf" if number > 0 else "-inf"))
+    if isinstance(value, (str, Path)):
+        return json.dumps(str(value))
+    if isinstance(value, Mapping):
+        return "{" + ", ".join(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items() if v is not None) + "}"
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    raise TypeError(f"cannot write {type(value).__name__} as TOML")
+
+
+def _toml_key(key) -> str:
+    key = str(key)
+    return key if _BARE_KEY.fullmatch(key) else json.dumps(key)
+
+
+def toml_text(raw: Mapping) -> str:
+    """``raw`` (dicts of sections, values numbers, strings, lists or astropy Quantities) as TOML text.
+
+    Quantities become strings with their unit (``"15.0 yr"``), which the config reads back.
+    """
+    top = [f"{_toml_key(k)} = {_toml_value(v)}" for k, v in raw.items() if v is not None and not isinstance(v, Mapping)]
+    tables = []
+    for key, value in raw.items():
+        if isinstance(value, Mapping):
+            tables.append(f"\n[{_toml_key(key)}]")
+            tables += [f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items() if v is not None]
+    return "\n".join(top + tables).lstrip("\n") + "\n"
+
+
+def _validated(raw: dict, where: str, path: Path | None) -> Config:
+    from pydantic import ValidationError
+
+    try:
+        config = Config.model_validate(raw)
+    except ValidationError as exc:
+        raise validation_error(exc, raw, where) from None
+    except InputError as exc:
+        raise InputError(exc.message, f"{where}: {exc.where}") from None
+    try:
+        text = toml_text(raw)
+        tomllib.loads(text)
+    except (TypeError, ValueError):
+        text = ""  # only the record in the dataset is lost: the config itself is valid
+    config._text = text
+    config._path = path
+    return config
+
+
+def config_from(source, **sections) -> Config:
+    """A validated :class:`Config` from a Config, a TOML file or a dict of sections, with ``sections`` merged in.
+
+    ``sections`` are whole tables by name (``gwb={"amplitude": 1e-15}``), merged key by
+    key into the source's.  Values may be astropy Quantities anywhere the config takes a
+    quantity.  Faults are :class:`InputError` naming the key (``config: observing.span``
+    for a dict, the file's name for a file).
+    """
+    if isinstance(source, Config):
+        if not sections:
+            return source
+        raw, path = _raw_config(source), source.source_path
+        where = str(path) if path else "config"
+    elif isinstance(source, Mapping):
+        raw, path, where = dict(source), None, "config"
+    elif isinstance(source, (str, os.PathLike)):
+        path = Path(source)
+        if not sections:
+            return load_config(path)
+        raw, where = read_toml(path), str(path)
+    else:
+        raise InputError(f"expected a Config, a config file or a dict of sections, got {type(source).__name__}", "config")
+    return _validated(_merge(raw, sections), where, path)
+
+
+def _section(model, table: str, settings, options: dict, default=None):
+    """``(section, folder)``: ``settings`` (None, a section, a dict, a TOML file) with keyword ``options`` applied.
+
+    ``folder`` is the settings file's folder (paths in it are relative to it), else None.
+    """
+    from pydantic import ValidationError
+
+    from ptares.inputs.config import _message
+
+    folder = None
+    if settings is None:
+        section = default if default is not None else model()
+    elif isinstance(settings, model):
+        section = settings
+    elif isinstance(settings, Mapping):
+        raw = dict(settings[table]) if isinstance(settings.get(table), Mapping) else dict(settings)
+        try:
+            section = model.model_validate(raw)
+        except ValidationError as exc:
+            raise validation_error(exc, {table: raw}, "settings", (table,)) from None
+    elif isinstance(settings, (str, os.PathLike)):
+        section = load_section(settings, table, model)
+        folder = Path(settings).parent
+    else:
+        raise InputError(f"expected a dict, a TOML file or {model.__name__}, got {type(settings).__name__}", "settings")
+    if options:
+        if COMMAND_LINE.get():
+            section = with_overrides(section, options)
+        else:
+            try:
+                section = model.model_validate({**section.model_dump(), **options})
+            except ValidationError as exc:
+                first = exc.errors()[0]
+                key = ".".join(str(p) for p in first["loc"] if not str(p).startswith("function-"))
+                raise InputError(_message(first), f"{table}.{key}") from None
+    return section, folder
+
+
+def _dataset(dataset) -> Dataset:
+    if isinstance(dataset, Dataset):
+        return dataset
+    if isinstance(dataset, (str, os.PathLike)):
+        return load_dataset(dataset)
+    raise InputError(f"expected a Dataset or the path of a dataset.h5, got {type(dataset).__name__}", "dataset")
+
+
+# ---------------------------------------------------------------- simulate
+
+
+def simulate(config, *, seed: int | None = None, out=None, overwrite: bool = False, figures: bool = True,
+             verbose: bool = False, **sections) -> Dataset:
+    """Simulate the array a config describes; returns the :class:`Dataset` (residuals in s, epochs in MJD).
+
+    ``config``: a :class:`Config`, a TOML file, or a dict of sections such as
+    ``{"array": {"random": {"count": 20}}, "observing": {"span": 15 * u.yr}, "gwb": {"amplitude": 2e-15}}``;
+    astropy Quantities are accepted wherever a config value is.  ``sections`` merge
+    whole tables into it (``gwb={"amplitude": 0}``).  ``seed`` overrides ``[run] seed``
+    (with neither, a fresh one is drawn and recorded).  With ``out``, writes
+    ``out/dataset.h5`` and, unless ``figures=False``, the figures; earlier outputs are
+    replaced only with ``overwrite=True``.  ``verbose`` shows progress and the files written.
+    """
+    from ptares.simulation.simulate import simulate as simulate_config
+
+    config = config_from(config, **sections)
+    if out is not None:
+        out = check_output_directory(out, overwrite)
+    dataset = simulate_config(config, seed=seed, progress=verbose)
+    if out is not None:
+        from ptares.dataset import write_dataset
+
+        try:
+            out.mkdir(parents=True, exist_ok=True)
+            target = write_dataset(dataset, out / "dataset.h5")
+            _say(verbose, f"wrote {target} ({len(dataset.pulsars)} pulsars, seed {dataset.seed})")
+            if figures:
+                from ptares.figures.dataset import dataset_figures
+
+                for path in dataset_figures(dataset, out):
+                    _say(verbose, f"wrote {path}")
+        except OSError as exc:
+            raise _cannot_write(exc, out) from None
+    return dataset
+
+
+# ---------------------------------------------------------------- correlate
+
+
+def _noise_models(dataset: Dataset, section: CorrelateSection, folder: Path | None):
+    from ptares.correlation.noise import noise_from_dataset, noise_from_values
+
+    if section.noise == "injected":
+        return noise_from_dataset(dataset)
+    if section.noise == "posterior":
+        from ptares.inference.posterior_noise import noise_from_chains
+
+        chains = Path(section.chains)
+        if folder is not None and not chains.is_absolute():
+            chains = folder / chains
+        return noise_from_chains(dataset, chains, section.draws, section.seed)
+    # the [correlate.noise_values] keys are noise_from_values' arguments; quadratures there are in microseconds
+    values = section.noise_values
+    given = {name: getattr(values, name) for name in type(values).model_fields if name != "pulsars"}
+    given["white_quadrature"] *= 1e-6
+    pulsars = {
+        name: {k: v * 1e-6 if k == "white_quadrature" else v for k, v in table.given().items()}
+        for name, table in values.pulsars.items()
+    }
+    return noise_from_values(dataset, **given, pulsars=pulsars)
+
+
+def correlate(dataset, out=None, *, settings=None, overwrite: bool = False, verbose: bool = False,
+              **options) -> CorrelationResult:
+    """Pair correlations, optimal statistics and nulls of a dataset; returns a :class:`CorrelationResult`.
+
+    ``dataset``: a :class:`Dataset` or the path of a ``dataset.h5``.  Settings are the
+    ``[correlate]`` keys: a dict or a TOML file (its ``[correlate]`` table) as
+    ``settings``, and/or keyword ``options`` over it (``noise="values"``,
+    ``noise_values={...}``, ``scrambles=0``, ``phase_shifts=100``, ``seed=1``...).  A
+    relative ``chains`` is taken from the settings file's folder.  With ``out``,
+    writes ``correlations.json``, ``correlations.png`` and (with null trials)
+    ``nulls.png``; earlier ones are replaced only with ``overwrite=True``.
+    """
+    from ptares.correlation.analysis import correlate as correlate_dataset
+
+    section, folder = _section(CorrelateSection, "correlate", settings, options)
+    dataset = _dataset(dataset)
+    noise = _noise_models(dataset, section, folder)
+    if out is not None:
+        out = check_output_directory(out, overwrite, CORRELATE_OUTPUTS)
+    result = correlate_dataset(dataset, noise, section, progress=verbose)
+    if out is not None:
+        from ptares.figures.common import save_figure
+        from ptares.figures.correlation import correlations_figure, nulls_figure
+
+        try:
+            out.mkdir(parents=True, exist_ok=True)
+            result.write(out / "correlations.json")
+            _say(verbose, f"wrote {out / 'correlations.json'}")
+            save_figure(correlations_figure(result), out / "correlations.png")
+            _say(verbose, f"wrote {out / 'correlations.png'}")
+            if result.nulls:
+                save_figure(nulls_figure(result), out / "nulls.png")
+                _say(verbose, f"wrote {out / 'nulls.png'}")
+        except OSError as exc:
+            raise _cannot_write(exc, out) from None
+    return result
+
+
+# ---------------------------------------------------------------- fit
+
+
+@dataclass(repr=False)
+class FitResult:
+    """A finished (or stopped) fit: the contents of ``posterior.json`` and where the chains are.
+
+    ``summary`` is ``posterior.json`` (per parameter ``median``, ``interval68``,
+    ``interval95``, ``autocorr_time``, ``injected``; and ``converged``, ``steps``,
+    ``walkers``, ``burn``...); ``names`` the free parameters in chain order;
+    ``chains`` the ``chains.h5`` (None when the fit ran without ``out``); ``out`` the
+    output folder.  :meth:`samples` gives the draws after burn-in.
+    """
+
+    summary: dict
+    names: list
+    chains: Path | None
+    out: Path | None
+    injected: dict = field(default_factory=dict)
+    _chain: np.ndarray | None = None  #: (steps, walkers, parameters), kept only when there is no chains file
+
+    @property
+    def converged(self) -> bool:
+        return bool(self.summary["converged"])
+
+    @property
+    def steps(self) -> int:
+        return int(self.summary["steps"])
+
+    @property
+    def walkers(self) -> int:
+        return int(self.summary["walkers"])
+
+    @property
+    def parameters(self) -> dict:
+        """Per parameter: ``median``, ``interval68``, ``interval95``, ``autocorr_time`` (and ``injected``)."""
+        return self.summary["parameters"]
+
+    def chain(self) -> np.ndarray:
+        """Every step of every walker, shape (steps, walkers, parameters), burn-in included."""
+        if self._chain is not None:
+            return self._chain
+        import h5py
+
+        from ptares.inference.samplers.ensemble import CHAIN_GROUP
+
+        with h5py.File(self.chains, "r") as f:
+            group = f[CHAIN_GROUP]
+            return group["chain"][: int(group.attrs["iteration"])]
+
+    def samples(self, parameter: str | None = None, burn: int | None = None, thin: int | None = None) -> np.ndarray:
+        """Posterior draws after burn-in: shape (draws, parameters) in :attr:`names` order, or (draws,) of ``parameter``.
+
+        ``burn`` and ``thin`` default to the summary's (as in ``posterior.json`` and the figures).
+        """
+        burn = self.summary["burn"] if burn is None else int(burn)
+        thin = self.summary["thin"] if thin is None else int(thin)
+        flat = self.chain()[burn::thin].reshape(-1, len(self.names))
+        if parameter is None:
+            return flat
+        if parameter not in self.names:
+            raise InputError(f"is not a free parameter of this fit ({', '.join(self.names[:6])}"
+                             f"{', ...' if len(self.names) > 6 else ''})", parameter)
+        return flat[:, self.names.index(parameter)]
+
+    def __repr__(self) -> str:
+        state = "converged" if self.converged else "NOT converged"
+        count = f"{len(self.names)} parameter{'s' if len(self.names) != 1 else ''}"
+        lines = [f"FitResult: {count}, {self.steps} steps x {self.walkers} walkers, {state}; "
+                 f"acceptance {self.summary['acceptance_fraction']:.2f}, "
+                 f"{self.summary['effective_samples']:.0f} effective samples"]
+        for name in self.names[:3]:
+            entry = self.parameters[name]
+            low, high = entry["interval68"]
+            injected = f", injected {entry['injected']:.4g}" if entry.get("injected") is not None else ""
+            lines.append(f"  {name} = {entry['median']:.4g} [{low:.4g}, {high:.4g}] (68%){injected}")
+        if len(self.names) > 3:
+            lines.append(f"  ... and {len(self.names) - 3} more (.parameters)")
+        if self.chains is not None:
+            lines.append(f"  chains in {self.chains}")
+        return "\n".join(lines)
+
+
+def _fit_source(source):
+    """``(dataset or None, config or None)`` from what :func:`fit` was given."""
+    if isinstance(source, Dataset):
+        return source, None
+    if isinstance(source, (Config, Mapping)):
+        return None, config_from(source)
+    if isinstance(source, (str, os.PathLike)):
+        if Path(source).suffix.lower() in (".h5", ".hdf5"):
+            return load_dataset(source), None
+        return None, load_config(source)
+    raise InputError(f"expected a Dataset, a Config, a dict of sections or a file, got {type(source).__name__}", "source")
+
+
+def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bool = True, verbose: bool = False,
+        **options) -> FitResult:
+    """Sample the posterior of a model of a dataset with emcee; returns a :class:`FitResult`.
+
+    ``source``: a :class:`Dataset` or a ``dataset.h5``; or a config (a :class:`Config`, a
+    TOML file, a dict of sections), which is simulated first and fitted with its
+    ``[fit]`` table.  ``settings`` replaces that table (a dict or a TOML file with a
+    ``[fit]`` table); keyword ``options`` are ``[fit]`` keys over it (``max_steps=2000``,
+    ``red="none"``, ``fixed={...}``, ``seed=1``...).
+
+    With ``out``, the chains go to ``out/chains.h5`` and a rerun with the same
+    ``out`` resumes them (``overwrite=True`` starts afresh); ``posterior.json``,
+    ``corner.png`` and ``trace.png`` (unless ``figures=False``) are rewritten at the
+    end, and ``dataset.h5`` is written when the source was a config.  Without
+    ``out`` the chains live in a temporary file and are kept in memory afterwards.
+    Ctrl-C during sampling raises :class:`Interrupted` (its ``kept`` names the
+    chains file to resume).
+    """
+    from ptares.dataset import fingerprint, write_dataset, write_json
+    from ptares.inference.model import FitModel
+    from ptares.inference.samplers.ensemble import run_sampler, summarise
+    from ptares.simulation.simulate import simulate as simulate_config
+
+    dataset, config = _fit_source(source)
+    section, _ = _section(FitSection, "fit", settings, options, default=config.fit if config is not None else None)
+    if out is not None:
+        # chains.h5 is resumed, not overwritten; the other outputs are rewritten at the end of every run
+        out = check_output_directory(out, True)
+    if dataset is None:
+        dataset = simulate_config(config, progress=verbose)
+    model = FitModel(dataset, section)
+
+    def announce(chains):
+        _say(verbose, f"fitting {model.ndim} parameters ({', '.join(model.names[:6])}{', ...' if model.ndim > 6 else ''}) "
+                      f"to {len(model.dataset.pulsars)} pulsars; chains in {chains}")
+
+    if out is None:
+        with tempfile.TemporaryDirectory(prefix="ptares-fit-") as scratch:
+            chains = Path(scratch) / "chains.h5"
+            announce(chains)
+            run = run_sampler(model, chains, progress=verbose)
+        summary = summarise(model, run)
+        return FitResult(summary, list(model.names), None, None, dict(model.injected), run.chain)
+
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        if config is not None:
+            copy_path = out / "dataset.h5"
+            if copy_path.exists() and fingerprint(load_dataset(copy_path)) != fingerprint(dataset):
+                if not overwrite:
+                    raise InputError(f"holds a dataset from another config or seed; pass {_flag('overwrite')} "
+                                     f"or choose another {_option('out')}", str(copy_path))
+                copy_path.unlink()
+            if not copy_path.exists():
+                write_dataset(dataset, copy_path)
+        chains = out / "chains.h5"
+        announce(chains)
+        try:
+            run = run_sampler(model, chains, progress=verbose, overwrite=overwrite)
+        except KeyboardInterrupt:
+            raise Interrupted(chains) from None
+        summary = summarise(model, run)
+        write_json(out / "posterior.json", summary)
+        if figures:
+            from ptares.figures.common import save_figure
+            from ptares.figures.inference import corner_figure, trace_figure
+
+            samples = run.chain[summary["burn"] :: section.thin].reshape(-1, model.ndim)
+            save_figure(corner_figure(samples, model.names, model.injected, converged=summary["converged"]), out / "corner.png")
+            save_figure(trace_figure(run.chain, model.names, summary["burn"], model.injected, converged=summary["converged"]),
+                        out / "trace.png")
+    except OSError as exc:
+        raise _cannot_write(exc, out) from None
+    return FitResult(summary, list(model.names), chains, out, dict(model.injected))
+
+
+# ---------------------------------------------------------------- sweep
+
+
+@dataclass(repr=False)
+class SweepResult:
+    """A campaign's rows (one dict per task, as in ``results.csv``), its detection threshold and where it is.
+
+    ``threshold`` is the Hellings-Downs S/N at false-alarm probability ``false_alarm``
+    (``threshold_basis`` says how it was set); ``out`` holds ``tasks/``,
+    ``results.csv`` and the figures listed in ``figures``.
+    """
+
+    rows: list
+    threshold: float
+    threshold_basis: str
+    false_alarm: float
+    out: Path
+    figures: list = field(default_factory=list)
+
+    @property
+    def failed(self) -> list:
+        """The rows of tasks that failed (each with its ``error``)."""
+        return [r for r in self.rows if r.get("status") != "ok"]
+
+    def detection_fraction(self) -> dict:
+        """Injected background amplitude -> share of its finished tasks with S/N at or above the threshold."""
+        groups = {}
+        for row in self.rows:
+            if row.get("status") == "ok" and isinstance(row.get("hd_snr"), float):
+                groups.setdefault(row.get("injected_amplitude"), []).append(row["hd_snr"] >= self.threshold)
+        return {a: float(np.mean(hits)) for a, hits in sorted(groups.items(), key=lambda item: item[0] or 0.0)}
+
+    def __repr__(self) -> str:
+        axes = sorted({k[5:] for r in self.rows for k in r if k.startswith("axis:")})
+        counts = []
+        for key in axes:
+            values = {json.dumps(r.get(f"axis:{key}"), default=str) for r in self.rows}
+            counts.append(f"{key} ({len(values)} values)")
+        lines = [f"SweepResult: {len(self.rows)} tasks, {len(self.rows) - len(self.failed)} ok, "
+                 f"{len(self.failed)} failed; in {self.out}"]
+        if counts:
+            lines.append(f"  axes {', '.join(counts)}")
+        lines.append(f"  detection threshold S/N {self.threshold:.3g} at false-alarm {self.false_alarm:g} "
+                     f"({self.threshold_basis})")
+        fractions = self.detection_fraction()
+        if fractions:
+            shown = [f"{a:.3g}: {f:.2f}" for a, f in list(fractions.items())[:6]]
+            lines.append(f"  detected by injected A  {', '.join(shown)}{', ...' if len(fractions) > 6 else ''}")
+        return "\n".join(lines)
+
+
+def _check_sweep_table(raw: dict) -> None:
+    """A dict's ``[sweep]`` table checked before anything is written."""
+    from pydantic import ValidationError
+
+    from ptares.inputs.config import SweepSection
+
+    if not isinstance(raw.get("sweep"), Mapping):
+        raise InputError("has no [sweep] table", "config")
+    try:
+        SweepSection.model_validate(raw["sweep"])
+    except ValidationError as exc:
+        raise validation_error(exc, raw, "config", ("sweep",)) from None
+
+
+def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = False, figures: bool = True,
+          verbose: bool = False) -> SweepResult:
+    """Run (or resume) the campaign of a config's ``[sweep]`` table into the folder ``out``; returns a :class:`SweepResult`.
+
+    ``config``: a TOML file with a ``[sweep]`` table, or a dict of sections holding one
+    (written to ``out/config.toml`` first; astropy Quantities in it are written with
+    their units).  ``workers`` local processes, or ``scheduler`` (a Dask address or
+    client) instead.  Finished tasks in ``out/tasks`` are kept and skipped on a rerun;
+    ``overwrite=True`` discards them.  Writes ``results.csv`` and, unless
+    ``figures=False``, the campaign figures.  Ctrl-C raises :class:`Interrupted`.
+    """
+    from ptares.campaign.sweep import run_sweep
+    from ptares.campaign.tasks import load_sweep
+    from ptares.figures.campaign import detection_threshold
+
+    out = Path(out)
+    if isinstance(config, Mapping):
+        raw = copy.deepcopy(dict(config))
+        base = raw.get("sweep", {}).get("base") if isinstance(raw.get("sweep"), Mapping) else None
+        if isinstance(base, (str, os.PathLike)) and not Path(base).is_absolute():
+            raw["sweep"]["base"] = str(Path(base).resolve())  # a dict's files are relative to the working folder
+        _check_sweep_table(raw)
+        check_output_directory(out, True)
+        try:
+            out.mkdir(parents=True, exist_ok=True)
+            path = out / "config.toml"
+            from ptares.dataset import atomic_path
+
+            with atomic_path(path) as temporary:
+                temporary.write_text(toml_text(raw))
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"cannot be written as TOML ({exc})", "config") from None
+        except OSError as exc:
+            raise _cannot_write(exc, out) from None
+        config = path
+    elif not isinstance(config, (str, os.PathLike)):
+        raise InputError(f"expected a config file or a dict of sections, got {type(config).__name__}", "config")
+    _, section = load_sweep(config)
+    check_output_directory(out, True)
+    if workers < 1:
+        raise InputError("must be at least 1", _option("workers"))
+    try:
+        rows = run_sweep(config, out, workers=workers, scheduler=scheduler, overwrite=overwrite, progress=verbose)
+    except KeyboardInterrupt:
+        raise Interrupted(out / "tasks") from None
+    except OSError as exc:
+        raise _cannot_write(exc, out) from None
+    written = []
+    if figures:
+        from ptares.figures.campaign import sweep_figures
+        from ptares.figures.common import save_figure
+
+        for name, fig in sweep_figures(rows, section.false_alarm).items():
+            save_figure(fig, out / name)
+            written.append(out / name)
+    threshold, basis = detection_threshold(rows, section.false_alarm)
+    return SweepResult(rows, threshold, basis, section.false_alarm, out, written)
+
