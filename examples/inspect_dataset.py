@@ -12,7 +12,7 @@ config = ptares.load_config("configs/demo.toml")
 data = ptares.simulate(config)
 
 background = data.signals["gwb"]
-expected = np.sqrt(coefficient_variance(data.span, background["harmonics"], background["amplitude"], background["gamma"]).sum())
+expected = np.sqrt(coefficient_variance(data.span, background["harmonics"], background["amplitude"], background["spectral_index"]).sum())
 print(f"{len(data.pulsars)} pulsars over {data.span / 3.15576e7:.1f} yr; expected background rms before the fit {expected * 1e9:.0f} ns")
 for pulsar in data.pulsars[:5]:
     rms = {name: f"{np.std(series) * 1e9:.0f} ns" for name, series in pulsar.injected.items()}

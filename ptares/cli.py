@@ -53,7 +53,7 @@ def _summary(config) -> str:
                 f"{len(described['sources'])} binaries" if described["source"] == "binaries" else "Gaussian"
             )
             lines.append(
-                f"signal     background A = {component.amplitude:.3g}, gamma = {component.gamma:.3g}, "
+                f"signal     background A = {component.amplitude:.3g}, spectral index {component.spectral_index:.3g}, "
                 f"{component.harmonics} frequencies, {described['correlation']}, {made}"
             )
         elif component.name == "cw":
@@ -84,7 +84,7 @@ def _simulate(args) -> int:
 def _correlate(args) -> int:
     from ptares import api
 
-    options = {k: getattr(args, k) for k in ("gamma", "harmonics", "noise", "chains", "draws", "bins", "scrambles",
+    options = {k: getattr(args, k) for k in ("spectral_index", "harmonics", "noise", "chains", "draws", "bins", "scrambles",
                                              "phase_shifts", "seed") if getattr(args, k) is not None}
     if args.overlays:
         options["overlays"] = True
@@ -193,7 +193,7 @@ def build_parser() -> argparse.ArgumentParser:
     cor.add_argument("dataset", help="HDF5 dataset (from ptares simulate)")
     cor.add_argument("--out", required=True, help="output directory (correlations.json, correlations.png, nulls.png)")
     cor.add_argument("--config", help="TOML file whose [correlate] table holds the settings")
-    cor.add_argument("--gamma", type=float, help="spectral index of the template (default: injected, else 13/3)")
+    cor.add_argument("--spectral-index", type=float, help="spectral index of the template (default: injected, else 13/3)")
     cor.add_argument("--harmonics", type=int, help="Fourier frequencies of the template")
     cor.add_argument("--noise", choices=["injected", "values", "posterior"],
                      help="noise model: dataset truth, [correlate.noise_values], or posterior draws of a fit")

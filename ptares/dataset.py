@@ -139,8 +139,8 @@ def _describe_signal(name: str, values: dict, pulsars: list) -> str:
         return f"red noise in {count} pulsars"
     if name == "gwb":
         words = [f"background A = {float(values.get('amplitude', float('nan'))):.3g}"]
-        if "gamma" in values:
-            words.append(f"gamma = {float(values['gamma']):.3g}")
+        if "spectral_index" in values:
+            words.append(f"spectral index {float(values['spectral_index']):.3g}")
         if "correlation" in values:
             words.append(str(values["correlation"]))
         if values.get("source") == "binaries" and values.get("sources") is not None:

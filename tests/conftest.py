@@ -36,7 +36,7 @@ seed = 5
 [array]
 pulsars = [
   { name = "Aa", ra = "01:00:00", dec = "10:00:00", distance = "1 kpc" },
-  { name = "Bb", ra = 200.0, dec = -30.0, red = { amplitude = 1e-14, gamma = 4.0 } },
+  { name = "Bb", ra = 200.0, dec = -30.0, red = { amplitude = 1e-14, spectral_index = 4.0 } },
   { name = "Cc", ra = 300.0, dec = 60.0, toa_error = "900 ns", start = 54000 },
 ]
 

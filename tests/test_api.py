@@ -20,7 +20,7 @@ WITH_QUANTITIES = {
     "array": {"pulsars": [
         {"name": "Aa", "ra": 4.5 * u.hourangle, "dec": -20 * u.deg, "distance": 1500 * u.pc},
         {"name": "Bb", "ra": 200 * u.deg, "dec": 35.0, "toa_error": {"uniform": [200 * u.ns, 1 * u.us]}},
-        {"name": "Cc", "ra": 300.0, "dec": 60 * u.deg, "red": {"amplitude": 1e-14 * u.one, "gamma": 4 * u.one}},
+        {"name": "Cc", "ra": 300.0, "dec": 60 * u.deg, "red": {"amplitude": 1e-14 * u.one, "spectral_index": 4 * u.one}},
     ]},
     "observing": {"start": 53000 * u.day, "span": 5 * u.yr, "cadence": 2 * u.week, "toa_error": 500 * u.ns},
     "noise": {"white": {"quadrature": 0.25 * u.us}},
@@ -33,7 +33,7 @@ WITH_NUMBERS = {
     "array": {"pulsars": [
         {"name": "Aa", "ra": 67.5, "dec": -20.0, "distance": 1.5},
         {"name": "Bb", "ra": 200.0, "dec": 35.0, "toa_error": {"uniform": [0.2, 1.0]}},
-        {"name": "Cc", "ra": 300.0, "dec": 60.0, "red": {"amplitude": 1e-14, "gamma": 4.0}},
+        {"name": "Cc", "ra": 300.0, "dec": 60.0, "red": {"amplitude": 1e-14, "spectral_index": 4.0}},
     ]},
     "observing": {"start": 53000.0, "span": 5.0, "cadence": 14.0, "toa_error": 0.5},
     "noise": {"white": {"quadrature": 0.25}},
@@ -107,7 +107,7 @@ def test_quantities_give_the_same_dataset_as_numbers_in_default_units():
 
 def test_draw_bounds_as_a_quantity_pair_and_dimensionless_quantities():
     config = ptares.config_from(small_config(), observing={"toa_error": {"log_uniform": [100, 3000] * u.ns}},
-                                gwb={"amplitude": 2e-15 * u.dimensionless_unscaled, "gamma": 13 / 3 * u.one})
+                                gwb={"amplitude": 2e-15 * u.dimensionless_unscaled, "spectral_index": 13 / 3 * u.one})
     assert (config.observing.toa_error.low, config.observing.toa_error.high) == pytest.approx((0.1, 3.0))
     assert config.gwb.amplitude == 2e-15
     # the Config without TOML text keeps its other values (here the seed and the random array)

@@ -18,7 +18,7 @@ def test_small_config_parses_with_units(small_toml):
     assert b.red.amplitude == 1e-14
     assert c.toa_error == pytest.approx(0.9, rel=1e-6, abs=0)
     assert config.source_text == SMALL_TOML
-    assert config.gwb.gamma == pytest.approx(13 / 3, rel=1e-6, abs=0)
+    assert config.gwb.spectral_index == pytest.approx(13 / 3, rel=1e-6, abs=0)
 
 
 @pytest.mark.parametrize(
@@ -41,13 +41,13 @@ def test_quantities_convert_to_default_units(text, unit, expected):
 def test_drawn_values_and_per_pulsar_overrides():
     text = """
 [array]
-pulsars = [{name = "x", ra = 0, dec = 0, white = {scale = 2.0}, red = {gamma = 3.0}},
+pulsars = [{name = "x", ra = 0, dec = 0, white = {scale = 2.0}, red = {spectral_index = 3.0}},
            {name = "y", ra = 1, dec = 1}]
 [noise.white]
 quadrature = "100 ns"
 [noise.red]
 amplitude = {log_uniform = [1e-16, 1e-14]}
-gamma = {uniform = [2, 6]}
+spectral_index = {uniform = [2, 6]}
 """
     config = parse_config(text)
     assert isinstance(config.noise.red.amplitude, Draw)
@@ -99,7 +99,7 @@ BASE = SMALL_TOML
         ("seed = 5", "seed = 5.0", "run.seed", "integer"),
         ("harmonics = 8", "harmonics = 100000000", "gwb.harmonics", "less than or equal"),
         ("amplitude = 3e-15", "amplitude = 1e300", "gwb.amplitude", "at most"),
-        ("harmonics = 8", "harmonics = 8\ngamma = 1000", "gwb.gamma", "at most"),
+        ("harmonics = 8", "harmonics = 8\nspectral_index = 1000", "gwb.spectral_index", "at most"),
         ('toa_error = "300 ns"', 'toa_error = "300 ns"\ntoa_error_scatter = 400', "observing.toa_error_scatter", "at most"),
         ('cadence = "30 d"', "cadence = 1e-9", "observing.cadence", "more than ptares handles"),
         ('cadence_jitter = "2 d"', 'cadence_jitter = "40 d"', "observing.cadence_jitter", "larger than the cadence"),
@@ -195,6 +195,7 @@ def test_shipped_configs_are_valid(name):
     "table, where, replacement",
     [
         ("[gwb]\namplitude = 1e-15\ncomponents = 3", "gwb.components", "'gwb.harmonics'"),
+        ("[gwb]\namplitude = 1e-15\ngamma = 3", "gwb.gamma", "'gwb.spectral_index'"),
         ("[noise.red]\namplitude = 1e-15\ncomponents = 3", "noise.red.components", "'noise.red.harmonics'"),
         ("[fit]\nred_components = 3", "fit.red_components", "'fit.red_harmonics'"),
         ("[fit]\ncw = true", "fit.cw", "'fit.binary'"),

@@ -140,5 +140,5 @@ def test_usage_mistakes_are_one_line(dataset_path, tmp_path):
     import sys
 
     result = subprocess.run([sys.executable, "-m", "ptares", "correlate", str(dataset_path), "--out", str(tmp_path),
-                             "--gamma", "abc"], capture_output=True, text=True)
-    assert result.returncode == 2 and result.stderr.count("\n") == 1 and "--gamma" in result.stderr
+                             "--spectral-index", "abc"], capture_output=True, text=True)
+    assert result.returncode == 2 and result.stderr.count("\n") == 1 and "--spectral-index" in result.stderr

@@ -65,7 +65,7 @@ def test_fast_estimator_equals_dense_formula(red):
         array={"random": {"count": 3}},
         observing={"start": 53000, "span": 8.0, "cadence": 20.0, "cadence_jitter": 5.0, "toa_error": 0.3,
                    "toa_error_scatter": 0.2, "gaps": [[54000, 54200]]},
-        noise={"red": {"amplitude": red, "gamma": 3.0, "harmonics": 12}, "white": {"quadrature": 0.1}},
+        noise={"red": {"amplitude": red, "spectral_index": 3.0, "harmonics": 12}, "white": {"quadrature": 0.1}},
         gwb={"amplitude": 5e-15, "harmonics": 8},
         timing_model={"fit": ["offset", "spin_frequency", "spin_down", "yearly"]},
     )

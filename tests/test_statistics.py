@@ -66,7 +66,7 @@ def test_background_variance_matches_sum_of_spectrum(pattern):
     config = small_config(
         array={"random": {"count": 8}},
         observing={"start": 53000, "span": 12.0, "cadence": 20.0, "cadence_jitter": 4.0, "toa_error": 0.1},
-        gwb={"amplitude": amplitude, "gamma": gamma, "harmonics": harmonics, "correlation": pattern},
+        gwb={"amplitude": amplitude, "spectral_index": gamma, "harmonics": harmonics, "correlation": pattern},
     )
     runs = realisations(config, count)
     span, origin = 12 * YEAR, 53000.0
@@ -100,7 +100,7 @@ def test_binned_pair_correlations_follow_pattern(pattern):
     config = small_config(
         array={"pulsars": listed},
         observing={"start": 53000, "span": 10.0, "cadence": 30.0, "toa_error": 0.01},
-        gwb={"amplitude": amplitude, "gamma": gamma, "harmonics": harmonics, "correlation": pattern},
+        gwb={"amplitude": amplitude, "spectral_index": gamma, "harmonics": harmonics, "correlation": pattern},
     )
     runs = realisations(config, count, first_seed=5000)
     span = 10 * YEAR
@@ -129,7 +129,7 @@ def test_red_noise_spectrum_recovered():
     config = small_config(
         array={"random": {"count": 1}},
         observing={"start": 53000, "span": 10.0, "cadence": 14.0, "toa_error": 0.01},
-        noise={"red": {"amplitude": amplitude, "gamma": gamma, "harmonics": harmonics}},
+        noise={"red": {"amplitude": amplitude, "spectral_index": gamma, "harmonics": harmonics}},
         gwb=None,
     )
     runs = realisations(config, count, first_seed=9000)
@@ -164,7 +164,7 @@ def test_binary_population_background_matches_gaussian_power_and_hellings_downs(
     config = small_config(
         array={"pulsars": listed},
         observing={"start": 53000, "span": 10.0, "cadence": 30.0, "toa_error": 0.01},
-        gwb={"amplitude": amplitude, "gamma": gamma, "harmonics": harmonics, "source": "binaries", "binaries": 300},
+        gwb={"amplitude": amplitude, "spectral_index": gamma, "harmonics": harmonics, "source": "binaries", "binaries": 300},
     )
     runs = realisations(config, count, first_seed=7000)
     span = 10 * YEAR

@@ -157,7 +157,7 @@ def run_task(task: Task) -> dict:
         config = Config.model_validate(task.raw)
         data = simulate(config)
         gwb = data.signals.get("gwb", {})
-        row.update(injected_amplitude=float(gwb.get("amplitude", 0.0)), injected_spectral_index=gwb.get("gamma"),
+        row.update(injected_amplitude=float(gwb.get("amplitude", 0.0)), injected_spectral_index=gwb.get("spectral_index"),
                    injected_correlation=gwb.get("correlation"))
         if "correlate" in task.stages:
             result = correlate(data, noise_from_dataset(data), config.correlate)

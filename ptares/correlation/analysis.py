@@ -108,7 +108,7 @@ class CorrelationResult:
 def template_settings(dataset: Dataset, section: CorrelateSection) -> tuple:
     """``(gamma, harmonics)`` of the template: the config's, else the injected background's, else 13/3 and 30."""
     gwb = dataset.signals.get("gwb", {})
-    gamma = section.gamma if section.gamma is not None else float(gwb.get("gamma", 13.0 / 3.0))
+    gamma = section.spectral_index if section.spectral_index is not None else float(gwb.get("spectral_index", 13.0 / 3.0))
     harmonics = section.harmonics if section.harmonics is not None else int(gwb.get("harmonics", 30))
     return gamma, harmonics
 
@@ -223,7 +223,7 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
         band_method=covariance_method(products),
         fit=fit,
         settings={
-            "gamma": gamma,
+            "spectral_index": gamma,
             "harmonics": harmonics,
             "noise": section.noise,
             "noise_draws": len(noise_models),

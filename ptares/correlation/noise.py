@@ -58,7 +58,7 @@ def noise_from_dataset(dataset: Dataset) -> NoiseModel:
         red_spectral_index=red_spectral_index,
         red_harmonics=int(red.get("harmonics", 30)),
         common_amplitude=float(gwb.get("amplitude", 0.0)),
-        common_spectral_index=float(gwb.get("gamma", 13.0 / 3.0)),
+        common_spectral_index=float(gwb.get("spectral_index", 13.0 / 3.0)),
         common_harmonics=int(gwb.get("harmonics", 30)),
     )
 

@@ -148,7 +148,7 @@ def correlation_figure(dataset: Dataset, bins: int = 10):
                 mid = np.degrees(0.5 * (edges[k] + edges[k + 1]))
                 ax.errorbar(mid, values.mean(), yerr=values.std(ddof=1) / np.sqrt(values.size), fmt="s", ms=5,
                             color="#c1121f", capsize=3, label="bin mean \u00b1 standard error of its pairs" if k == 0 else None)
-        ax.set_title(f"Injected background: A = {gwb['amplitude']:.3g}, gamma = {gwb['gamma']:.3g}, {len(angles)} pairs")
+        ax.set_title(f"Injected background: A = {gwb['amplitude']:.3g}, spectral index {gwb['spectral_index']:.3g}, {len(angles)} pairs")
     else:
         ax.set_title("Correlation pattern (no background injected)")
     ax.set_xlim(0, 180)

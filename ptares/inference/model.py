@@ -151,7 +151,7 @@ class FitModel:
             free += [for_pulsar(q, n) for n in pulsars for q in (RED_AMPLITUDE, RED_INDEX)]
         if section.common != "none":
             values[COMMON_AMPLITUDE] = np.log10(gwb["amplitude"]) if gwb.get("amplitude", 0) > 0 else -np.inf
-            values[COMMON_INDEX] = float(gwb.get("gamma", 13.0 / 3.0))
+            values[COMMON_INDEX] = float(gwb.get("spectral_index", 13.0 / 3.0))
             free += [COMMON_AMPLITUDE, COMMON_INDEX]
         self.default_priors = dict(DEFAULT_PRIORS)
         if section.binary:

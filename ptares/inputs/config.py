@@ -195,12 +195,12 @@ class WhiteNoise(_Section):
 class RedNoise(_Section):
     """``[noise.red]``: intrinsic power-law red noise of each pulsar (zero amplitude: none).
 
-    ``amplitude`` (dimensionless, at f = 1/yr) and ``gamma`` are drawable;
+    ``amplitude`` (dimensionless, at f = 1/yr) and ``spectral_index`` are drawable;
     ``harmonics`` is the number of Fourier frequencies k/T.
     """
 
     amplitude: Drawable(None, NonNegative, MaxAmplitude) = 0.0
-    gamma: Drawable(None, SpectralIndex) = 13.0 / 3.0
+    spectral_index: Drawable(None, SpectralIndex) = 13.0 / 3.0
     harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
 
 
@@ -216,7 +216,7 @@ class WhiteOverride(_Section):
 
 class RedOverride(_Section):
     amplitude: Optional[Drawable(None, NonNegative, MaxAmplitude)] = None
-    gamma: Optional[Drawable(None, SpectralIndex)] = None
+    spectral_index: Optional[Drawable(None, SpectralIndex)] = None
 
 
 class Observing(_Section):
@@ -344,7 +344,7 @@ class TimingModel(_Section):
 class Background(_Section):
     """``[gwb]``: a stochastic background with a power-law spectrum.
 
-    ``amplitude`` of the characteristic strain at f = 1/yr; ``gamma`` the
+    ``amplitude`` of the characteristic strain at f = 1/yr; ``spectral_index`` the
     residual spectral index (13/3 for circular binaries); ``harmonics`` the
     number of Fourier frequencies k/T; ``correlation`` the inter-pulsar pattern.
     ``source = "binaries"`` builds it from about ``binaries`` circular binaries
@@ -353,7 +353,7 @@ class Background(_Section):
     """
 
     amplitude: Quantity(None, NonNegative, MaxAmplitude)
-    gamma: Quantity(None, SpectralIndex) = 13.0 / 3.0
+    spectral_index: Quantity(None, SpectralIndex) = 13.0 / 3.0
     harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     correlation: Literal[CORRELATIONS] = "hellings-downs"
     source: Literal["gaussian", "binaries"] = "gaussian"
@@ -449,7 +449,7 @@ class CorrelateNoise(_Section):
 class CorrelateSection(_Section):
     """``[correlate]``: settings of ``ptares correlate``.
 
-    ``gamma`` and ``harmonics`` shape the template (default: the injected
+    ``spectral_index`` and ``harmonics`` shape the template (default: the injected
     background's, else 13/3 and 30); ``noise`` is ``"injected"`` (the dataset's
     truth), ``"values"`` (``[correlate.noise_values]``) or ``"posterior"``
     (``draws`` samples of a ``ptares fit`` whose ``chains.h5`` is ``chains``: the
@@ -460,7 +460,7 @@ class CorrelateSection(_Section):
     for the nulls and those simulations.
     """
 
-    gamma: Optional[Quantity(None, SpectralIndex)] = None
+    spectral_index: Optional[Quantity(None, SpectralIndex)] = None
     harmonics: Optional[Count] = Field(default=None, ge=1, le=MAX_HARMONICS)
     noise: Literal["injected", "values", "posterior"] = "injected"
     chains: Optional[str] = None
@@ -689,6 +689,7 @@ def _location(loc: tuple, raw: dict) -> str:
 #: Keys renamed before the first release: an old key is still an unknown key, with a hint.
 RENAMED = {
     "components": ("harmonics", "the number of Fourier frequencies"),
+    "gamma": ("spectral_index", "the spectral index"),
     "red_components": ("red_harmonics", "the number of red-noise Fourier frequencies"),
     "common_components": ("common_harmonics", "the number of common-process Fourier frequencies"),
     "evolve": ("frequency_evolution", "radiation-reaction frequency evolution"),

@@ -104,7 +104,7 @@ def build_array(config: Config, seed: int, tables=None) -> list[PulsarSetup]:
                  observing=config.observing,
                  white=WhiteOverride(scale=p.noise.get("white_scale"),
                                      quadrature=p.noise["white_quadrature"] * 1e6 if "white_quadrature" in p.noise else None),
-                 red=RedOverride(amplitude=p.noise.get("red_amplitude"), gamma=p.noise.get("red_spectral_index")))
+                 red=RedOverride(amplitude=p.noise.get("red_amplitude"), spectral_index=p.noise.get("red_spectral_index")))
             for p in tables.pulsars
         ]
     elif config.array.random is not None:
@@ -163,7 +163,7 @@ def build_array(config: Config, seed: int, tables=None) -> list[PulsarSetup]:
                     _first(white and white.quadrature, noise.white.quadrature), seed, name, "white_quadrature", _US
                 ),
                 red_amplitude=_resolve(_first(red and red.amplitude, noise.red.amplitude), seed, name, "red_amplitude"),
-                red_spectral_index=_resolve(_first(red and red.gamma, noise.red.gamma), seed, name, "red_spectral_index"),
+                red_spectral_index=_resolve(_first(red and red.spectral_index, noise.red.spectral_index), seed, name, "red_spectral_index"),
                 true_distance=_true_distance(
                     float(entry["distance"]), float(entry["distance_error"]), config.array.vary_distances, seed, name
                 ),

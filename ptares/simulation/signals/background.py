@@ -47,7 +47,7 @@ def lower_factor(matrix: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
 @dataclass(frozen=True)
 class GaussianBackground:
     amplitude: float
-    gamma: float
+    spectral_index: float
     harmonics: int
     correlation: str
     name: str = "gwb"
@@ -56,14 +56,14 @@ class GaussianBackground:
         positions = np.array([p.position for p in context.pulsars])
         factor = lower_factor(correlation_matrix(positions, self.correlation))
         z = np.array([stream(context.seed, self.name, p.name).standard_normal((2, self.harmonics)) for p in context.pulsars])
-        sd = np.sqrt(coefficient_variance(context.observations.span, self.harmonics, self.amplitude, self.gamma))
+        sd = np.sqrt(coefficient_variance(context.observations.span, self.harmonics, self.amplitude, self.spectral_index))
         coefficients = np.einsum("ab,bck->cak", factor, z) * sd
         return synthesise_array(context.observations, coefficients[0], coefficients[1])
 
     def describe(self, context: Context) -> dict:
         return {
             "amplitude": self.amplitude,
-            "gamma": self.gamma,
+            "spectral_index": self.spectral_index,
             "harmonics": self.harmonics,
             "correlation": self.correlation,
             "source": "gaussian",
@@ -79,4 +79,4 @@ def from_config(config, pulsars):
         from ptares.simulation.signals import population
 
         return population.from_config(config, pulsars)
-    return GaussianBackground(gwb.amplitude, gwb.gamma, gwb.harmonics, gwb.correlation)
+    return GaussianBackground(gwb.amplitude, gwb.spectral_index, gwb.harmonics, gwb.correlation)

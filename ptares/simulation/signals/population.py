@@ -65,7 +65,7 @@ def draw_population(amplitude, gamma, harmonics, binaries, spread_dex, span, rng
 @dataclass(frozen=True)
 class BinaryPopulation:
     amplitude: float
-    gamma: float
+    spectral_index: float
     harmonics: int
     binaries: int
     loudness_spread: float
@@ -74,7 +74,7 @@ class BinaryPopulation:
     def population(self, context: Context) -> list:
         rng = stream(context.seed, self.name, "population")
         return draw_population(
-            self.amplitude, self.gamma, self.harmonics, self.binaries, self.loudness_spread,
+            self.amplitude, self.spectral_index, self.harmonics, self.binaries, self.loudness_spread,
             context.observations.span, rng,
         )
 
@@ -84,7 +84,7 @@ class BinaryPopulation:
     def describe(self, context: Context) -> dict:
         return {
             "amplitude": self.amplitude,
-            "gamma": self.gamma,
+            "spectral_index": self.spectral_index,
             "harmonics": self.harmonics,
             "correlation": "hellings-downs",
             "source": "binaries",
@@ -96,4 +96,4 @@ class BinaryPopulation:
 def from_config(config, pulsars):
     """Used by the background builder when ``[gwb] source = "binaries"``."""
     gwb = config.gwb
-    return BinaryPopulation(gwb.amplitude, gwb.gamma, gwb.harmonics, gwb.binaries, gwb.loudness_spread)
+    return BinaryPopulation(gwb.amplitude, gwb.spectral_index, gwb.harmonics, gwb.binaries, gwb.loudness_spread)
