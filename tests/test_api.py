@@ -63,7 +63,8 @@ def test_notebook_session(tmp_path):
     result = ptares.correlate(data, scrambles=0, phase_shifts=20, fit_trials=20)
     assert isinstance(result, ptares.CorrelationResult)
     assert_summary(repr(result), "3 pulsars, 3 pairs", "noise injected", "hellings-downs", "monopole", "dipole",
-                   "S/N", "injected")
+                   "S/N", "injected", f"spectral index {result.settings['spectral_index']:.3g}")
+    assert result.settings["spectral_index"] > 0
 
     out = tmp_path / "fit"
     fitted = ptares.fit(data, out, common="uncorrelated", red="injected", fixed={COMMON_INDEX: 13 / 3},

@@ -87,7 +87,7 @@ class CorrelationResult:
         draws = self.settings.get("noise_draws", 1)
         lines = [f"CorrelationResult: {len(self.names)} pulsars, {len(self.pairs.rho)} pairs, "
                  f"noise {self.settings.get('noise', '?')}" + (f" ({draws} draws)" if draws != 1 else "")
-                 + f", {self.settings.get('harmonics')} frequencies, gamma {float(self.settings.get('gamma', 0.0)):.3g}"]
+                 + f", {self.settings.get('harmonics')} frequencies, spectral index {float(self.settings.get('spectral_index', 0.0)):.3g}"]
         for name in PATTERN_NAMES:
             e = self.estimates.get(name, {})
             p_text = ""

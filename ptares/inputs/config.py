@@ -412,7 +412,7 @@ class ContinuousWave(_Section):
         return self
 
     @property
-    def gw_frequency_hz(self) -> float:
+    def wave_frequency_hz(self) -> float:
         """GW frequency in Hz (twice the orbital frequency)."""
         return (self.frequency if self.frequency is not None else 2.0 * self.orbital_frequency) * 1e-9
 
@@ -781,7 +781,7 @@ def _check_sources(config: Config) -> None:
         if names.count(names[i]) > 1:
             raise InputError("source names must be unique", f"{path}.name")
         key = "frequency" if source.frequency is not None else "orbital_frequency"
-        f = source.gw_frequency_hz
+        f = source.wave_frequency_hz
         if f * span * DAY < 1.0:
             raise InputError(f"GW frequency {f * 1e9:.4g} nHz completes no full cycle in the {span / 365.25:.3g}-yr span", f"{path}.{key}")
         if f > nyquist:

@@ -61,12 +61,12 @@ def prepare_terms(binaries, positions, distances):
     :func:`ptares.simulation.kernels.wave_residuals`.
     """
     b = _as_arrays(binaries)
-    evolve = np.array([x.frequency_evolution for x in binaries], dtype=bool)
+    evolving = np.array([x.frequency_evolution for x in binaries], dtype=bool)
     with_pulsar = np.array([x.pulsar_term for x in binaries], dtype=bool)
     omega = np.pi * b["frequency"]  # orbital angular frequency
     rate = np.zeros(len(binaries))
-    if evolve.any():
-        rate[evolve] = 1.0 / time_to_coalescence(b["chirp_mass"][evolve], b["frequency"][evolve])
+    if evolving.any():
+        rate[evolving] = 1.0 / time_to_coalescence(b["chirp_mass"][evolving], b["frequency"][evolving])
     amplitude = b["strain"] / (2.0 * np.pi * b["frequency"])
     earth = np.column_stack([np.mod(2.0 * b["phase"], 2.0 * np.pi), 2.0 * omega, rate, amplitude])
 
@@ -156,7 +156,7 @@ def from_config(config, pulsars):
         return None
     binaries = []
     for i, source in enumerate(config.cw):
-        f = source.gw_frequency_hz
+        f = source.wave_frequency_hz
         mass = source.chirp_mass * M_SUN if source.chirp_mass is not None else 0.0
         h0 = source.strain if source.strain is not None else float(strain_amplitude(mass, f, source.distance * _MPC))
         binaries.append(
