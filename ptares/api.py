@@ -28,9 +28,7 @@ from __future__ import annotations
 import contextvars
 import copy
 import json
-import math
 import os
-import re
 import sys
 import tempfile
 from collections.abc import Mapping
@@ -45,6 +43,9 @@ from ptares.errors import InputError
 from ptares.inputs.config import (
     Config,
     CorrelateSection,
+    config_from_data,
+    config_text,
+    merge_tables,
     FitSection,
     load_config,
     load_section,
@@ -119,17 +120,6 @@ def _cannot_write(exc: OSError, out: Path) -> InputError:
 # ---------------------------------------------------------------- configs from files, dicts and Quantities
 
 
-def _merge(base: dict, top: Mapping) -> dict:
-    """``top`` over ``base``, table by table."""
-    merged = copy.deepcopy(base)
-    for key, value in top.items():
-        if isinstance(value, Mapping) and isinstance(merged.get(key), dict):
-            merged[key] = _merge(merged[key], value)
-        else:
-            merged[key] = copy.deepcopy(value)
-    return merged
-
-
 def _plain(value):
     """A validated config's dump as TOML-like data: no None, draws as ``{kind = [low, high]}``, lists for tuples."""
     if isinstance(value, dict):
@@ -148,72 +138,14 @@ def _raw_config(config: Config) -> dict:
     return _plain(config.model_dump())
 
 
-_BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
-
-
-def _toml_value(value) -> str:
-    import astropy.units as u
-
-    if isinstance(value, u.Quantity):
-        if not value.isscalar:
-            return _toml_value(list(value))
-        number = float(value.value)
-        if value.unit == u.dimensionless_unscaled:
-            return _toml_value(number)
-        if value.unit == u.hourangle:  # not a unit name astropy's angle parser reads; 15 degrees an hour exactly
-            return json.dumps(f"{number * 15.0!r} deg")
-        return json.dumps(f"{number!r} {value.unit.to_string()}")
-    if isinstance(value, (bool, np.bool_)):
-        return "true" if value else "false"
-    if isinstance(value, (int, np.integer)):
-        return str(int(value))
-    if isinstance(value, (float, np.floating)):
-        number = float(value)
-        return repr(number) if math.isfinite(number) else ("nan" if math.isnan(number) else ("inf" if number > 0 else "-inf"))
-    if isinstance(value, (str, Path)):
-        return json.dumps(str(value))
-    if isinstance(value, Mapping):
-        return "{" + ", ".join(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items() if v is not None) + "}"
-    if isinstance(value, (list, tuple, np.ndarray)):
-        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    raise TypeError(f"cannot write {type(value).__name__} as TOML")
-
-
-def _toml_key(key) -> str:
-    key = str(key)
-    return key if _BARE_KEY.fullmatch(key) else json.dumps(key)
-
-
-def toml_text(raw: Mapping) -> str:
-    """``raw`` (dicts of sections, values numbers, strings, lists or astropy Quantities) as TOML text.
-
-    Quantities become strings with their unit (``"15.0 yr"``), which the config reads back.
-    """
-    top = [f"{_toml_key(k)} = {_toml_value(v)}" for k, v in raw.items() if v is not None and not isinstance(v, Mapping)]
-    tables = []
-    for key, value in raw.items():
-        if isinstance(value, Mapping):
-            tables.append(f"\n[{_toml_key(key)}]")
-            tables += [f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items() if v is not None]
-    return "\n".join(top + tables).lstrip("\n") + "\n"
-
-
 def _validated(raw: dict, where: str, path: Path | None) -> Config:
-    from pydantic import ValidationError
-
+    config = config_from_data(raw, where, path)
     try:
-        config = Config.model_validate(raw)
-    except ValidationError as exc:
-        raise validation_error(exc, raw, where) from None
-    except InputError as exc:
-        raise InputError(exc.message, f"{where}: {exc.where}") from None
-    try:
-        text = toml_text(raw)
+        text = config_text(raw)
         tomllib.loads(text)
     except (TypeError, ValueError):
         text = ""  # only the record in the dataset is lost: the config itself is valid
     config._text = text
-    config._path = path
     return config
 
 
@@ -239,7 +171,7 @@ def config_from(source, **sections) -> Config:
         raw, where = read_toml(path), str(path)
     else:
         raise InputError(f"expected a Config, a config file or a dict of sections, got {type(source).__name__}", "config")
-    return _validated(_merge(raw, sections), where, path)
+    return _validated(merge_tables(raw, sections), where, path)
 
 
 def _section(model, table: str, settings, options: dict, default=None):
@@ -656,7 +588,7 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
             from ptares.dataset import atomic_path
 
             with atomic_path(path) as temporary:
-                temporary.write_text(toml_text(raw))
+                temporary.write_text(config_text(raw))
         except (TypeError, ValueError) as exc:
             raise InputError(f"cannot be written as TOML ({exc})", "config") from None
         except OSError as exc:

@@ -19,7 +19,7 @@ import numpy as np
 
 from ptares.errors import InputError
 from ptares.inference.parameters import COMMON_AMPLITUDE, COMMON_INDEX
-from ptares.inputs.config import Config, SweepSection, validation_error, read_toml
+from ptares.inputs.config import Config, SweepSection, merge_tables, read_toml, validation_error
 
 __all__ = ["Task", "load_sweep", "derive_seed", "expand", "run_task"]
 
@@ -43,17 +43,6 @@ class Task:
     values: tuple  #: ((dotted key, value), ...) of this task's axes
     raw: dict  #: the task's complete config, as TOML-like data
     stages: tuple
-
-
-def _merge(base: dict, top: dict) -> dict:
-    """``top`` over ``base``, table by table."""
-    merged = copy.deepcopy(base)
-    for key, value in top.items():
-        if isinstance(value, dict) and isinstance(merged.get(key), dict):
-            merged[key] = _merge(merged[key], value)
-        else:
-            merged[key] = copy.deepcopy(value)
-    return merged
 
 
 def _set(raw: dict, dotted: str, value) -> None:
@@ -81,7 +70,7 @@ def load_sweep(path) -> tuple:
     base = {k: v for k, v in raw.items() if k != "sweep"}
     if section.base:
         base_path = (path.parent / section.base) if not Path(section.base).is_absolute() else Path(section.base)
-        base = _merge({k: v for k, v in read_toml(base_path).items() if k != "sweep"}, base)
+        base = merge_tables({k: v for k, v in read_toml(base_path).items() if k != "sweep"}, base)
     return base, section
 
 

@@ -11,14 +11,17 @@ fault into one :class:`~ptares.errors.InputError` naming the key.
 
 from __future__ import annotations
 
+import copy
 import math
 import re
 import sys
 import warnings
+from collections.abc import Mapping
 from pathlib import Path
 from typing import Annotated, Any, Literal, Optional, Union
 
 import numpy as np
+import tomli_w
 from pydantic import (
     AfterValidator,
     BaseModel,
@@ -855,12 +858,49 @@ def load_section(path, name: str, model):
         raise validation_error(exc, raw, str(path), (name,)) from None
 
 
-def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None) -> Config:
-    """Validate TOML ``text``; ``where`` names it in error messages."""
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML: {exc}", where) from None
+def merge_tables(base: Mapping, top: Mapping) -> dict:
+    """``top`` over ``base``, table by table (a copy; neither input changes)."""
+    merged = copy.deepcopy(dict(base))
+    for key, value in top.items():
+        if isinstance(value, Mapping) and isinstance(merged.get(key), dict):
+            merged[key] = merge_tables(merged[key], value)
+        else:
+            merged[key] = copy.deepcopy(value)
+    return merged
+
+
+def _toml_ready(value):
+    """Config data as tomli-w writes it: Quantities as strings with their unit (which the config
+    reads back), numpy scalars as Python numbers, tuples as lists, ``None`` left out."""
+    import astropy.units as u
+
+    if isinstance(value, u.Quantity):
+        if not value.isscalar:
+            return [_toml_ready(v) for v in value]
+        number = float(value.value)
+        if value.unit == u.dimensionless_unscaled:
+            return number
+        if value.unit == u.hourangle:  # not a unit name astropy's angle parser reads; 15 degrees an hour exactly
+            return f"{number * 15.0!r} deg"
+        return f"{number!r} {value.unit.to_string()}"
+    if isinstance(value, Mapping):
+        return {str(k): _toml_ready(v) for k, v in value.items() if v is not None}
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return [_toml_ready(v) for v in value]
+    if isinstance(value, (np.bool_, np.integer, np.floating)):
+        return value.item()
+    if isinstance(value, Path):
+        return str(value)
+    return value
+
+
+def config_text(raw: Mapping) -> str:
+    """``raw`` (tables of numbers, strings, lists or astropy Quantities) as TOML text; ``TypeError`` if it cannot be."""
+    return tomli_w.dumps(_toml_ready(raw))
+
+
+def config_from_data(raw: dict, where: str, path: Optional[Path] = None, text: str = "") -> Config:
+    """Validate TOML-like ``raw``; ``where`` names it in error messages, ``text`` is the record kept with it."""
     try:
         config = Config.model_validate(raw)
     except ValidationError as exc:
@@ -870,6 +910,15 @@ def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None
     config._text = text
     config._path = path
     return config
+
+
+def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None) -> Config:
+    """Validate TOML ``text``; ``where`` names it in error messages."""
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML: {exc}", where) from None
+    return config_from_data(raw, where, path, text)
 
 
 def load_config(path) -> Config:
