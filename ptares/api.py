@@ -518,13 +518,12 @@ class SweepResult:
         """The rows of tasks that failed (each with its ``error``)."""
         return [r for r in self.rows if r.get("status") != "ok"]
 
-    def detection_fraction(self) -> dict:
-        """Injected background amplitude -> share of its finished tasks with S/N at or above the threshold."""
-        groups = {}
-        for row in self.rows:
-            if row.get("status") == "ok" and isinstance(row.get("hd_snr"), float):
-                groups.setdefault(row.get("injected_amplitude"), []).append(row["hd_snr"] >= self.threshold)
-        return {a: float(np.mean(hits)) for a, hits in sorted(groups.items(), key=lambda item: item[0] or 0.0)}
+    def detection_probability(self) -> dict:
+        """Injected background amplitude -> :class:`~ptares.campaign.detection.Detection` (share of its
+        finished tasks with S/N above the threshold, its binomial standard error, the task count)."""
+        from ptares.campaign.detection import detection_probability
+
+        return detection_probability(self.rows, self.threshold)
 
     def __repr__(self) -> str:
         axes = sorted({k[5:] for r in self.rows for k in r if k.startswith("axis:")})
@@ -538,10 +537,10 @@ class SweepResult:
             lines.append(f"  axes {', '.join(counts)}")
         lines.append(f"  detection threshold S/N {self.threshold:.3g} at false-alarm {self.false_alarm:g} "
                      f"({self.threshold_basis})")
-        fractions = self.detection_fraction()
-        if fractions:
-            shown = [f"{a:.3g}: {f:.2f}" for a, f in list(fractions.items())[:6]]
-            lines.append(f"  detected by injected A  {', '.join(shown)}{', ...' if len(fractions) > 6 else ''}")
+        detections = self.detection_probability()
+        if detections:
+            shown = [f"{a:.3g}: {d.fraction:.2f} +/- {d.error:.2f}" for a, d in list(detections.items())[:6]]
+            lines.append(f"  detected by injected A  {', '.join(shown)}{', ...' if len(detections) > 6 else ''}")
         return "\n".join(lines)
 
 
@@ -572,7 +571,7 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
     """
     from ptares.campaign.sweep import run_sweep
     from ptares.campaign.tasks import load_sweep
-    from ptares.figures.campaign import detection_threshold
+    from ptares.campaign.detection import detection_threshold
 
     out = Path(out)
     if isinstance(config, Mapping):

@@ -147,3 +147,21 @@ def test_list_valued_axis_and_seed_axis(tmp_path, capsys):
     config = write(tmp_path, realisations=1, extra='"run.seed" = [1, 2]')
     assert main(["sweep", str(config), "--out", str(tmp_path / "p")]) == 2
     assert "run.seed cannot be an axis" in capsys.readouterr().err
+
+
+def test_detection_probability_and_threshold():
+    """Threshold: the 95% quantile of the no-signal S/N (numpy); detection share k/n with its binomial
+    standard error sqrt(p (1 - p) / n), p = (k + 1/2) / (n + 1) so that it is never zero (common practice)."""
+    from ptares.campaign.detection import detection_probability, detection_threshold
+
+    null = [{"status": "ok", "injected_amplitude": 0.0, "hd_snr": float(s)} for s in np.linspace(-2, 2, 21)]
+    loud = [{"status": "ok", "injected_amplitude": 1e-14, "hd_snr": float(s)} for s in (1.0, 3.0, 4.0, 5.0)]
+    failed = [{"status": "failed", "injected_amplitude": 1e-14, "hd_snr": ""}]
+    threshold, how = detection_threshold(null + loud + failed, 0.05)
+    assert threshold == pytest.approx(np.quantile(np.linspace(-2, 2, 21), 0.95), rel=1e-12) and "21 no-signal" in how
+    found = detection_probability(null + loud + failed, 2.0)
+    assert found[1e-14].tasks == 4 and found[1e-14].fraction == 0.75
+    p = 3.5 / 5
+    assert found[1e-14].error == pytest.approx(np.sqrt(p * (1 - p) / 4), rel=1e-12)
+    p = 0.5 / 22
+    assert found[0.0].fraction == 0.0 and found[0.0].error == pytest.approx(np.sqrt(p * (1 - p) / 21), rel=1e-12)

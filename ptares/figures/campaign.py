@@ -9,27 +9,14 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt
 import numpy as np
 
+from ptares.campaign.detection import detection_probability, detection_threshold, finished
 from ptares.figures.common import COMPONENT_COLOURS
 from ptares.inference import parameters
 
-__all__ = ["COVERAGE_PARAMETERS", "coverage_figure", "detection_threshold", "interval_coverage", "sweep_figures"]
+__all__ = ["COVERAGE_PARAMETERS", "coverage_figure", "interval_coverage", "sweep_figures"]
 
 #: Parameters whose credible intervals the coverage figure checks; results.csv has ``<name>.quantile``.
 COVERAGE_PARAMETERS = (parameters.COMMON_AMPLITUDE, parameters.COMMON_INDEX)
-
-
-def _ok(rows, key):
-    return [r for r in rows if r.get("status") == "ok" and isinstance(r.get(key), float)]
-
-
-def detection_threshold(rows, false_alarm: float):
-    """S/N threshold at ``false_alarm`` from the tasks without a background; ``(threshold, how)``."""
-    from scipy import stats
-
-    silent = [r["hd_snr"] for r in _ok(rows, "hd_snr") if r.get("injected_amplitude") == 0.0]
-    if len(silent) >= 5:
-        return float(np.quantile(silent, 1.0 - false_alarm)), f"from {len(silent)} no-signal tasks"
-    return float(stats.norm.isf(false_alarm)), "unit-normal S/N (fewer than 5 no-signal tasks)"
 
 
 def _groups(rows):
@@ -50,18 +37,15 @@ def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
     when fits ran)."""
     figures = {}
     every_row = rows
-    rows = _ok(rows, "hd_snr")
+    rows = finished(rows, "hd_snr")
     if rows:
         threshold, how = detection_threshold(rows, false_alarm)
         fig, ax = plt.subplots(figsize=(7.0, 4.5))
         for label, members in _groups(rows).items():
-            amplitudes = sorted({r["injected_amplitude"] for r in members})
-            fractions, errors = [], []
-            for a in amplitudes:
-                snr = np.array([r["hd_snr"] for r in members if r["injected_amplitude"] == a])
-                f = np.mean(snr > threshold)
-                fractions.append(f)
-                errors.append(np.sqrt(max(f * (1 - f), 1.0 / snr.size) / snr.size))
+            detections = detection_probability(members, threshold)
+            amplitudes = list(detections)
+            fractions = [d.fraction for d in detections.values()]
+            errors = [d.error for d in detections.values()]
             text = ", ".join(f"{k} = {v:g}" if isinstance(v, float) else f"{k} = {v}" for k, v in label) or "all tasks"
             ax.errorbar(amplitudes, fractions, yerr=errors, fmt="o-", capsize=3, label=text)
         ax.axhline(false_alarm, color="#9a9a9a", ls="--", lw=1, label=f"false-alarm probability {false_alarm:g}")
@@ -134,7 +118,7 @@ def coverage_figure(rows):
     quantiles = {}
     for name in COVERAGE_PARAMETERS:
         key = f"{name}.quantile"
-        values = np.array([r[key] for r in _ok(rows, key) if r.get("injected_amplitude", 1.0) != 0.0], dtype=float)
+        values = np.array([r[key] for r in finished(rows, key) if r.get("injected_amplitude", 1.0) != 0.0], dtype=float)
         values = values[np.isfinite(values)]
         if values.size:
             quantiles[name] = values
