@@ -1,9 +1,9 @@
 """ptares: simulate pulsar-timing-array residuals and recover gravitational-wave signals.
 
 The subpackages read as the pipeline, and data flows one way through them:
-:mod:`ptares.inputs` (configs, units, tables) -> :mod:`ptares.physics` (formulas)
--> :mod:`ptares.simulation` (array, schedule, signals) -> :mod:`ptares.dataset`
--> :mod:`ptares.correlation` (pair correlations, optimal statistics) ->
+:mod:`ptares.physics` (formulas) -> :mod:`ptares.dataset` (the shared data model)
+-> :mod:`ptares.inputs` (configs, units, tables) -> :mod:`ptares.simulation` (array,
+schedule, signals) -> :mod:`ptares.correlation` (pair correlations, optimal statistics) ->
 :mod:`ptares.inference` (likelihood, priors, samplers) -> :mod:`ptares.campaign`
 (many runs), with :mod:`ptares.figures` for each stage and :mod:`ptares.cli` as a
 thin shell over the functions exported here.
@@ -15,7 +15,16 @@ with astropy Quantities.  The subpackages are named ``simulation``, ``correlatio
 ``inference`` and ``campaign`` so that these function names stay free.
 """
 
-from ptares.api import FitResult, Interrupted, SweepResult, config_from, correlate, fit, simulate, sweep
+from ptares.api import (
+    FitResult,
+    Interrupted,
+    SweepResult,
+    config_from,
+    correlate,
+    fit,
+    simulate,
+    sweep,
+)
 from ptares.dataset import Dataset, PulsarData, load_dataset, write_dataset
 from ptares.errors import InputError
 from ptares.inputs.config import Config, load_config, parse_config

@@ -43,12 +43,12 @@ from ptares.errors import InputError
 from ptares.inputs.config import (
     Config,
     CorrelateSection,
+    FitSection,
     config_from_data,
     config_text,
-    merge_tables,
-    FitSection,
     load_config,
     load_section,
+    merge_tables,
     read_toml,
     validation_error,
     with_overrides,
@@ -181,8 +181,6 @@ def _section(model, table: str, settings, options: dict, default=None):
     """
     from pydantic import ValidationError
 
-    from ptares.inputs.config import _message
-
     folder = None
     if settings is None:
         section = default if default is not None else model()
@@ -206,9 +204,7 @@ def _section(model, table: str, settings, options: dict, default=None):
             try:
                 section = model.model_validate({**section.model_dump(), **options})
             except ValidationError as exc:
-                first = exc.errors()[0]
-                key = ".".join(str(p) for p in first["loc"] if not str(p).startswith("function-"))
-                raise InputError(_message(first), f"{table}.{key}") from None
+                raise validation_error(exc, {table: options}, "", (table,)) from None
     return section, folder
 
 
@@ -544,20 +540,6 @@ class SweepResult:
         return "\n".join(lines)
 
 
-def _check_sweep_table(raw: dict) -> None:
-    """A dict's ``[sweep]`` table checked before anything is written."""
-    from pydantic import ValidationError
-
-    from ptares.inputs.config import SweepSection
-
-    if not isinstance(raw.get("sweep"), Mapping):
-        raise InputError("has no [sweep] table", "config")
-    try:
-        SweepSection.model_validate(raw["sweep"])
-    except ValidationError as exc:
-        raise validation_error(exc, raw, "config", ("sweep",)) from None
-
-
 def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = False, figures: bool = True,
           verbose: bool = False) -> SweepResult:
     """Run (or resume) the campaign of a config's ``[sweep]`` table into the folder ``out``; returns a :class:`SweepResult`.
@@ -569,9 +551,9 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
     ``overwrite=True`` discards them.  Writes ``results.csv`` and, unless
     ``figures=False``, the campaign figures.  Ctrl-C raises :class:`Interrupted`.
     """
+    from ptares.campaign.detection import detection_threshold
     from ptares.campaign.sweep import run_sweep
     from ptares.campaign.tasks import load_sweep
-    from ptares.campaign.detection import detection_threshold
 
     out = Path(out)
     if isinstance(config, Mapping):
@@ -579,7 +561,10 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
         base = raw.get("sweep", {}).get("base") if isinstance(raw.get("sweep"), Mapping) else None
         if isinstance(base, (str, os.PathLike)) and not Path(base).is_absolute():
             raw["sweep"]["base"] = str(Path(base).resolve())  # a dict's files are relative to the working folder
-        _check_sweep_table(raw)
+        from ptares.campaign.tasks import expand, sweep_from_data
+
+        base_raw, section = sweep_from_data(raw, Path.cwd(), "config")
+        expand(base_raw, section, "config: sweep")  # unknown keys refused before anything is written
         check_output_directory(out, True)
         try:
             out.mkdir(parents=True, exist_ok=True)

@@ -11,9 +11,9 @@ import sys
 import warnings
 from pathlib import Path
 
-from ptares.version import __version__
 from ptares.api import COMMAND_LINE, check_output_directory
 from ptares.errors import InputError, PhysicsWarning
+from ptares.version import __version__
 
 _default_showwarning = warnings.showwarning
 

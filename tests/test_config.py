@@ -199,6 +199,10 @@ def test_shipped_configs_are_valid(name):
         ("[noise.red]\namplitude = 1e-15\ncomponents = 3", "noise.red.components", "'noise.red.harmonics'"),
         ("[fit]\nred_components = 3", "fit.red_components", "'fit.red_harmonics'"),
         ("[fit]\ncw = true", "fit.cw", "'fit.binary'"),
+        ("[correlate.noise_values]\nred_gamma = 3", "correlate.noise_values.red_gamma",
+         "'correlate.noise_values.red_spectral_index'"),
+        ("[correlate.noise_values.pulsars.RP001]\nred_gamma = 3", "correlate.noise_values.pulsars.RP001.red_gamma",
+         "'correlate.noise_values.pulsars.RP001.red_spectral_index'"),
         ("[fit]\ncw_free = []", "fit.cw_free", "'fit.binary_free'"),
         ("[fit]\ncw_values = {}", "fit.cw_values", "'fit.binary_values'"),
         ("[fit]\ncw_pulsar_term = true", "fit.cw_pulsar_term", "'fit.binary_pulsar_term'"),
@@ -211,3 +215,15 @@ def test_renamed_keys_are_refused_with_their_replacement(table, where, replaceme
         parse_config('[array]\nrandom = {count = 3}\n' + table)
     line = str(caught.value)
     assert f"{where}: unknown key;" in line and f"is now {replacement}" in line and "\n" not in line
+
+
+@pytest.mark.parametrize("table, where", [
+    ("[observing]\ngamma = 3", "observing.gamma"),
+    ("[noise.white]\ncomponents = 3", "noise.white.components"),
+    ("[correlate]\ncw = true", "correlate.cw"),
+])
+def test_rename_hint_only_where_the_new_key_exists(table, where):
+    """An old key in a table that never had it gets the plain unknown-key error, not a wrong hint."""
+    with pytest.raises(InputError) as caught:
+        parse_config('[array]\nrandom = {count = 3}\n' + table)
+    assert str(caught.value) == f"<config>: {where}: unknown key"

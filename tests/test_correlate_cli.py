@@ -142,3 +142,11 @@ def test_usage_mistakes_are_one_line(dataset_path, tmp_path):
     result = subprocess.run([sys.executable, "-m", "ptares", "correlate", str(dataset_path), "--out", str(tmp_path),
                              "--spectral-index", "abc"], capture_output=True, text=True)
     assert result.returncode == 2 and result.stderr.count("\n") == 1 and "--spectral-index" in result.stderr
+
+
+def test_posterior_noise_without_chains_is_one_line(dataset_path, tmp_path, capsys):
+    """A check across options (``--noise posterior`` needs ``--chains``) names the options, no traceback."""
+    out = tmp_path / "o"
+    assert main(["correlate", str(dataset_path), "--out", str(out), "--noise", "posterior"]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "chains" in err and "Traceback" not in err and not out.exists()

@@ -18,7 +18,7 @@ from ptares.dataset import write_dataset
 from ptares.errors import InputError
 from ptares.inference.model import FitModel
 from ptares.inference.samplers.ensemble import run_sampler, summarise
-from ptares.inputs.config import FitSection
+from ptares.inputs.config import FitSection, parse_config
 from ptares.simulation.simulate import simulate
 
 
@@ -186,7 +186,7 @@ def test_fit_command_outputs(tmp_path, capsys):
         ("[fit]\npriors = {common_lg_amplitude = {log_uniform = [0, 1]}}", "positive"),
         ("[fit]\npriors = {common_lg_amplitude = {normal = [-14, -1]}}", "positive sd"),
         ("[fit]\nfixed = {common_spin = 3}", "fit.fixed.common_spin: the model has no parameter"),
-        ("[fit]\npriors = {binary_phase = {uniform = [0, 1]}}", "not a free parameter"),
+        ("[fit]\npriors = {binary_orbital_phase = {uniform = [0, 1]}}", "not a free parameter"),
         ('[fit]\npulsars = ["RP001", "Nowhere"]', "fit.pulsars: the dataset has no pulsar(s) Nowhere"),
         ('[fit]\ncommon = "quadrupole"', "fit.common"),
         ("[fit]\nwalkers = 2", "fewer than twice"),
@@ -217,15 +217,16 @@ def test_continuous_wave_model_reproduces_injection():
     signal = model._signal(model.values)
     for p, s in zip(data.pulsars, signal):
         np.testing.assert_allclose(s, p.injected["cw"], rtol=0, atol=1e-9 * np.abs(p.injected["cw"]).max())
-    assert model.names == ["binary_lg_strain", "binary_phase", "binary_cos_inclination", "binary_polarization"]
+    assert model.names == ["binary_lg_strain", "binary_orbital_phase", "binary_inclination_cosine",
+                           "binary_polarization_angle"]
 
 
 def test_unknown_binary_values_and_missing_values():
     data = loud_background(7)
     with pytest.raises(InputError, match="needs values"):
         FitModel(data, FitSection(binary=True))
-    with pytest.raises(InputError, match="has no quantity 'spin'"):
-        FitModel(data, FitSection(binary=True, binary_values={"spin": 1.0}))
+    with pytest.raises(InputError, match=r"fit.binary_values.spin: Input should be 'lg_strain'"):
+        parse_config("[array]\nrandom = {count = 3}\n[fit]\nbinary_values = {spin = 1.0}")
 
 
 @pytest.mark.parametrize(
@@ -237,7 +238,7 @@ def test_unknown_binary_values_and_missing_values():
         ('[fit]\nred = "none"\nfixed = {"red_lg_amplitude@RP001" = -12.5}', "not used by this model"),
         ("[fit]\npriors = {common_lg_amplitude = {uniform = [-20, 400]}}", "outside the allowed"),
         ('[fit]\nwhite = "free"\npriors = {white_scale = {normal = [1, 0.5]}}', "outside the allowed"),
-        ('[fit]\nbinary = true\nbinary_free = ["phase", "phase"]', "listed twice"),
+        ('[fit]\nbinary = true\nbinary_free = ["orbital_phase", "orbital_phase"]', "listed twice"),
     ],
 )
 def test_fixed_values_and_priors_are_checked(tmp_path, capsys, table, words):
@@ -329,6 +330,50 @@ def test_binary_frequency_prior_comes_from_the_data():
     assert 10**prior.low == pytest.approx(1.0 / data.span, rel=1e-12)
     assert 10**prior.high == pytest.approx(0.5 / (30 * 86400.0), rel=1e-9)
     model = FitModel(data, FitSection(binary=True, binary_free=["lg_frequency"], common="none",
-                                      binary_values={"lg_strain": -14, "phase": 0, "cos_inclination": 0,
-                                                     "polarization": 0, "right_ascension": 1, "sin_declination": 0}))
+                                      binary_values={"lg_strain": -14, "orbital_phase": 0, "inclination_cosine": 0,
+                                                     "polarization_angle": 0, "right_ascension": 1, "declination_sine": 0}))
     assert model.priors == [prior]
+
+
+@pytest.mark.parametrize("first_generic", [True, False])
+def test_a_pulsars_own_fixed_value_wins_over_the_all_pulsars_one(first_generic):
+    """``fixed`` with both ``red_spectral_index`` and ``red_spectral_index@P``: P's own value wins, in either order."""
+    data = loud_background(7)
+    name = data.names[0]
+    entries = [("red_spectral_index", 3.0), (f"red_spectral_index@{name}", 5.0)]
+    fixed = dict(entries if first_generic else entries[::-1])
+    model = FitModel(data, FitSection(red="free", fixed=fixed))
+    assert model.values[f"red_spectral_index@{name}"] == 5.0
+    assert all(model.values[f"red_spectral_index@{n}"] == 3.0 for n in data.names[1:])
+
+
+def test_normal_prior_on_a_bounded_quantity_needs_bounds():
+    """The README's example prior: a normal on a pulsar's lg amplitude is taken with bounds and refused without."""
+    data = loud_background(7)
+    key = f"red_lg_amplitude@{data.names[0]}"
+    model = FitModel(data, FitSection(red="free", priors={key: {"normal": [-14, 0.5], "bounds": [-20, -11]}}))
+    assert model.priors[model.names.index(key)].high == -11
+    with pytest.raises(InputError, match="give the normal prior 'bounds'"):
+        FitModel(data, FitSection(red="free", priors={key: {"normal": [-14, 0.5]}}))
+
+
+def test_binary_strain_prior_comes_from_the_data():
+    """Default lg h0 prior: residual amplitudes h0 / (2 pi f) (PHYSICS.md) from a thousandth of the
+    smallest TOA error at f = 1/T up to ten times the largest residual scatter at the Nyquist frequency."""
+    from ptares.inference.model import binary_strain_prior
+
+    data = loud_background(7)  # 30-day cadence, no jitter
+    prior = binary_strain_prior(data)
+    assert 10**prior.low / (2 * np.pi / data.span) == pytest.approx(
+        1e-3 * min(p.errors.min() for p in data.pulsars), rel=1e-9)
+    assert 10**prior.high / (2 * np.pi * 0.5 / (30 * 86400.0)) == pytest.approx(
+        10 * max(p.residuals.std() for p in data.pulsars), rel=1e-9)
+    assert -20 < prior.low < prior.high <= -9
+
+
+def test_no_injected_index_without_its_process():
+    """A pulsar simulated without red noise has no injected red-noise index to draw or compare against."""
+    data = loud_background(7)  # no red noise in any pulsar
+    model = FitModel(data, FitSection(red="free"))
+    assert not any(name.startswith("red_") for name in model.injected)
+    assert "common_spectral_index" in model.injected

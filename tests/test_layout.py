@@ -1,7 +1,8 @@
 """The package layout: data flows one way through the pipeline's stages.
 
 Each module may import from its own stage and from stages listed before it, never from a
-later one; the check reads every ``from ptares... import`` with the standard ``ast`` module.
+later one; the check reads every ``from ptares... import`` and ``import ptares...`` with the
+standard ``ast`` module.
 """
 
 import ast
@@ -39,6 +40,10 @@ def imports():
         for node in ast.walk(ast.parse(path.read_text())):
             if isinstance(node, ast.ImportFrom) and node.module and node.module.split(".")[0] == "ptares":
                 yield module, node.module, node.lineno
+            elif isinstance(node, ast.Import):
+                for alias in node.names:
+                    if alias.name.split(".")[0] == "ptares":
+                        yield module, alias.name, node.lineno
             elif isinstance(node, ast.ImportFrom) and node.level:
                 raise AssertionError(f"{module}:{node.lineno}: relative import; write ptares.<stage>.<module>")
 

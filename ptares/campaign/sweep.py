@@ -17,7 +17,7 @@ from pathlib import Path
 
 from tqdm.auto import tqdm
 
-from ptares.campaign.engines import run_on_dask, run_locally
+from ptares.campaign.engines import run_locally, run_on_dask
 from ptares.campaign.tasks import COLUMNS, expand, load_sweep
 from ptares.dataset import atomic_path
 from ptares.errors import InputError

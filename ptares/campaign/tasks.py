@@ -16,10 +16,19 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+from pydantic import ValidationError
 
 from ptares.errors import InputError
 from ptares.inference.parameters import COMMON_AMPLITUDE, COMMON_INDEX
-from ptares.inputs.config import Config, SweepSection, merge_tables, read_toml, validation_error
+from ptares.inputs.config import (
+    Config,
+    SweepSection,
+    error_line,
+    merge_tables,
+    message_for,
+    read_toml,
+    validation_error,
+)
 
 __all__ = ["Task", "load_sweep", "derive_seed", "expand", "run_task"]
 
@@ -58,18 +67,21 @@ def _set(raw: dict, dotted: str, value) -> None:
 def load_sweep(path) -> tuple:
     """``(base raw config without [sweep], SweepSection)`` from a sweep file (and its ``base``)."""
     path = Path(path)
-    raw = read_toml(path)
+    return sweep_from_data(read_toml(path), path.parent, str(path))
+
+
+def sweep_from_data(raw: dict, folder: Path, where: str) -> tuple:
+    """``(base raw config without [sweep], SweepSection)`` from a config's data; a ``base`` file is
+    relative to ``folder``; ``where`` names the source in messages."""
     if "sweep" not in raw:
-        raise InputError("has no [sweep] table", str(path))
+        raise InputError("has no [sweep] table", where)
     try:
         section = SweepSection.model_validate(raw["sweep"])
-    except Exception as exc:  # pydantic ValidationError
-        if hasattr(exc, "errors"):
-            raise validation_error(exc, raw, str(path), ("sweep",)) from None
-        raise
+    except ValidationError as exc:
+        raise validation_error(exc, raw, where, ("sweep",)) from None
     base = {k: v for k, v in raw.items() if k != "sweep"}
     if section.base:
-        base_path = (path.parent / section.base) if not Path(section.base).is_absolute() else Path(section.base)
+        base_path = Path(section.base) if Path(section.base).is_absolute() else folder / section.base
         base = merge_tables({k: v for k, v in read_toml(base_path).items() if k != "sweep"}, base)
     return base, section
 
@@ -105,16 +117,21 @@ def expand(base: dict, section: SweepSection, where: str = "sweep") -> list:
 
 
 def _check_keys(raw: dict, keys, where: str) -> None:
-    """An axis naming a key the config does not have would fail every task: say so at once."""
+    """An unknown key would fail every task: say so at once, naming the axis or the base config's key."""
     try:
         Config.model_validate(raw)
     except InputError:
         return
-    except Exception as exc:
+    except ValidationError as exc:
         for error in exc.errors():
-            if error["type"] == "extra_forbidden":
-                dotted = ".".join(str(p) for p in error["loc"])
-                raise InputError(f"unknown config key {dotted!r}", f"{where}.axes") from None
+            if error["type"] != "extra_forbidden":
+                continue
+            dotted = ".".join(str(p) for p in error["loc"])
+            if dotted in keys:
+                message = message_for(error, tuple(error["loc"]), dotted).replace("unknown key", "unknown config key", 1)
+                raise InputError(f"{dotted!r}: {message}", f"{where}.axes") from None
+            source = where.rpartition(": ")[0] if ": " in where else where
+            raise error_line(error, raw, source) from None
 
 
 def _summary_of_fit(model, run, summary) -> dict:

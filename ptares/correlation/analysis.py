@@ -15,7 +15,6 @@ from dataclasses import dataclass, field
 import numpy as np
 from tqdm.auto import tqdm
 
-from ptares.version import __version__
 from ptares.correlation.fourier import check_dataset, fourier_products
 from ptares.correlation.noise import NoiseModel
 from ptares.correlation.nulls import p_value, phase_shifts, sky_scrambles
@@ -35,7 +34,9 @@ from ptares.correlation.scatter import (
 )
 from ptares.dataset import Dataset, write_json
 from ptares.inputs.config import CorrelateSection
+from ptares.limits import MEMORY_LIMIT
 from ptares.physics.patterns import correlation_matrix, pattern_function
+from ptares.version import __version__
 
 __all__ = ["CorrelationResult", "correlate", "template_settings", "PATTERN_NAMES"]
 
@@ -134,7 +135,7 @@ def _calibrated_p(products, pairs, binned, shape, gamma_matrix, covariance_at, f
     from ptares.correlation.scatter import ensemble_draws, fit_quality
 
     size = products.Z.shape[0] * products.Z.shape[1]
-    if size**2 * 8 > 4e9:
+    if size**2 * 8 > MEMORY_LIMIT:
         return {"p_calibrated": None}
     _, denominator = pair_matrices(products)
     X = ensemble_draws(products, gamma_matrix, max(fit["amplitude2"], 0.0), model_amplitude2, trials, rng)

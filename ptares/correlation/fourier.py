@@ -19,8 +19,7 @@ from ptares.correlation.noise import NoiseModel
 from ptares.dataset import Dataset
 from ptares.errors import InputError
 from ptares.limits import MEMORY_LIMIT
-from ptares.physics.spectra import fourier_basis
-from ptares.physics.spectra import coefficient_variance
+from ptares.physics.spectra import coefficient_variance, fourier_basis
 
 __all__ = ["unit_template", "FourierProducts", "check_dataset", "fourier_products"]
 

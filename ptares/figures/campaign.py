@@ -9,7 +9,11 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt
 import numpy as np
 
-from ptares.campaign.detection import detection_probability, detection_threshold, finished
+from ptares.campaign.detection import (
+    detection_probability,
+    detection_threshold,
+    finished,
+)
 from ptares.figures.common import COMPONENT_COLOURS
 from ptares.inference import parameters
 

@@ -3,7 +3,7 @@
 The corner figure shows, below its diagonal, the 68% and 95% highest-density
 regions of each pair of parameters as shaded areas (from a Gaussian-smoothed
 2-D histogram) with the median as a point; on its diagonal, each parameter's
-smoothed marginal density with its central 68% interval shaded darker and the
+smoothed marginal density with its central 68% and 95% intervals shaded and the
 median as a point on a stem.  Injected values are orange.  An unconverged fit
 is stamped "not converged" in red.
 """
@@ -43,7 +43,7 @@ _STAMP = "#c1121f"
 
 def _shown(names):
     """Array-wide common-process and binary parameters first, then the rest, at most :data:`MAX_CORNER`."""
-    order = sorted(range(len(names)), key=lambda i: (not names[i].startswith(("common_", "binary_")), i))
+    order = sorted(range(len(names)), key=lambda i: (not parameters.is_array_signal(names[i]), i))
     return order[:MAX_CORNER]
 
 
@@ -110,7 +110,8 @@ def central_interval(values, probability: float = INNER):
 
 
 def _marginal(ax, values, limits, truth):
-    """Smoothed 1-D density, central interval shaded, median on a stem, injected value as a solid line."""
+    """Smoothed 1-D density within the draws' range, central 68% and 95% intervals shaded, median on a stem,
+    injected value as a solid line."""
     low, median, high = central_interval(values)
     if _degenerate(values):
         ax.plot([median, median], [0, 1], color=_DARK, lw=1.6, solid_capstyle="butt")
@@ -123,7 +124,10 @@ def _marginal(ax, values, limits, truth):
         centres = 0.5 * (edges[:-1] + edges[1:])
         grid = np.linspace(*limits, 400)
         curve = np.interp(grid, centres, density, left=0.0, right=0.0)
-        ax.fill_between(grid, 0, curve, color=_OUTER_FILL, lw=0, zorder=1)
+        curve[(grid < values.min()) | (grid > values.max())] = 0.0  # no density where no draw is (a prior's edge)
+        outer_low, _, outer_high = central_interval(values, OUTER)
+        band = np.linspace(outer_low, outer_high, 300)
+        ax.fill_between(band, 0, np.interp(band, grid, curve), color=_OUTER_FILL, lw=0, zorder=1, gid="interval95")
         band = np.linspace(low, high, 200)
         ax.fill_between(band, 0, np.interp(band, centres, density), color=_INNER_FILL, lw=0, zorder=2,
                         gid="interval68")
@@ -233,8 +237,8 @@ def corner_figure(samples, names, injected=None, converged: bool = True):
                     ax.set_yticklabels([])
     fig.align_labels()
 
-    inner, outer = ((f"central {INNER:.0%}", "marginal density") if n == 1 else
-                    (f"{INNER:.0%} region (1-D: central {INNER:.0%})", f"{OUTER:.0%} region"))
+    inner, outer = ((f"central {INNER:.0%}", f"central {OUTER:.0%}") if n == 1 else
+                    (f"{INNER:.0%} region (1-D: central)", f"{OUTER:.0%} region (1-D: central)"))
     handles = [Patch(facecolor=_INNER_FILL, edgecolor=_DARK, lw=0.6, label=inner),
                Patch(facecolor=_OUTER_FILL, edgecolor=_DARK, lw=0.6, label=outer),
                Line2D([], [], ls="none", marker="o", mfc="white", mec=_DARK, mew=1.2, ms=5, label="median")]

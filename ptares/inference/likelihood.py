@@ -26,11 +26,10 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg
 
-from ptares.limits import MEMORY_LIMIT
-from ptares.physics.spectra import fourier_basis
 from ptares.errors import InputError
+from ptares.limits import MEMORY_LIMIT
 from ptares.physics.patterns import correlation_matrix
-from ptares.physics.spectra import coefficient_variance
+from ptares.physics.spectra import coefficient_variance, fourier_basis
 
 __all__ = ["Likelihood", "NotPositiveDefinite"]
 

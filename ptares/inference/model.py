@@ -4,8 +4,8 @@ Parameter names follow :mod:`ptares.inference.parameters`: ``common_lg_amplitude
 and ``common_spectral_index`` for the common process; ``white_scale@<pulsar>``,
 ``white_lg_quadrature@<pulsar>`` (lg of seconds), ``red_lg_amplitude@<pulsar>``,
 ``red_spectral_index@<pulsar>``; and for a continuous wave ``binary_lg_strain``,
-``binary_phase`` (orbital phase at the first epoch), ``binary_cos_inclination``,
-``binary_polarization``, ``binary_right_ascension``, ``binary_sin_declination``,
+``binary_orbital_phase`` (at the first epoch), ``binary_inclination_cosine``,
+``binary_polarization_angle``, ``binary_right_ascension``, ``binary_declination_sine``,
 ``binary_lg_frequency`` (GW frequency in Hz).  Whatever is not free is held at a
 fixed value: the dataset's injected truth by default, or the config's.  The
 continuous-wave model is a binary of constant frequency (Earth term, and the
@@ -33,19 +33,19 @@ from ptares.inference.parameters import (
     WHITE_SCALE,
     binary,
     for_pulsar,
+    is_array_signal,
     quantity,
+    split,
 )
 from ptares.inputs.config import FitSection
 from ptares.simulation.signals.continuous import Binary, PulsarLayout
 
-__all__ = ["FitModel", "DEFAULT_PRIORS", "binary_frequency_prior"]
+__all__ = ["FitModel", "DEFAULT_PRIORS", "binary_frequency_prior", "binary_strain_prior"]
 
-#: Default priors by quantity.  Red noise: amplitude and index ranges as in published
-#: array noise analyses (e.g. Agazie et al. 2023, ApJL 951, L10, from memory).  The
-#: continuous-wave strain: lg h0 in [-18, -11]; by the h0 formula (PHYSICS.md) a binary of
-#: chirp mass 1e10 M_sun at 10 Mpc emitting at 100 nHz has h0 ~ 6e-12, and h0 = 1e-18 leaves
-#: residuals h0 / (2 pi f) of tens of picoseconds, far below any TOA error.  The
-#: continuous-wave frequency prior comes from the data (:func:`binary_frequency_prior`).
+#: Default priors by quantity.  Red noise: amplitude and index ranges as used in published
+#: array noise analyses (e.g. Agazie et al. 2023, ApJL 951, L10; reference from memory).  The continuous wave's
+#: strain and frequency priors come from the data (:func:`binary_strain_prior`,
+#: :func:`binary_frequency_prior`); its angles cover their full ranges.
 DEFAULT_PRIORS = {
     COMMON_AMPLITUDE: prior_module.Uniform(-18.0, -12.0),
     COMMON_INDEX: prior_module.Uniform(0.0, 7.0),
@@ -53,12 +53,11 @@ DEFAULT_PRIORS = {
     RED_INDEX: prior_module.Uniform(0.0, 7.0),
     WHITE_SCALE: prior_module.Uniform(0.1, 5.0),
     WHITE_QUADRATURE: prior_module.Uniform(-9.0, -4.0),
-    binary("lg_strain"): prior_module.Uniform(-18.0, -11.0),
-    binary("phase"): prior_module.Uniform(0.0, 2.0 * np.pi),
-    binary("cos_inclination"): prior_module.Uniform(-1.0, 1.0),
-    binary("polarization"): prior_module.Uniform(0.0, np.pi),
+    binary("orbital_phase"): prior_module.Uniform(0.0, 2.0 * np.pi),
+    binary("inclination_cosine"): prior_module.Uniform(-1.0, 1.0),
+    binary("polarization_angle"): prior_module.Uniform(0.0, np.pi),
     binary("right_ascension"): prior_module.Uniform(0.0, 2.0 * np.pi),
-    binary("sin_declination"): prior_module.Uniform(-1.0, 1.0),
+    binary("declination_sine"): prior_module.Uniform(-1.0, 1.0),
 }
 
 #: Values each quantity may take (fixed values and prior supports must lie inside).
@@ -66,23 +65,47 @@ VALID = {
     COMMON_AMPLITUDE: (-np.inf, -9.0), RED_AMPLITUDE: (-np.inf, -9.0), binary("lg_strain"): (-np.inf, -9.0),
     COMMON_INDEX: (-10.0, 10.0), RED_INDEX: (-10.0, 10.0),
     WHITE_SCALE: (1e-6, 1e3), WHITE_QUADRATURE: (-np.inf, -2.0),
-    binary("phase"): (-1e6, 1e6), binary("cos_inclination"): (-1.0, 1.0), binary("polarization"): (-1e6, 1e6),
-    binary("right_ascension"): (-1e6, 1e6), binary("sin_declination"): (-1.0, 1.0), binary("lg_frequency"): (-10.0, -5.0),
+    binary("orbital_phase"): (-1e6, 1e6), binary("inclination_cosine"): (-1.0, 1.0), binary("polarization_angle"): (-1e6, 1e6),
+    binary("right_ascension"): (-1e6, 1e6), binary("declination_sine"): (-1.0, 1.0), binary("lg_frequency"): (-10.0, -5.0),
 }
 
 _NAMING = "parameters are named like 'common_lg_amplitude' or 'red_lg_amplitude@PULSAR' (README: Fits)"
 
 
-def binary_frequency_prior(dataset: Dataset) -> prior_module.Uniform:
-    """Uniform prior on lg f_GW over [1/T, the Nyquist frequency of the finest cadence].
-
-    T is the dataset's span; a pulsar's cadence is the median interval between its
-    distinct epochs, and the finest is the shortest of these over the array.
-    """
+def _frequency_range(dataset: Dataset) -> tuple:
+    """``(1/T, Nyquist frequency of the finest cadence)`` in Hz; a pulsar's cadence is the median
+    interval between its distinct epochs, and the finest is the shortest over the array."""
     cadences = [np.median(np.diff(np.unique(p.mjd))) * 86400.0 for p in dataset.pulsars if len(np.unique(p.mjd)) > 1]
-    low = 1.0 / dataset.span
-    high = 0.5 / min(cadences)
+    return 1.0 / dataset.span, 0.5 / min(cadences)
+
+
+def binary_frequency_prior(dataset: Dataset) -> prior_module.Uniform:
+    """Uniform prior on lg f_GW over [1/T, the Nyquist frequency of the finest cadence] (see :func:`_frequency_range`)."""
+    low, high = _frequency_range(dataset)
     return prior_module.Uniform(float(np.log10(low)), float(np.log10(high)))
+
+
+#: Strain prior ends as residual amplitudes: a thousandth of the smallest TOA error, and ten
+#: times the largest residual scatter.
+STRAIN_FLOOR, STRAIN_CEILING = 1e-3, 10.0
+
+
+def binary_strain_prior(dataset: Dataset) -> prior_module.Uniform:
+    """Uniform prior on lg h0 from binaries that are invisible to binaries that dominate the data.
+
+    A binary's residual amplitude is ``h0 / (2 pi f)`` (times a geometric factor of order
+    one; PHYSICS.md).  The lower end is the strain whose residuals at the lowest frequency
+    1/T are :data:`STRAIN_FLOOR` times the smallest quoted TOA error; the upper end the
+    strain whose residuals at the highest frequency (the finest cadence's Nyquist
+    frequency) are :data:`STRAIN_CEILING` times the largest residual standard deviation,
+    at most 1e-9.
+    """
+    low_f, high_f = _frequency_range(dataset)
+    smallest_error = min(float(np.min(p.errors)) for p in dataset.pulsars)
+    largest_scatter = max(float(np.std(p.residuals)) for p in dataset.pulsars)
+    low = np.log10(2.0 * np.pi * low_f * STRAIN_FLOOR * smallest_error)
+    high = min(np.log10(2.0 * np.pi * high_f * STRAIN_CEILING * largest_scatter), VALID[binary("lg_strain")][1])
+    return prior_module.Uniform(float(low), float(high))
 
 
 def _check_value(key: str, value: float, where: str) -> None:
@@ -95,7 +118,9 @@ def _check_support(prior, key: str, where: str) -> None:
     low, high = VALID[quantity(key)]
     bounds = (getattr(prior, "low", -np.inf), getattr(prior, "high", np.inf))
     if bounds[0] < low or bounds[1] > high:
-        raise InputError(f"the prior reaches [{bounds[0]:g}, {bounds[1]:g}], outside the allowed [{low:g}, {high:g}]", where)
+        hint = "; give the normal prior 'bounds' inside it" if isinstance(prior, prior_module.Normal) else ""
+        raise InputError(f"the prior reaches [{bounds[0]:g}, {bounds[1]:g}], outside the allowed [{low:g}, {high:g}]{hint}",
+                         where)
 
 
 def _subset(dataset: Dataset, names) -> Dataset:
@@ -156,16 +181,17 @@ class FitModel:
         self.default_priors = dict(DEFAULT_PRIORS)
         if section.binary:
             self.default_priors[binary("lg_frequency")] = binary_frequency_prior(dataset)
+            self.default_priors[binary("lg_strain")] = binary_strain_prior(dataset)
             values.update(self._binary_defaults(dataset, section))
             free += [binary(k) for k in section.binary_free]
-        self.injected = {k: v for k, v in values.items() if np.isfinite(v)}
+        self.injected = {k: v for k, v in values.items() if np.isfinite(v) and self._was_injected(k, values)}
 
         known = set(values) | set(self.default_priors)
         used = set(free) | {k for k in values if quantity(k) in (COMMON_AMPLITUDE, COMMON_INDEX, WHITE_SCALE, WHITE_QUADRATURE)
-                            or k.startswith("binary_")}
+                            or is_array_signal(k)}
         if self.red_mode != "none":
             used |= {k for k in values if quantity(k) in (RED_AMPLITUDE, RED_INDEX)}
-        for key, value in section.fixed.items():
+        for key, value in sorted(section.fixed.items(), key=lambda item: item[0] not in PER_PULSAR):  # all pulsars' first
             targets = [k for k in values if quantity(k) == key and k != key] if key in PER_PULSAR else [key]
             for target in targets:
                 if target not in values:
@@ -196,6 +222,16 @@ class FitModel:
             _check_support(prior, name, f"fit.priors.{key}")
         self._warned = False
 
+    @staticmethod
+    def _was_injected(name: str, values: dict) -> bool:
+        """A spectral index counts as injected only where its process was (its amplitude is finite)."""
+        head, pulsar = split(name)
+        if head == RED_INDEX:
+            return bool(np.isfinite(values[for_pulsar(RED_AMPLITUDE, pulsar)]))
+        if head == COMMON_INDEX:
+            return bool(np.isfinite(values.get(COMMON_AMPLITUDE, -np.inf)))
+        return True
+
     def _binary_defaults(self, dataset, section):
         sources = dataset.signals.get("cw", {}).get("sources")
         values = {}
@@ -203,17 +239,14 @@ class FitModel:
             s = sources[0]
             values = {
                 binary("lg_strain"): float(np.log10(s["strain"])),
-                binary("phase"): float(s["phase"]),
-                binary("cos_inclination"): float(np.cos(s["inclination"])),
-                binary("polarization"): float(s["polarization"]),
+                binary("orbital_phase"): float(s["phase"]),
+                binary("inclination_cosine"): float(np.cos(s["inclination"])),
+                binary("polarization_angle"): float(s["polarization"]),
                 binary("right_ascension"): float(s["ra"]),
-                binary("sin_declination"): float(np.sin(s["dec"])),
+                binary("declination_sine"): float(np.sin(s["dec"])),
                 binary("lg_frequency"): float(np.log10(s["frequency"])),
             }
-        for key, value in section.binary_values.items():
-            if key not in BINARY_QUANTITIES:
-                raise InputError(f"the continuous-wave model has no quantity {key!r} (it has {', '.join(BINARY_QUANTITIES)})",
-                                 f"fit.binary_values.{key}")
+        for key, value in section.binary_values.items():  # keys checked by FitSection
             values[binary(key)] = float(value)
         missing = [k for k in BINARY_QUANTITIES if binary(k) not in values and k not in section.binary_free]
         if missing:
@@ -252,10 +285,10 @@ class FitModel:
             return None
         source = Binary(
             name="fit", ra=v[binary("right_ascension")],
-            dec=float(np.arcsin(np.clip(v[binary("sin_declination")], -1, 1))),
+            dec=float(np.arcsin(np.clip(v[binary("declination_sine")], -1, 1))),
             frequency=10 ** v[binary("lg_frequency")], strain=10 ** v[binary("lg_strain")],
-            inclination=float(np.arccos(np.clip(v[binary("cos_inclination")], -1, 1))),
-            polarization=v[binary("polarization")], phase=v[binary("phase")], pulsar_term=self.section.binary_pulsar_term,
+            inclination=float(np.arccos(np.clip(v[binary("inclination_cosine")], -1, 1))),
+            polarization=v[binary("polarization_angle")], phase=v[binary("orbital_phase")], pulsar_term=self.section.binary_pulsar_term,
         )
         return self._layout.residuals([source])
 

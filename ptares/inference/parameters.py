@@ -28,6 +28,7 @@ __all__ = [
     "split",
     "quantity",
     "label",
+    "is_array_signal",
 ]
 
 SEPARATOR = "@"
@@ -67,18 +68,23 @@ def quantity(name: str) -> str:
 LABELS = {
     COMMON_AMPLITUDE: r"$\lg A_\mathrm{common}$",
     COMMON_INDEX: r"$\gamma_\mathrm{common}$",
-    WHITE_SCALE: r"white scale",
+    WHITE_SCALE: r"$s_\mathrm{white}$",
     WHITE_QUADRATURE: r"$\lg(\sigma_\mathrm{quad}\,/\,\mathrm{s})$",
     RED_AMPLITUDE: r"$\lg A_\mathrm{red}$",
     RED_INDEX: r"$\gamma_\mathrm{red}$",
     binary("lg_strain"): r"$\lg h_0$",
-    binary("phase"): r"$\Phi_0\ (\mathrm{rad})$",
-    binary("cos_inclination"): r"$\cos\iota$",
-    binary("polarization"): r"$\psi\ (\mathrm{rad})$",
+    binary("orbital_phase"): r"$\Phi_0\ (\mathrm{rad})$",
+    binary("inclination_cosine"): r"$\cos\iota$",
+    binary("polarization_angle"): r"$\psi\ (\mathrm{rad})$",
     binary("right_ascension"): r"$\alpha\ (\mathrm{rad})$",
-    binary("sin_declination"): r"$\sin\delta$",
+    binary("declination_sine"): r"$\sin\delta$",
     binary("lg_frequency"): r"$\lg(f_\mathrm{GW}\,/\,\mathrm{Hz})$",
 }
+
+
+def is_array_signal(name: str) -> bool:
+    """Whether a parameter belongs to a signal shared by the array (the common process, a binary)."""
+    return name in (COMMON_AMPLITUDE, COMMON_INDEX) or name in {binary(q) for q in BINARY_QUANTITIES}
 
 
 def label(name: str) -> str:

@@ -18,7 +18,7 @@ import sys
 import warnings
 from collections.abc import Mapping
 from pathlib import Path
-from typing import Annotated, Any, Literal, Optional, Union
+from typing import Annotated, Any, Literal, Optional, Union, get_args, get_origin
 
 import numpy as np
 import tomli_w
@@ -520,8 +520,8 @@ class Prior(BaseModel):
 #: (see :mod:`ptares.inference.parameters`): lg of the strain h0, orbital phase at the first
 #: epoch (rad), cos of the inclination, polarisation angle (rad), right ascension (rad), sin of
 #: the declination, lg of the GW frequency (Hz).
-BINARY_QUANTITIES = ("lg_strain", "phase", "cos_inclination", "polarization", "right_ascension",
-                     "sin_declination", "lg_frequency")
+BINARY_QUANTITIES = ("lg_strain", "orbital_phase", "inclination_cosine", "polarization_angle", "right_ascension",
+                     "declination_sine", "lg_frequency")
 
 
 class FitSection(_Section):
@@ -550,8 +550,9 @@ class FitSection(_Section):
     red_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     white: Literal["injected", "free"] = "injected"
     binary: bool = False
-    binary_free: tuple[Literal[BINARY_QUANTITIES], ...] = ("lg_strain", "phase", "cos_inclination", "polarization")
-    binary_values: dict[str, float] = {}
+    binary_free: tuple[Literal[BINARY_QUANTITIES], ...] = ("lg_strain", "orbital_phase", "inclination_cosine",
+                                                          "polarization_angle")
+    binary_values: dict[Literal[BINARY_QUANTITIES], float] = {}
     binary_pulsar_term: bool = False
 
     @field_validator("binary_free")
@@ -675,6 +676,8 @@ def _location(loc: tuple, raw: dict) -> str:
     text = ""
     node: Any = raw
     for part in loc:
+        if part == "[key]":  # pydantic's marker for a dict key that failed: the key is already named
+            continue
         if isinstance(part, int):
             text += f"[{part}]"
             try:
@@ -689,12 +692,15 @@ def _location(loc: tuple, raw: dict) -> str:
     return text
 
 
-#: Keys renamed before the first release: an old key is still an unknown key, with a hint.
+#: Keys renamed before the first release: an old key is still an unknown key, with a hint
+#: wherever the table that refused it has the new key.
 RENAMED = {
     "components": ("harmonics", "the number of Fourier frequencies"),
-    "gamma": ("spectral_index", "the spectral index"),
     "red_components": ("red_harmonics", "the number of red-noise Fourier frequencies"),
     "common_components": ("common_harmonics", "the number of common-process Fourier frequencies"),
+    "gamma": ("spectral_index", "the spectral index"),
+    "red_gamma": ("red_spectral_index", "the red-noise spectral index"),
+    "common_gamma": ("common_spectral_index", "the common-process spectral index"),
     "evolve": ("frequency_evolution", "radiation-reaction frequency evolution"),
     "cw": ("binary", "the continuous-wave fit switch"),
     "cw_free": ("binary_free", "the list of free continuous-wave quantities"),
@@ -703,11 +709,39 @@ RENAMED = {
 }
 
 
-def _message(error: dict, location: str = "") -> str:
+def _models_in(annotation) -> tuple:
+    """``(models, keyed)``: the pydantic models inside a type annotation, and whether they sit in a dict."""
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return [annotation], False
+    models, keyed = [], get_origin(annotation) is dict
+    for argument in get_args(annotation):
+        found, inner = _models_in(argument)
+        models += found
+        keyed = keyed or inner
+    return models, keyed
+
+
+def _keys_at(path: tuple) -> set:
+    """The keys the config takes in the table at ``path`` (e.g. ``('gwb',)``); empty if unknown."""
+    models, keyed = [Config], False
+    for part in path:
+        if isinstance(part, int):
+            continue
+        if keyed:  # a dict's key (a pulsar's name), not a field
+            keyed = False
+            continue
+        found = [_models_in(m.model_fields[part].annotation) for m in models if part in m.model_fields]
+        models = [model for group, _ in found for model in group]
+        keyed = any(inner for _, inner in found)
+    return set().union(*(m.model_fields for m in models)) if models else set()
+
+
+def message_for(error: dict, loc: tuple = (), location: str = "") -> str:
+    """The words of one pydantic error, with a hint for a renamed key."""
     kind = error["type"]
     if kind == "extra_forbidden":
-        key = str(error["loc"][-1]) if error["loc"] else ""
-        if key in RENAMED:
+        key = str(loc[-1]) if loc else ""
+        if key in RENAMED and RENAMED[key][0] in _keys_at(loc[:-1]):
             new, what = RENAMED[key]
             parent = re.sub(r" \([^)]*\)", "", location.rpartition(".")[0])
             return f"unknown key; {what} is now '{parent + '.' if parent else ''}{new}'"
@@ -806,10 +840,18 @@ def _check_sources(config: Config) -> None:
 
 
 def validation_error(exc: ValidationError, raw: dict, where: str, prefix: tuple = ()) -> InputError:
-    first = exc.errors()[0]
+    """The first fault of a validation as one line: ``where: key.path: what is wrong``."""
+    return error_line(exc.errors()[0], raw, where, prefix)
+
+
+def error_line(first: dict, raw: dict, where: str, prefix: tuple = ()) -> InputError:
+    """One pydantic error (an entry of ``ValidationError.errors()``) as an :class:`InputError`."""
     loc = prefix + tuple(p for p in first["loc"] if not (isinstance(p, str) and p.startswith("function-")))
     location = _location(loc, raw)
-    return InputError(_message(first, location), f"{where}: {location}" if loc else where)
+    message = message_for(first, loc, location)
+    if not loc:
+        return InputError(message, where or None)
+    return InputError(message, f"{where}: {location}" if where else location)
 
 
 def load_correlate_section(path) -> CorrelateSection:
@@ -843,7 +885,9 @@ def with_overrides(section, overrides: dict, option_prefix: str = "--"):
         return type(section).model_validate({**section.model_dump(), **overrides})
     except ValidationError as exc:
         first = exc.errors()[0]
-        raise InputError(_message(first), option_prefix + str(first["loc"][0]).replace("_", "-")) from None
+        fields = [str(p) for p in first["loc"] if not str(p).startswith("function-")]
+        where = option_prefix + fields[0].replace("_", "-") if fields else "options"
+        raise InputError(message_for(first), where) from None
 
 
 def load_section(path, name: str, model):

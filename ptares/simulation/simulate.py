@@ -13,7 +13,6 @@ import datetime
 import numpy as np
 from tqdm.auto import tqdm
 
-from ptares.version import __version__
 from ptares.dataset import Dataset, PulsarData
 from ptares.errors import InputError
 from ptares.inputs.config import Config
@@ -22,6 +21,7 @@ from ptares.rng import fresh_seed
 from ptares.simulation.array import build_array, observe
 from ptares.simulation.signals import Context, build_components
 from ptares.simulation.signals.white import effective_uncertainties
+from ptares.version import __version__
 
 __all__ = ["simulate", "run_seed", "import_tables", "config_tables"]
 
