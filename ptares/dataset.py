@@ -34,6 +34,7 @@ import numpy as np
 
 from ptares.errors import InputError
 from ptares.physics.sky import unit_vector
+from ptares.version import earlier_names
 
 __all__ = ["PulsarData", "Dataset", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint"]
 
@@ -310,6 +311,11 @@ def load_dataset(path) -> Dataset:
                 name: {**{k: _plain(v) for k, v in s.attrs.items()}, **{k: v[()] for k, v in s.items()}}
                 for name, s in f.get("signals", {}).items()
             }
+            stored = [k for p in pulsars for k in p.noise] + [k for s in signals.values() for k in s]
+            stored += [k for s in signals.values() if "sources" in s for k in (s["sources"].dtype.names or ())]
+            note = earlier_names(stored)
+            if note:
+                raise InputError(f"written by an earlier ptares ({note}); simulate or import it again", str(path))
             return Dataset(
                 pulsars=pulsars,
                 config=_plain(f.attrs.get("config", "")),

@@ -165,3 +165,18 @@ def test_detection_probability_and_threshold():
     assert found[1e-14].error == pytest.approx(np.sqrt(p * (1 - p) / 4), rel=1e-12)
     p = 0.5 / 22
     assert found[0.0].fraction == 0.0 and found[0.0].error == pytest.approx(np.sqrt(p * (1 - p) / 21), rel=1e-12)
+
+
+def test_earlier_keys_in_a_sweep_name_their_replacement(tmp_path, capsys):
+    """An earlier key as an axis, or in the base config, is refused with its new name before any task runs."""
+    config = write(tmp_path, extra='"gwb.components" = [4, 8]')
+    assert main(["sweep", str(config), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert "sweep.axes: unknown config key 'gwb.components'; the number of Fourier frequencies is now 'gwb.harmonics'" in err
+    assert not (tmp_path / "o").exists()
+    text = config.read_text().replace('"gwb.components" = [4, 8]', "")
+    config.write_text(text.replace("[gwb]\n", "[gwb]\ngamma = 3.0\n", 1))
+    assert main(["sweep", str(config), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert "gwb.gamma: unknown key; the spectral index is now 'gwb.spectral_index'" in err and err.count("\n") == 1
+    assert not (tmp_path / "o").exists()

@@ -212,3 +212,29 @@ def test_catalogue_noise_columns_apply_in_schedule_mode(tmp_path):
     assert data.pulsar("Kite").noise["white_scale"] == 1.5 and data.pulsar("Kite").noise["red_amplitude"] == 3e-15
     assert data.pulsar("Lark").noise["white_scale"] == 1.0 and data.pulsar("Lark").noise["red_amplitude"] == 0.0
     assert "red" in data.pulsar("Kite").injected
+
+
+def test_files_with_earlier_names_are_refused_with_the_new_name(tmp_path, capsys):
+    """A catalogue column, a signals.json key or a dataset attribute under a name used before 0.2 is
+    refused in one line naming its replacement, never read with a default in its place."""
+    import h5py
+
+    catalogue = "name,ra,dec,distance,red_amplitude,red_gamma\nKite,10,10,1,3e-15,4.0\nLark,20,20,1,,\n"
+    with pytest.raises(InputError, match="'red_gamma' is now 'red_spectral_index'"):
+        simulate(load_config(write_tables(tmp_path, catalogue=catalogue)))
+
+    data = simulate(small_config(noise={"red": {"amplitude": 2e-15}}))
+    dataset = write_dataset(data, tmp_path / "d.h5")
+    assert main(["export", str(dataset), "--out", str(tmp_path / "tables")]) == 0
+    signals = tmp_path / "tables" / "signals.json"
+    signals.write_text(signals.read_text().replace('"spectral_index"', '"gamma"'))
+    assert main(["import", str(tmp_path / "tables" / "import.toml"), "--out", str(tmp_path / "back")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "'gamma' is now 'spectral_index'" in err and not (tmp_path / "back").exists()
+
+    with h5py.File(dataset, "a") as f:
+        attrs = f["pulsars"][data.names[0]]["injected"].attrs
+        attrs["red_gamma"] = attrs["red_spectral_index"]
+        del attrs["red_spectral_index"]
+    with pytest.raises(InputError, match=r"earlier ptares \('red_gamma' is now 'red_spectral_index'\); simulate or import it again"):
+        load_dataset(dataset)

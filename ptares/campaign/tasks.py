@@ -128,8 +128,8 @@ def _check_keys(raw: dict, keys, where: str) -> None:
                 continue
             dotted = ".".join(str(p) for p in error["loc"])
             if dotted in keys:
-                message = message_for(error, tuple(error["loc"]), dotted).replace("unknown key", "unknown config key", 1)
-                raise InputError(f"{dotted!r}: {message}", f"{where}.axes") from None
+                message = message_for(error, tuple(error["loc"]), dotted).replace("unknown key", f"unknown config key {dotted!r}", 1)
+                raise InputError(message, f"{where}.axes") from None
             source = where.rpartition(": ")[0] if ": " in where else where
             raise error_line(error, raw, source) from None
 

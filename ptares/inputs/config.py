@@ -37,6 +37,7 @@ from pydantic import (
 
 from ptares.errors import InputError, PhysicsWarning
 from ptares.inputs.units import parse_dec, parse_number, parse_ra, to_unit
+from ptares.version import RENAMED
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -690,23 +691,6 @@ def _location(loc: tuple, raw: dict) -> str:
             text += ("." if text else "") + str(part)
             node = node.get(part) if isinstance(node, dict) else None
     return text
-
-
-#: Keys renamed before the first release: an old key is still an unknown key, with a hint
-#: wherever the table that refused it has the new key.
-RENAMED = {
-    "components": ("harmonics", "the number of Fourier frequencies"),
-    "red_components": ("red_harmonics", "the number of red-noise Fourier frequencies"),
-    "common_components": ("common_harmonics", "the number of common-process Fourier frequencies"),
-    "gamma": ("spectral_index", "the spectral index"),
-    "red_gamma": ("red_spectral_index", "the red-noise spectral index"),
-    "common_gamma": ("common_spectral_index", "the common-process spectral index"),
-    "evolve": ("frequency_evolution", "radiation-reaction frequency evolution"),
-    "cw": ("binary", "the continuous-wave fit switch"),
-    "cw_free": ("binary_free", "the list of free continuous-wave quantities"),
-    "cw_values": ("binary_values", "the table of fixed continuous-wave quantities"),
-    "cw_pulsar_term": ("binary_pulsar_term", "the continuous-wave fit's pulsar-term switch"),
-}
 
 
 def _models_in(annotation) -> tuple:

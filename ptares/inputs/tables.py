@@ -31,6 +31,7 @@ from ptares.dataset import Dataset, atomic_path
 from ptares.errors import InputError, PhysicsWarning
 from ptares.inputs.config import read_text
 from ptares.inputs.units import parse_dec, parse_ra
+from ptares.version import earlier_names
 
 __all__ = ["PulsarRow", "TableArray", "read_tables", "export_tables"]
 
@@ -107,6 +108,9 @@ def _unit_column(header, stem, path, required=True):
 
 def _catalogue(path: Path) -> list:
     header, rows = _rows(path)
+    note = earlier_names([c for c in header if c == "red_gamma"])  # the one catalogue column renamed
+    if note:
+        raise InputError(f"a column has an earlier name ({note})", str(path))
     for column in ("name",):
         if column not in header:
             raise InputError(f"has no {column} column", str(path))
