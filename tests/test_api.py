@@ -209,3 +209,23 @@ def test_command_line_reports_an_interrupted_fit_or_sweep(tmp_path, monkeypatch,
     assert main(["simulate", str(config), "--out", str(tmp_path / "sim"), "--no-figures"]) == 0
     assert main(["simulate", str(config), "--out", str(tmp_path / "sim"), "--no-figures"]) == 2
     assert "pass --overwrite to replace them" in capsys.readouterr().err
+
+
+def test_dex_quantities_numpy_counts_and_angles_in_fit_values():
+    """Quantities reach every keyed value: dex scatters (astropy's dex unit), numpy integers for counts,
+    angle Quantities for a binary's fixed angles (kept in radians; astropy's conversion)."""
+    import numpy as np
+
+    from ptares.inputs.config import FitSection, parse_config
+
+    config = ptares.config_from({"array": {"random": {"count": np.int64(3)}},
+                                 "observing": {"span": 3 * u.yr, "toa_error_scatter": 0.2 * u.dex},
+                                 "gwb": {"amplitude": 1e-15, "harmonics": np.int32(5), "source": "binaries",
+                                         "loudness_spread": 0.3 * u.dex}})
+    assert (config.array.random.count, config.gwb.harmonics) == (3, 5)
+    assert (config.observing.toa_error_scatter, config.gwb.loudness_spread) == (0.2, 0.3)
+    assert parse_config('[array]\nrandom = {count = 3}\n[observing]\ntoa_error_scatter = "0.2 dex"\n').observing.toa_error_scatter == 0.2
+    section = FitSection(binary_values={"orbital_phase": 90 * u.deg, "polarization_angle": 0.5, "lg_strain": -14})
+    assert section.binary_values["orbital_phase"] == pytest.approx(np.pi / 2, rel=1e-15)
+    with pytest.raises(ValueError, match="does not convert to rad"):
+        FitSection(binary_values={"orbital_phase": 3 * u.s})

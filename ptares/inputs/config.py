@@ -164,7 +164,7 @@ MJD_RANGE = (15_000.0, 100_000.0)  #: 1899 to 2132
 MaxAmplitude = AfterValidator(_at_most(1e-9))  # beyond this residuals exceed a second: surely a typo
 SpectralIndex = AfterValidator(lambda v: _at_least(-10.0)(_at_most(10.0)(v)))
 StartRange = AfterValidator(lambda v: _at_least(MJD_RANGE[0])(_at_most(MJD_RANGE[1])(v)))
-Count = Annotated[int, Strict()]
+Count = Annotated[int, Strict(), BeforeValidator(lambda v: int(v) if isinstance(v, np.integer) else v)]  #: no floats; numpy ints are fine
 Positive = AfterValidator(_at_least(0.0, strict=True))
 NonNegative = AfterValidator(_at_least(0.0))
 RightAscension = Annotated[float, BeforeValidator(parse_ra)]
@@ -237,7 +237,7 @@ class Observing(_Section):
     cadence: Quantity("d", Positive) = 14.0
     cadence_jitter: Quantity("d", NonNegative) = 0.0
     toa_error: Drawable("us", Positive) = 1.0
-    toa_error_scatter: Quantity(None, NonNegative, AfterValidator(_at_most(2.0))) = 0.0
+    toa_error_scatter: Quantity("dex", NonNegative, AfterValidator(_at_most(2.0))) = 0.0
     gaps: tuple[Gap, ...] = ()
 
     @field_validator("gaps")
@@ -271,7 +271,7 @@ class PulsarEntry(_Section):
     cadence: Optional[Quantity("d", Positive)] = None
     cadence_jitter: Optional[Quantity("d", NonNegative)] = None
     toa_error: Optional[Drawable("us", Positive)] = None
-    toa_error_scatter: Optional[Quantity(None, NonNegative, AfterValidator(_at_most(2.0)))] = None
+    toa_error_scatter: Optional[Quantity("dex", NonNegative, AfterValidator(_at_most(2.0)))] = None
     gaps: Optional[tuple[Gap, ...]] = None
     white: WhiteOverride = WhiteOverride()
     red: RedOverride = RedOverride()
@@ -362,7 +362,7 @@ class Background(_Section):
     correlation: Literal[CORRELATIONS] = "hellings-downs"
     source: Literal["gaussian", "binaries"] = "gaussian"
     binaries: Count = Field(default=1000, ge=1, le=1_000_000)
-    loudness_spread: Quantity(None, NonNegative) = 0.0
+    loudness_spread: Quantity("dex", NonNegative) = 0.0
 
     @model_validator(mode="after")
     def _binaries_are_hellings_downs(self):
@@ -521,6 +521,7 @@ class Prior(BaseModel):
 #: (see :mod:`ptares.inference.parameters`): lg of the strain h0, orbital phase at the first
 #: epoch (rad), cos of the inclination, polarisation angle (rad), right ascension (rad), sin of
 #: the declination, lg of the GW frequency (Hz).
+_BINARY_ANGLES = ("orbital_phase", "polarization_angle", "right_ascension")  #: radians
 BINARY_QUANTITIES = ("lg_strain", "orbital_phase", "inclination_cosine", "polarization_angle", "right_ascension",
                      "declination_sine", "lg_frequency")
 
@@ -555,6 +556,15 @@ class FitSection(_Section):
                                                           "polarization_angle")
     binary_values: dict[Literal[BINARY_QUANTITIES], float] = {}
     binary_pulsar_term: bool = False
+
+    @field_validator("binary_values", mode="before")
+    @classmethod
+    def _angles_in_radians(cls, values):
+        """Angles may be astropy Quantities in any angle unit; they are kept in radians."""
+        if not isinstance(values, dict):
+            return values
+        return {k: to_unit(v, "rad" if k in _BINARY_ANGLES else "") if not isinstance(v, (int, float)) else v
+                for k, v in values.items()}
 
     @field_validator("binary_free")
     @classmethod

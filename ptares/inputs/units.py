@@ -40,6 +40,12 @@ def _scalar(value: u.Quantity) -> u.Quantity:
     return value
 
 
+def _article(kind) -> str:
+    """``a time``, ``an angle``."""
+    kind = str(kind)
+    return f"{'an' if kind[:1] in 'aeiou' else 'a'} {kind}"
+
+
 def _quantity_in(value: u.Quantity, unit) -> float:
     """A scalar astropy Quantity as a float in ``unit`` (``None``: dimensionless)."""
     value = _scalar(value)
@@ -49,8 +55,8 @@ def _quantity_in(value: u.Quantity, unit) -> float:
     except u.UnitConversionError:
         if unit is None:
             raise ValueError(f"expected a dimensionless number, got {value}") from None
-        raise ValueError(f"{value} (a {value.unit.physical_type}) does not convert to {unit} "
-                         f"(a {target.physical_type})") from None
+        raise ValueError(f"{value} ({_article(value.unit.physical_type)}) does not convert to {unit} "
+                         f"({_article(target.physical_type)})") from None
     return _finite(number, value)
 
 
