@@ -56,7 +56,7 @@ def _summary(config) -> str:
                 f"signal     background A = {component.amplitude:.3g}, spectral index {component.spectral_index:.3g}, "
                 f"{component.harmonics} frequencies, {described['correlation']}, {made}"
             )
-        elif component.name == "cw":
+        elif component.name == "binary":
             for b in component.binaries:
                 lines.append(
                     f"signal     binary {b.name}: f = {b.frequency * 1e9:.3g} nHz, h0 = {b.strain:.3g}, "

@@ -10,12 +10,12 @@ File layout (also in the README)::
         errors              (n,) s, quoted TOA uncertainties
         design_matrix       (n, m), attrs: columns (names)
         measured            (n,) s, residuals taken from a table (inject mode, imports), if any
-        injected/<component>  (n,) s, before the fit: white, red, gwb, cw
+        injected/<component>  (n,) s, before the fit: white, red, gwb, binary
         injected            attrs: white_scale, white_quadrature (s),
                                    red_amplitude, red_spectral_index (the injected noise),
                                    distance (kpc, used by pulsar terms)
     /signals/<component>    attrs: the component's parameters (e.g. gwb amplitude);
-        sources             table of binaries (cw, and a gwb built from binaries)
+        sources             table of binaries (binary, and a gwb built from binaries)
 
 Pulsars keep their array order.  Files are written under a temporary name
 and renamed into place, so a crash never leaves a partial file under the
@@ -149,7 +149,7 @@ def _describe_signal(name: str, values: dict, pulsars: list) -> str:
         elif "source" in values:
             words.append(str(values["source"]))
         return ", ".join(words)
-    if name == "cw":
+    if name == "binary":
         sources = values.get("sources")
         if sources is None or not len(sources):
             return f"{int(values.get('count', 0))} continuous waves"
@@ -311,7 +311,8 @@ def load_dataset(path) -> Dataset:
                 name: {**{k: _plain(v) for k, v in s.attrs.items()}, **{k: v[()] for k, v in s.items()}}
                 for name, s in f.get("signals", {}).items()
             }
-            stored = [k for p in pulsars for k in p.noise] + [k for s in signals.values() for k in s]
+            stored = [k for p in pulsars for k in (*p.noise, *p.injected)] + [k for s in signals.values() for k in s]
+            stored += list(signals)
             stored += [k for s in signals.values() if "sources" in s for k in (s["sources"].dtype.names or ())]
             note = earlier_names(stored)
             if note:

@@ -21,21 +21,17 @@ RENAMED = {
     "red_gamma": ("red_spectral_index", "the red-noise spectral index"),
     "common_gamma": ("common_spectral_index", "the common-process spectral index"),
     "evolve": ("frequency_evolution", "radiation-reaction frequency evolution"),
-    "cw": ("binary", "the continuous-wave fit switch"),
+    "cw": ("binary", "the continuous-wave key"),
     "cw_free": ("binary_free", "the list of free continuous-wave quantities"),
     "cw_values": ("binary_values", "the table of fixed continuous-wave quantities"),
     "cw_pulsar_term": ("binary_pulsar_term", "the continuous-wave fit's pulsar-term switch"),
 }
 
 
-def earlier_names(names, exclude=("cw",)) -> str:
-    """A note naming the first of ``names`` that is an earlier name, with its replacement; "" if none.
-
-    ``exclude`` lists earlier names that are still in use for something else where the
-    names come from (a dataset's signal called ``cw``, for instance).
-    """
+def earlier_names(names) -> str:
+    """A note naming the first of ``names`` that is an earlier name, with its replacement; "" if none."""
     for name in names:
-        if name in RENAMED and name not in exclude:
+        if name in RENAMED:
             new, _ = RENAMED[name]
             return f"'{name}' is now '{new}'"
     return ""

@@ -91,7 +91,7 @@ BASE = SMALL_TOML
         ("harmonics = 8", 'harmonics = 8\ncorrelation = "quadrupole"', "gwb.correlation", "hellings-downs"),
         ('[observing]', '[observing]\ngaps = [[54000, 53000]]', "observing.gaps", "start < end"),
         ('{ name = "Bb"', '{ name = "Aa"', "array", "repeat"),
-        ("[gwb]", "[[cw]]\nchirp_mass = 1e9\n[gwb]", "cw[0].ra", "required key is missing"),
+        ("[gwb]", "[[binary]]\nchirp_mass = 1e9\n[gwb]", "binary[0].ra", "required key is missing"),
         ('name = "Aa"', 'name = "."', "array.pulsars[0] (.).name", "letters, digits"),
         ('name = "Aa"', 'name = "a/b"', "array.pulsars[0] (a/b).name", "letters, digits"),
         ('name = "Aa"', 'name = "A\\u0000b"', "array.pulsars[0]", "letters, digits"),
@@ -199,6 +199,7 @@ def test_shipped_configs_are_valid(name):
         ("[noise.red]\namplitude = 1e-15\ncomponents = 3", "noise.red.components", "'noise.red.harmonics'"),
         ("[fit]\nred_components = 3", "fit.red_components", "'fit.red_harmonics'"),
         ("[fit]\ncw = true", "fit.cw", "'fit.binary'"),
+        ("[[cw]]\nstrain = 1e-14", "cw", "'binary'"),
         ("[correlate.noise_values]\nred_gamma = 3", "correlate.noise_values.red_gamma",
          "'correlate.noise_values.red_spectral_index'"),
         ("[correlate.noise_values.pulsars.RP001]\nred_gamma = 3", "correlate.noise_values.pulsars.RP001.red_gamma",
@@ -206,7 +207,7 @@ def test_shipped_configs_are_valid(name):
         ("[fit]\ncw_free = []", "fit.cw_free", "'fit.binary_free'"),
         ("[fit]\ncw_values = {}", "fit.cw_values", "'fit.binary_values'"),
         ("[fit]\ncw_pulsar_term = true", "fit.cw_pulsar_term", "'fit.binary_pulsar_term'"),
-        ('[[cw]]\nstrain = 1e-14\nfrequency = 10\nra = 1\ndec = 1\nevolve = false', "cw[0].evolve", "'cw[0].frequency_evolution'"),
+        ('[[binary]]\nstrain = 1e-14\nfrequency = 10\nra = 1\ndec = 1\nevolve = false', "binary[0].evolve", "'binary[0].frequency_evolution'"),
     ],
 )
 def test_renamed_keys_are_refused_with_their_replacement(table, where, replacement):

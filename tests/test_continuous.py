@@ -22,7 +22,7 @@ def cw_config(pulsar, source, span=10.0, cadence=10.0):
         array={"pulsars": [pulsar]},
         observing={"start": 53000, "span": span, "cadence": cadence, "toa_error": 0.001},
         gwb=None,
-        cw=[source],
+        binary=[source],
     )
 
 
@@ -85,7 +85,7 @@ def test_residuals_match_integrated_redshift(pulsar, geometry, pulsar_term, evol
     evolution it neglects terms of relative size (4/3) (df/dt) / (2 pi f^2) ~ 2e-5 here, hence 1e-4."""
     source = {"name": "b", "chirp_mass": 1.5e9, "frequency": 20.0, "strain": 1e-14, "frequency_evolution": evolve, "pulsar_term": pulsar_term, **geometry}
     data = simulate(cw_config(pulsar, source))
-    ours = data.pulsars[0].injected["cw"]
+    ours = data.pulsars[0].injected["binary"]
     times = (data.pulsars[0].mjd - data.start_mjd) * 86400.0
     reference = integrated_residuals(source, pulsar, times)
     scale = np.max(np.abs(reference))
@@ -97,8 +97,8 @@ def test_gw_frequency_is_twice_the_orbital_frequency():
     """Fact of the trade: the wave completes a cycle in half an orbit."""
     pulsar, geometry = GEOMETRIES[0]
     common = {"chirp_mass": 1e9, "distance": 100.0, **geometry}
-    by_gw = simulate(cw_config(pulsar, {**common, "frequency": 12.0})).pulsars[0].injected["cw"]
-    by_orbit = simulate(cw_config(pulsar, {**common, "orbital_frequency": 6.0})).pulsars[0].injected["cw"]
+    by_gw = simulate(cw_config(pulsar, {**common, "frequency": 12.0})).pulsars[0].injected["binary"]
+    by_orbit = simulate(cw_config(pulsar, {**common, "orbital_frequency": 6.0})).pulsars[0].injected["binary"]
     np.testing.assert_allclose(by_orbit, by_gw, rtol=1e-14, atol=0)
 
 
@@ -107,8 +107,8 @@ def test_evolving_equals_fixed_when_evolution_is_negligible():
     the phase difference at the pulsar term is about omega tau^2 / tau_c < 1e-7 rad."""
     pulsar, geometry = GEOMETRIES[1]
     common = {"chirp_mass": 1e6, "frequency": 5.0, "strain": 1e-14, **geometry}
-    fixed = simulate(cw_config(pulsar, {**common, "frequency_evolution": False})).pulsars[0].injected["cw"]
-    moving = simulate(cw_config(pulsar, {**common, "frequency_evolution": True})).pulsars[0].injected["cw"]
+    fixed = simulate(cw_config(pulsar, {**common, "frequency_evolution": False})).pulsars[0].injected["binary"]
+    moving = simulate(cw_config(pulsar, {**common, "frequency_evolution": True})).pulsars[0].injected["binary"]
     np.testing.assert_allclose(moving, fixed, atol=1e-6 * np.max(np.abs(fixed)))
 
 
@@ -142,13 +142,13 @@ def test_pulsar_behind_the_source_sees_nothing():
     """A pulsar exactly behind the source: Earth and pulsar terms cancel (1 + Omega . p = 0)."""
     pulsar = {"name": "A", "ra": 150.0, "dec": -30.0, "distance": 1.0}
     source = {"chirp_mass": 1e9, "distance": 50.0, "frequency": 10.0, "ra": 150.0, "dec": -30.0, "frequency_evolution": False}
-    assert np.all(simulate(cw_config(pulsar, source)).pulsars[0].injected["cw"] == 0.0)
+    assert np.all(simulate(cw_config(pulsar, source)).pulsars[0].injected["binary"] == 0.0)
 
 
 def test_sources_recorded_in_dataset():
     pulsar, geometry = GEOMETRIES[0]
     data = simulate(cw_config(pulsar, {"name": "Heron", "chirp_mass": 1e9, "distance": 100.0, "frequency": 10.0, **geometry}))
-    table = data.signals["cw"]["sources"]
+    table = data.signals["binary"]["sources"]
     assert table["name"][0] == b"Heron"
     assert table["strain"][0] == pytest.approx(2.76e-15, rel=0.01, abs=0)  # PHYSICS.md check value
     assert table["frequency"][0] == pytest.approx(1e-8, rel=1e-6, abs=0)
@@ -160,7 +160,7 @@ pulsars = [{name = "A", ra = 10, dec = 10}]
 [observing]
 span = "10 yr"
 cadence = "14 d"
-[[cw]]
+[[binary]]
 name = "src"
 chirp_mass = "1e9 Msun"
 distance = "100 Mpc"
@@ -173,19 +173,19 @@ dec = 30
 @pytest.mark.parametrize(
     "old, new, where, words",
     [
-        ('chirp_mass = "1e9 Msun"', 'chirp_mass = "-1e9 Msun"', "cw[0] (src).chirp_mass", "positive"),
-        ('chirp_mass = "1e9 Msun"', "chirp_mass = 0", "cw[0] (src).chirp_mass", "positive"),
-        ('distance = "100 Mpc"', 'distance = "0 Mpc"', "cw[0] (src).distance", "positive"),
-        ('dec = 30', 'dec = 30\ninclination = 3.5', "cw[0] (src).inclination", "outside [0, pi]"),
-        ('dec = 30', 'dec = 30\ninclination = "-10 deg"', "cw[0] (src).inclination", "outside [0, pi]"),
-        ('frequency = "10 nHz"', 'frequency = "2 nHz"', "cw[0] (src).frequency", "no full cycle"),
-        ('frequency = "10 nHz"', 'orbital_frequency = "1 nHz"', "cw[0] (src).orbital_frequency", "no full cycle"),
-        ('frequency = "10 nHz"', 'frequency = "1 uHz"', "cw[0] (src).frequency", "Nyquist"),
-        ('chirp_mass = "1e9 Msun"\ndistance = "100 Mpc"\nfrequency = "10 nHz"', 'chirp_mass = "1e10 Msun"\ndistance = "100 Mpc"\nfrequency = "100 nHz"', "cw[0] (src).chirp_mass", "merges"),
-        ('distance = "100 Mpc"', "", "cw[0] (src)", "either 'distance' or 'strain'"),
-        ('frequency = "10 nHz"', 'frequency = "10 nHz"\norbital_frequency = "5 nHz"', "cw[0] (src)", "either 'frequency'"),
-        ('chirp_mass = "1e9 Msun"\ndistance = "100 Mpc"', "strain = 1e-14", "cw[0] (src)", "'chirp_mass' is needed"),
-        ('name = "src"', 'name = "src"\nspin = 3', "cw[0] (src).spin", "unknown key"),
+        ('chirp_mass = "1e9 Msun"', 'chirp_mass = "-1e9 Msun"', "binary[0] (src).chirp_mass", "positive"),
+        ('chirp_mass = "1e9 Msun"', "chirp_mass = 0", "binary[0] (src).chirp_mass", "positive"),
+        ('distance = "100 Mpc"', 'distance = "0 Mpc"', "binary[0] (src).distance", "positive"),
+        ('dec = 30', 'dec = 30\ninclination = 3.5', "binary[0] (src).inclination", "outside [0, pi]"),
+        ('dec = 30', 'dec = 30\ninclination = "-10 deg"', "binary[0] (src).inclination", "outside [0, pi]"),
+        ('frequency = "10 nHz"', 'frequency = "2 nHz"', "binary[0] (src).frequency", "no full cycle"),
+        ('frequency = "10 nHz"', 'orbital_frequency = "1 nHz"', "binary[0] (src).orbital_frequency", "no full cycle"),
+        ('frequency = "10 nHz"', 'frequency = "1 uHz"', "binary[0] (src).frequency", "Nyquist"),
+        ('chirp_mass = "1e9 Msun"\ndistance = "100 Mpc"\nfrequency = "10 nHz"', 'chirp_mass = "1e10 Msun"\ndistance = "100 Mpc"\nfrequency = "100 nHz"', "binary[0] (src).chirp_mass", "merges"),
+        ('distance = "100 Mpc"', "", "binary[0] (src)", "either 'distance' or 'strain'"),
+        ('frequency = "10 nHz"', 'frequency = "10 nHz"\norbital_frequency = "5 nHz"', "binary[0] (src)", "either 'frequency'"),
+        ('chirp_mass = "1e9 Msun"\ndistance = "100 Mpc"', "strain = 1e-14", "binary[0] (src)", "'chirp_mass' is needed"),
+        ('name = "src"', 'name = "src"\nspin = 3', "binary[0] (src).spin", "unknown key"),
     ],
 )
 def test_bad_sources_name_the_field(old, new, where, words):
@@ -199,7 +199,7 @@ def test_bad_sources_name_the_field(old, new, where, words):
 
 def test_strain_without_mass_is_fine_when_not_evolving():
     config = parse_config(BASE.replace('chirp_mass = "1e9 Msun"\ndistance = "100 Mpc"', "strain = 1e-14\nfrequency_evolution = false"))
-    assert config.cw[0].strain == 1e-14
+    assert config.binary[0].strain == 1e-14
 
 
 def test_close_to_merger_warns():
@@ -226,7 +226,7 @@ def test_vary_distances_draws_recorded_pulsar_distances():
     assert fixed.pulsars[0].noise["distance"] == 1.0
     assert drawn.pulsars[0].noise["distance"] != 1.0
     assert drawn.pulsars[0].noise["distance"] == again.pulsars[0].noise["distance"]
-    assert not np.allclose(drawn.pulsars[0].injected["cw"], fixed.pulsars[0].injected["cw"])
+    assert not np.allclose(drawn.pulsars[0].injected["binary"], fixed.pulsars[0].injected["binary"])
 
 
 def test_fast_evolving_binary_with_a_toa_at_the_reference_time():
@@ -237,7 +237,7 @@ def test_fast_evolving_binary_with_a_toa_at_the_reference_time():
     source = {"name": "b", "chirp_mass": 3e10, "frequency": 10.0, "strain": 1e-14, "ra": 150.0, "dec": -30.0,
               "inclination": 0.7, "polarization": 0.4, "phase": 1.1, "frequency_evolution": True, "pulsar_term": False}
     data = simulate(cw_config(pulsar, source))
-    ours = data.pulsars[0].injected["cw"]
+    ours = data.pulsars[0].injected["binary"]
     assert np.all(np.isfinite(ours)) and np.any(ours != 0)
     times = (data.pulsars[0].mjd - data.start_mjd) * 86400.0
     assert times[0] == 0.0

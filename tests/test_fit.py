@@ -209,14 +209,14 @@ def test_continuous_wave_model_reproduces_injection():
     config = small_config(
         array={"random": {"count": 3}},
         gwb=None,
-        cw=[{"name": "b", "chirp_mass": 1e9, "distance": 30.0, "frequency": 15.0, "ra": 40.0, "dec": -20.0,
+        binary=[{"name": "b", "chirp_mass": 1e9, "distance": 30.0, "frequency": 15.0, "ra": 40.0, "dec": -20.0,
              "inclination": 0.8, "polarization": 0.3, "phase": 1.2, "frequency_evolution": False}],
     )
     data = simulate(config)
     model = FitModel(data, FitSection(common="none", binary=True, binary_pulsar_term=True))
     signal = model._signal(model.values)
     for p, s in zip(data.pulsars, signal):
-        np.testing.assert_allclose(s, p.injected["cw"], rtol=0, atol=1e-9 * np.abs(p.injected["cw"]).max())
+        np.testing.assert_allclose(s, p.injected["binary"], rtol=0, atol=1e-9 * np.abs(p.injected["binary"]).max())
     assert model.names == ["binary_lg_strain", "binary_orbital_phase", "binary_inclination_cosine",
                            "binary_polarization_angle"]
 

@@ -26,7 +26,7 @@ def save_figure(fig, path) -> Path:
 
 
 #: Colour of each injected component, shared by all figures.
-COMPONENT_COLOURS = {"white": "#9a9a9a", "red": "#b8553a", "gwb": "#2a6f97", "cw": "#6a994e"}
+COMPONENT_COLOURS = {"white": "#9a9a9a", "red": "#b8553a", "gwb": "#2a6f97", "binary": "#6a994e"}
 
 
 RESIDUAL_COLOUR = "#1b1b1b"

@@ -92,15 +92,15 @@ def sky_figure(dataset: Dataset):
         for p, x, y in zip(dataset.pulsars, longitude, dec):
             ax.annotate(p.name, (x, y), xytext=(3, 3), textcoords="offset points", fontsize=6)
     hours = np.arange(-10, 12, 2)
-    cw = dataset.signals.get("cw")
-    if cw is not None and "sources" in cw:
-        sources = cw["sources"]
+    binary = dataset.signals.get("binary")
+    if binary is not None and "sources" in binary:
+        sources = binary["sources"]
         x = -np.angle(np.exp(1j * sources["ra"]))
-        ax.scatter(x, sources["dec"], marker="*", s=160, color=COMPONENT_COLOURS["cw"], edgecolor="k", linewidth=0.5,
+        ax.scatter(x, sources["dec"], marker="*", s=160, color=COMPONENT_COLOURS["binary"], edgecolor="k", linewidth=0.5,
                    zorder=4, label="continuous-wave sources")
         for name, xs, ys in zip(sources["name"], x, sources["dec"]):
             label = name.decode() if isinstance(name, bytes) else str(name)
-            ax.annotate(label, (xs, ys), xytext=(5, -9), textcoords="offset points", fontsize=7, color=COMPONENT_COLOURS["cw"])
+            ax.annotate(label, (xs, ys), xytext=(5, -9), textcoords="offset points", fontsize=7, color=COMPONENT_COLOURS["binary"])
         ax.legend(loc="lower right", fontsize=7)
     ax.set_xticks(np.radians(hours * 15.0), [f"{(-h) % 24:d}h" for h in hours], fontsize=7)
     ax.grid(alpha=0.35)

@@ -233,7 +233,7 @@ class FitModel:
         return True
 
     def _binary_defaults(self, dataset, section):
-        sources = dataset.signals.get("cw", {}).get("sources")
+        sources = dataset.signals.get("binary", {}).get("sources")
         values = {}
         if sources is not None and len(sources):
             s = sources[0]

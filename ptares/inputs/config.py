@@ -372,7 +372,7 @@ class Background(_Section):
 
 
 class ContinuousWave(_Section):
-    """One ``[[cw]]`` source: a circular supermassive black-hole binary.
+    """One ``[[binary]]`` source: a circular supermassive black-hole binary.
 
     ``chirp_mass`` in solar masses; ``distance`` (luminosity) in Mpc, or the
     strain amplitude ``strain`` (h0) instead; ``frequency`` (GW, twice the
@@ -634,7 +634,7 @@ class Config(_Section):
     noise: NoiseSection = NoiseSection()
     timing_model: TimingModel = TimingModel()
     gwb: Optional[Background] = None
-    cw: tuple[ContinuousWave, ...] = ()
+    binary: tuple[ContinuousWave, ...] = ()
     correlate: CorrelateSection = CorrelateSection()
     fit: FitSection = FitSection()
     sweep: Optional[SweepSection] = None
@@ -678,8 +678,8 @@ class Config(_Section):
         return self._path.parent / path
 
     def source_name(self, index: int) -> str:
-        """The name of ``[[cw]]`` source ``index``: its own, or ``cw<index + 1>``."""
-        return self.cw[index].name or f"cw{index + 1}"
+        """The name of ``[[binary]]`` source ``index``: its own, or ``binary<index + 1>``."""
+        return self.binary[index].name or f"binary{index + 1}"
 
 
 def _location(loc: tuple, raw: dict) -> str:
@@ -800,15 +800,15 @@ def _check_sources(config: Config) -> None:
     from ptares.physics.binaries import time_to_coalescence
     from ptares.physics.constants import DAY, KPC, M_SUN, YEAR
 
-    if config.array.table is not None and config.cw:
+    if config.array.table is not None and config.binary:
         return  # epochs come from the table: checked when the table is read
     schedules = config.schedules()
     first = min(s.start for s in schedules)
     span = max(s.start + s.span * YEAR / DAY for s in schedules) - first  # days
     nyquist = 1.0 / (2.0 * min(s.cadence for s in schedules) * DAY)
-    names = [config.source_name(i) for i in range(len(config.cw))]
-    for i, source in enumerate(config.cw):
-        path = f"cw[{i}] ({config.source_name(i)})"
+    names = [config.source_name(i) for i in range(len(config.binary))]
+    for i, source in enumerate(config.binary):
+        path = f"binary[{i}] ({config.source_name(i)})"
         if names.count(names[i]) > 1:
             raise InputError("source names must be unique", f"{path}.name")
         key = "frequency" if source.frequency is not None else "orbital_frequency"

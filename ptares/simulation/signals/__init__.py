@@ -19,7 +19,7 @@ BUILDERS = {
     "white": white.from_config,
     "red": red.from_config,
     "gwb": background.from_config,
-    "cw": continuous.from_config,
+    "binary": continuous.from_config,
 }
 
 

@@ -1,4 +1,4 @@
-"""Continuous waves from circular supermassive black-hole binaries (``[[cw]]``).
+"""Continuous waves from circular supermassive black-hole binaries (``[[binary]]``).
 
 Residuals follow from the redshift (PHYSICS.md; Detweiler 1979; Ellis, Siemens &
 Creighton 2012)
@@ -130,7 +130,7 @@ def binary_residuals(binaries, context: Context) -> list[np.ndarray]:
 @dataclass(frozen=True)
 class ContinuousWaves:
     binaries: tuple
-    name: str = "cw"
+    name: str = "binary"
 
     def draw(self, context: Context) -> list[np.ndarray]:
         return binary_residuals(self.binaries, context)
@@ -151,11 +151,11 @@ class ContinuousWaves:
 
 
 def from_config(config, pulsars):
-    """The ``[[cw]]`` sources of the config, if any."""
-    if not config.cw:
+    """The ``[[binary]]`` sources of the config, if any."""
+    if not config.binary:
         return None
     binaries = []
-    for i, source in enumerate(config.cw):
+    for i, source in enumerate(config.binary):
         f = source.wave_frequency_hz
         mass = source.chirp_mass * M_SUN if source.chirp_mass is not None else 0.0
         h0 = source.strain if source.strain is not None else float(strain_amplitude(mass, f, source.distance * _MPC))

@@ -10,7 +10,7 @@ Printed:
 * the numba kernel against its numpy twin, on a 10-pulsar slice of the same case
   (the twin needs several GB for the whole case).
 
-Run: ``python benchmarks/bench_cw.py``
+Run: ``python benchmarks/bench_continuous.py``
 """
 
 from __future__ import annotations
