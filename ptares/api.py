@@ -62,7 +62,8 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-__all__ = ["simulate", "correlate", "fit", "sweep", "FitResult", "SweepResult", "Interrupted", "config_from"]
+__all__ = ["simulate", "correlate", "fit", "sweep", "describe", "import_tables", "export_tables",
+           "FitResult", "SweepResult", "Interrupted", "config_from"]
 
 #: True while the command line runs: messages then name options as ``--overwrite`` rather than ``overwrite=True``.
 COMMAND_LINE = contextvars.ContextVar("ptares_command_line", default=False)
@@ -601,3 +602,85 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
     threshold, basis = detection_threshold(rows, section.false_alarm)
     return SweepResult(rows, threshold, basis, section.false_alarm, out, written)
 
+
+# ---------------------------------------------------------------- check, import, export
+
+
+def describe(config) -> str:
+    """A few lines on what ``config`` (a file, dict or Config) will simulate: pulsars, TOAs, span, signals.
+
+    Nothing is simulated: the array and its schedules are drawn, the signals only described.
+    """
+    config = config_from(config)
+    from ptares.physics.timing_model import column_names
+    from ptares.simulation.array import build_array, observe
+    from ptares.simulation.signals import Context, build_components
+    from ptares.simulation.simulate import config_tables, run_seed
+
+    seed = run_seed(config)
+    tables = config_tables(config, len(column_names(config.timing_model.fit)), config.array.mode == "inject")
+    pulsars = build_array(config, seed, tables)
+    observations = observe(pulsars, seed, tables, config.array.window)
+    context = Context(pulsars=tuple(pulsars), observations=observations, seed=seed)
+    counts = [m.size for m in observations.mjd]
+    lines = [
+        f"run        {config.run.name} (seed {config.run.seed if config.run.seed is not None else 'fresh each run'})",
+        f"pulsars    {len(pulsars)} ("
+        + ("random isotropic" if config.array.random else f"tables, {config.array.mode} mode" if tables else "listed") + ")",
+        f"TOAs       {sum(counts)} in all, {min(counts)} to {max(counts)} per pulsar",
+        f"span       {observations.span / 86400 / 365.25:.2f} yr from MJD {observations.start:.1f}",
+        f"timing fit {', '.join(config.timing_model.fit) or 'none'}",
+    ]
+    for component in build_components(config, pulsars):
+        if component.name == "white":
+            lines.append("signal     white noise")
+        elif component.name == "red":
+            n = sum(p.red_amplitude > 0 for p in pulsars)
+            lines.append(f"signal     red noise in {n} pulsars, {component.harmonics} frequencies")
+        elif component.name == "gwb":
+            described = component.describe(context)
+            made = (
+                f"{len(described['sources'])} binaries" if described["source"] == "binaries" else "Gaussian"
+            )
+            lines.append(
+                f"signal     background A = {component.amplitude:.3g}, spectral index {component.spectral_index:.3g}, "
+                f"{component.harmonics} frequencies, {described['correlation']}, {made}"
+            )
+        elif component.name == "binary":
+            for b in component.binaries:
+                lines.append(
+                    f"signal     binary {b.name}: f = {b.frequency * 1e9:.3g} nHz, h0 = {b.strain:.3g}, "
+                    f"{'evolving' if b.frequency_evolution else 'fixed frequency'}, {'with' if b.pulsar_term else 'no'} pulsar term"
+                )
+    return "\n".join(lines)
+
+
+def import_tables(config, out=None, *, overwrite: bool = False) -> Dataset:
+    """A dataset from the config's TOA table and catalogue as they are (no simulation); written to
+    ``out/dataset.h5`` when ``out`` is given."""
+    from ptares.dataset import write_dataset
+    from ptares.simulation.simulate import import_tables as tables_to_dataset
+
+    config = config_from(config)
+    if out is not None:
+        out = check_output_directory(out, overwrite, ("dataset.h5",))
+    dataset = tables_to_dataset(config)
+    if out is not None:
+        try:
+            write_dataset(dataset, out / "dataset.h5")
+        except OSError as exc:
+            raise _cannot_write(exc, out) from None
+    return dataset
+
+
+def export_tables(dataset, out, *, overwrite: bool = False) -> list:
+    """Write ``toas.csv``, ``pulsars.csv``, ``signals.json`` and ``import.toml`` of a dataset (or a
+    dataset file) into ``out``; importing them gives the dataset back.  Returns the paths written."""
+    from ptares.inputs.tables import export_tables as write_tables
+
+    dataset = _dataset(dataset)
+    out = check_output_directory(out, overwrite, ("toas.csv", "pulsars.csv", "import.toml"))
+    try:
+        return write_tables(dataset, out)
+    except OSError as exc:
+        raise _cannot_write(exc, out) from None

@@ -11,7 +11,7 @@ import sys
 import warnings
 from pathlib import Path
 
-from ptares.api import COMMAND_LINE, check_output_directory
+from ptares.api import COMMAND_LINE
 from ptares.errors import InputError, PhysicsWarning
 from ptares.version import __version__
 
@@ -20,57 +20,12 @@ _default_showwarning = warnings.showwarning
 __all__ = ["main"]
 
 
-def _summary(config) -> str:
-    """A short description of what a config will simulate."""
-    from ptares.physics.timing_model import column_names
-    from ptares.simulation.array import build_array, observe
-    from ptares.simulation.signals import Context, build_components
-    from ptares.simulation.simulate import config_tables, run_seed
-
-    seed = run_seed(config)
-    tables = config_tables(config, len(column_names(config.timing_model.fit)), config.array.mode == "inject")
-    pulsars = build_array(config, seed, tables)
-    observations = observe(pulsars, seed, tables, config.array.window)
-    context = Context(pulsars=tuple(pulsars), observations=observations, seed=seed)
-    counts = [m.size for m in observations.mjd]
-    lines = [
-        f"run        {config.run.name} (seed {config.run.seed if config.run.seed is not None else 'fresh each run'})",
-        f"pulsars    {len(pulsars)} ("
-        + ("random isotropic" if config.array.random else f"tables, {config.array.mode} mode" if tables else "listed") + ")",
-        f"TOAs       {sum(counts)} in all, {min(counts)} to {max(counts)} per pulsar",
-        f"span       {observations.span / 86400 / 365.25:.2f} yr from MJD {observations.start:.1f}",
-        f"timing fit {', '.join(config.timing_model.fit) or 'none'}",
-    ]
-    for component in build_components(config, pulsars):
-        if component.name == "white":
-            lines.append("signal     white noise")
-        elif component.name == "red":
-            n = sum(p.red_amplitude > 0 for p in pulsars)
-            lines.append(f"signal     red noise in {n} pulsars, {component.harmonics} frequencies")
-        elif component.name == "gwb":
-            described = component.describe(context)
-            made = (
-                f"{len(described['sources'])} binaries" if described["source"] == "binaries" else "Gaussian"
-            )
-            lines.append(
-                f"signal     background A = {component.amplitude:.3g}, spectral index {component.spectral_index:.3g}, "
-                f"{component.harmonics} frequencies, {described['correlation']}, {made}"
-            )
-        elif component.name == "binary":
-            for b in component.binaries:
-                lines.append(
-                    f"signal     binary {b.name}: f = {b.frequency * 1e9:.3g} nHz, h0 = {b.strain:.3g}, "
-                    f"{'evolving' if b.frequency_evolution else 'fixed frequency'}, {'with' if b.pulsar_term else 'no'} pulsar term"
-                )
-    return "\n".join(lines)
-
-
 def _check(args) -> int:
-    from ptares.inputs.config import load_config
+    from ptares import api
 
-    config = load_config(args.config)
+    text = api.describe(args.config)
     print(f"{args.config}: valid")
-    print(_summary(config))
+    print(text)
     return 0
 
 
@@ -142,34 +97,18 @@ def _sweep(args) -> int:
 
 
 def _import(args) -> int:
-    from ptares.dataset import write_dataset
-    from ptares.inputs.config import load_config
-    from ptares.simulation.simulate import import_tables
+    from ptares import api
 
-    config = load_config(args.config)
-    out = Path(args.out)
-    check_output_directory(out, args.overwrite, ("dataset.h5",))
-    dataset = import_tables(config)
-    try:
-        target = write_dataset(dataset, out / "dataset.h5")
-    except OSError as exc:
-        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
-    print(f"wrote {target} ({len(dataset.pulsars)} pulsars, {sum(p.toa_count for p in dataset.pulsars)} TOAs)")
+    dataset = api.import_tables(args.config, args.out, overwrite=args.overwrite)
+    print(f"wrote {Path(args.out) / 'dataset.h5'} ({len(dataset.pulsars)} pulsars, {dataset.toa_count} TOAs)")
     return 0
 
 
 def _export(args) -> int:
-    from ptares.dataset import load_dataset
-    from ptares.inputs.tables import export_tables
+    from ptares import api
 
-    dataset = load_dataset(args.dataset)
-    out = Path(args.out)
-    check_output_directory(out, args.overwrite, ("toas.csv", "pulsars.csv", "import.toml"))
-    try:
-        for path in export_tables(dataset, out):
-            print(f"wrote {path}")
-    except OSError as exc:
-        raise InputError(f"cannot write outputs ({exc.strerror or exc})", str(out)) from None
+    for path in api.export_tables(args.dataset, args.out, overwrite=args.overwrite):
+        print(f"wrote {path}")
     return 0
 
 
