@@ -38,7 +38,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ptares.dataset import Dataset, load_dataset
+from ptares.dataset import Dataset, describe_signal, load_dataset
 from ptares.errors import InputError
 from ptares.inputs.config import (
     Config,
@@ -361,22 +361,20 @@ class FitResult:
         """Every step of every walker, shape (steps, walkers, parameters), burn-in included."""
         if self._chain is not None:
             return self._chain
-        import h5py
+        from ptares.inference.samplers.ensemble import read_chain
 
-        from ptares.inference.samplers.ensemble import CHAIN_GROUP
-
-        with h5py.File(self.chains, "r") as f:
-            group = f[CHAIN_GROUP]
-            return group["chain"][: int(group.attrs["iteration"])]
+        return read_chain(self.chains).get_chain()
 
     def samples(self, parameter: str | None = None, burn: int | None = None, thin: int | None = None) -> np.ndarray:
         """Posterior draws after burn-in: shape (draws, parameters) in :attr:`names` order, or (draws,) of ``parameter``.
 
         ``burn`` and ``thin`` default to the summary's (as in ``posterior.json`` and the figures).
         """
+        from ptares.inference.samplers.ensemble import posterior_draws
+
         burn = self.summary["burn"] if burn is None else int(burn)
         thin = self.summary["thin"] if thin is None else int(thin)
-        flat = self.chain()[burn::thin].reshape(-1, len(self.names))
+        flat = posterior_draws(self.chain(), burn, thin)
         if parameter is None:
             return flat
         if parameter not in self.names:
@@ -435,7 +433,11 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
     """
     from ptares.dataset import fingerprint, write_dataset, write_json
     from ptares.inference.model import FitModel
-    from ptares.inference.samplers.ensemble import run_sampler, summarise
+    from ptares.inference.samplers.ensemble import (
+        posterior_draws,
+        run_sampler,
+        summarise,
+    )
     from ptares.simulation.simulate import simulate as simulate_config
 
     dataset, config = _fit_source(source)
@@ -482,7 +484,7 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
             from ptares.figures.common import save_figure
             from ptares.figures.inference import corner_figure, trace_figure
 
-            samples = run.chain[summary["burn"] :: section.thin].reshape(-1, model.ndim)
+            samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
             save_figure(corner_figure(samples, model.names, model.injected, converged=summary["converged"]), out / "corner.png")
             save_figure(trace_figure(run.chain, model.names, summary["burn"], model.injected, converged=summary["converged"]),
                         out / "trace.png")
@@ -631,27 +633,9 @@ def describe(config) -> str:
         f"span       {observations.span / 86400 / 365.25:.2f} yr from MJD {observations.start:.1f}",
         f"timing fit {', '.join(config.timing_model.fit) or 'none'}",
     ]
+    red = sum(p.red_amplitude > 0 for p in pulsars)
     for component in build_components(config, pulsars):
-        if component.name == "white":
-            lines.append("signal     white noise")
-        elif component.name == "red":
-            n = sum(p.red_amplitude > 0 for p in pulsars)
-            lines.append(f"signal     red noise in {n} pulsars, {component.harmonics} frequencies")
-        elif component.name == "gwb":
-            described = component.describe(context)
-            made = (
-                f"{len(described['sources'])} binaries" if described["source"] == "binaries" else "Gaussian"
-            )
-            lines.append(
-                f"signal     background A = {component.amplitude:.3g}, spectral index {component.spectral_index:.3g}, "
-                f"{component.harmonics} frequencies, {described['correlation']}, {made}"
-            )
-        elif component.name == "binary":
-            for b in component.binaries:
-                lines.append(
-                    f"signal     binary {b.name}: f = {b.frequency * 1e9:.3g} nHz, h0 = {b.strain:.3g}, "
-                    f"{'evolving' if b.frequency_evolution else 'fixed frequency'}, {'with' if b.pulsar_term else 'no'} pulsar term"
-                )
+        lines.append(f"signal     {describe_signal(component.name, component.describe(context), red)}")
     return "\n".join(lines)
 
 

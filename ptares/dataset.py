@@ -36,7 +36,8 @@ from ptares.errors import InputError
 from ptares.physics.sky import unit_vector
 from ptares.version import earlier_names
 
-__all__ = ["PulsarData", "Dataset", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint"]
+__all__ = ["PulsarData", "Dataset", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint",
+           "describe_signal"]
 
 
 @dataclass
@@ -121,7 +122,8 @@ class Dataset:
         names = self.names
         if names:
             lines.append(f"  pulsars {', '.join(names[:5])}{', ...' if len(names) > 5 else ''}")
-        described = [_describe_signal(name, values, self.pulsars) for name, values in self.signals.items()]
+        red = sum(1 for p in self.pulsars if float(p.noise.get("red_amplitude", 0.0) or 0.0) > 0.0)
+        described = [describe_signal(name, values, red) for name, values in self.signals.items()]
         lines.append("  signals " + ("; ".join(described) if described else "none recorded"))
         return "\n".join(lines)
 
@@ -131,34 +133,33 @@ def _micro(seconds) -> str:
     return f"{float(seconds) * 1e6:.3g}"
 
 
-def _describe_signal(name: str, values: dict, pulsars: list) -> str:
-    """A few words on one injected component and its key parameters."""
+def describe_signal(name: str, values: dict, red_pulsars: int = 0) -> str:
+    """A few words on one injected component from its recorded parameters (a dataset's ``signals``
+    entry, or a component's ``describe``); ``red_pulsars`` counts the pulsars with red noise."""
     if name == "white":
         return "white noise"
+    frequencies = f", {int(values['harmonics'])} frequencies" if "harmonics" in values else ""
     if name == "red":
-        count = sum(1 for p in pulsars if float(p.noise.get("red_amplitude", 0.0) or 0.0) > 0.0)
-        return f"red noise in {count} pulsars"
+        return f"red noise in {red_pulsars} pulsars{frequencies}"
     if name == "gwb":
-        words = [f"background A = {float(values.get('amplitude', float('nan'))):.3g}"]
+        words = f"background A = {float(values.get('amplitude', float('nan'))):.3g}"
         if "spectral_index" in values:
-            words.append(f"spectral index {float(values['spectral_index']):.3g}")
-        if "correlation" in values:
-            words.append(str(values["correlation"]))
+            words += f", spectral index {float(values['spectral_index']):.3g}"
+        words += frequencies + (f", {values['correlation']}" if "correlation" in values else "")
         if values.get("source") == "binaries" and values.get("sources") is not None:
-            words.append(f"from {len(values['sources'])} binaries")
-        elif "source" in values:
-            words.append(str(values["source"]))
-        return ", ".join(words)
+            return words + f", {len(values['sources'])} binaries"
+        return words + ", Gaussian"
     if name == "binary":
         sources = values.get("sources")
         if sources is None or not len(sources):
-            return f"{int(values.get('count', 0))} continuous waves"
+            return f"{int(values.get('count', 0))} binaries"
         shown = []
         for row in sources[:3]:
             label = row["name"].decode() if isinstance(row["name"], bytes) else str(row["name"])
-            shown.append(f"{label} f = {float(row['frequency']) * 1e9:.3g} nHz, h0 = {float(row['strain']):.3g}")
-        more = f" and {len(sources) - 3} more" if len(sources) > 3 else ""
-        return f"continuous wave{'s' if len(sources) > 1 else ''} " + "; ".join(shown) + more
+            shown.append(f"binary {label}: f = {float(row['frequency']) * 1e9:.3g} nHz, h0 = {float(row['strain']):.3g}, "
+                         f"{'evolving' if row['frequency_evolution'] else 'fixed frequency'}, "
+                         f"{'with' if row['pulsar_term'] else 'no'} pulsar term")
+        return "; ".join(shown) + (f"; and {len(sources) - 3} more" if len(sources) > 3 else "")
     return name
 
 

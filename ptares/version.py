@@ -11,27 +11,31 @@ try:
 except PackageNotFoundError:  # pragma: no cover - running from a source tree
     __version__ = "0.0.0+unknown"
 
-#: Config keys, dataset attributes and table columns renamed before the first release:
-#: old name -> (new name, what it is).
-RENAMED = {
+#: Words of config keys, dataset attributes and table columns renamed before the first
+#: release, with their new words: a name made with an earlier word, alone or joined to
+#: other words by ``_``, is refused, naming the name its new word makes.
+RENAMED_WORDS = {
     "components": ("harmonics", "the number of Fourier frequencies"),
-    "red_components": ("red_harmonics", "the number of red-noise Fourier frequencies"),
-    "common_components": ("common_harmonics", "the number of common-process Fourier frequencies"),
     "gamma": ("spectral_index", "the spectral index"),
-    "red_gamma": ("red_spectral_index", "the red-noise spectral index"),
-    "common_gamma": ("common_spectral_index", "the common-process spectral index"),
     "evolve": ("frequency_evolution", "radiation-reaction frequency evolution"),
     "cw": ("binary", "the continuous-wave key"),
-    "cw_free": ("binary_free", "the list of free continuous-wave quantities"),
-    "cw_values": ("binary_values", "the table of fixed continuous-wave quantities"),
-    "cw_pulsar_term": ("binary_pulsar_term", "the continuous-wave fit's pulsar-term switch"),
 }
 
 
-def earlier_names(names) -> str:
-    """A note naming the first of ``names`` that is an earlier name, with its replacement; "" if none."""
+def renamed(name: str):
+    """``(new name, what it is)`` for a name made with an earlier word, else None."""
+    words = str(name).split("_")
+    earlier = [w for w in words if w in RENAMED_WORDS]
+    if not earlier:
+        return None
+    return "_".join(RENAMED_WORDS[w][0] if w in RENAMED_WORDS else w for w in words), RENAMED_WORDS[earlier[0]][1]
+
+
+def earlier_names(names, known=None) -> str:
+    """A note on the first of ``names`` made with an earlier word (whose new name is in ``known``,
+    when given), naming its replacement; "" if there is none."""
     for name in names:
-        if name in RENAMED:
-            new, _ = RENAMED[name]
-            return f"'{name}' is now '{new}'"
+        hit = renamed(name)
+        if hit and (known is None or hit[0] in known):
+            return f"'{name}' is now '{hit[0]}'"
     return ""

@@ -135,8 +135,10 @@ def _check_keys(raw: dict, keys, where: str) -> None:
 
 
 def _summary_of_fit(model, run, summary) -> dict:
+    from ptares.inference.samplers.ensemble import posterior_draws
+
     row = {"fit_converged": summary["converged"]}
-    samples = run.chain[summary["burn"] :: model.section.thin].reshape(-1, model.ndim)
+    samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
     for name in (COMMON_AMPLITUDE, COMMON_INDEX):
         if name in model.names:
             entry = summary["parameters"][name]

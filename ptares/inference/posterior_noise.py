@@ -6,7 +6,6 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-import emcee
 import h5py
 import numpy as np
 
@@ -22,6 +21,7 @@ from ptares.inference.parameters import (
     WHITE_SCALE,
     for_pulsar,
 )
+from ptares.inference.samplers.ensemble import default_burn, posterior_draws, read_chain
 
 __all__ = ["noise_from_chains"]
 
@@ -46,7 +46,7 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
             common_harmonics = int(f.attrs["common_harmonics"])
             red_harmonics = int(f.attrs["red_harmonics"])
             origin = f.attrs["dataset_fingerprint"]
-        backend = emcee.backends.HDFBackend(str(path), name="chains", read_only=True)
+        backend = read_chain(path)
         steps = backend.iteration
         with np.errstate(invalid="ignore", divide="ignore"):
             tau = backend.get_autocorr_time(tol=0) if steps > 1 else np.array([np.nan])
@@ -54,11 +54,10 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
         raise InputError(f"not a ptares chains file ({exc})", str(path)) from None
     if origin != fingerprint(dataset):
         raise InputError("comes from a fit of another dataset", str(path))
-    burn = int(2 * np.max(tau)) if np.all(np.isfinite(tau)) else steps // 2
-    chain = backend.get_chain(discard=min(burn, max(steps - 1, 0)))
+    chain = backend.get_chain()
     if chain.size == 0:
         raise InputError("holds no samples yet", str(path))
-    samples = chain.reshape(-1, len(names))
+    samples = posterior_draws(chain, default_burn(tau, steps))
     rng = np.random.default_rng(seed)
     picked = samples[rng.choice(samples.shape[0], size=min(draws, samples.shape[0]), replace=False)]
     held = {k: (float(v) if v is not None else -np.inf) for k, v in held.items()}

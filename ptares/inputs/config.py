@@ -37,7 +37,7 @@ from pydantic import (
 
 from ptares.errors import InputError, PhysicsWarning
 from ptares.inputs.units import parse_dec, parse_number, parse_ra, to_unit
-from ptares.version import RENAMED
+from ptares.version import renamed
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -144,6 +144,17 @@ def _at_most(bound: float):
         return value
 
     return check
+
+
+def _listed_once(what: str):
+    """A validator refusing a list in which an entry appears twice."""
+
+    def check(values):
+        if len(set(values)) != len(values):
+            raise ValueError(f"{what} is listed twice")
+        return values
+
+    return AfterValidator(check)
 
 
 def _safe_name(name: str) -> str:
@@ -335,14 +346,7 @@ class ArraySection(_Section):
 class TimingModel(_Section):
     """``[timing_model]``: the terms fitted out of each pulsar's residuals."""
 
-    fit: tuple[Literal[TIMING_TERMS], ...] = ("offset", "spin_frequency", "spin_down")
-
-    @field_validator("fit")
-    @classmethod
-    def _unique(cls, terms):
-        if len(set(terms)) != len(terms):
-            raise ValueError("a term is listed twice")
-        return terms
+    fit: Annotated[tuple[Literal[TIMING_TERMS], ...], _listed_once("a term")] = ("offset", "spin_frequency", "spin_down")
 
 
 class Background(_Section):
@@ -552,8 +556,8 @@ class FitSection(_Section):
     red_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     white: Literal["injected", "free"] = "injected"
     binary: bool = False
-    binary_free: tuple[Literal[BINARY_QUANTITIES], ...] = ("lg_strain", "orbital_phase", "inclination_cosine",
-                                                          "polarization_angle")
+    binary_free: Annotated[tuple[Literal[BINARY_QUANTITIES], ...], _listed_once("a quantity")] = (
+        "lg_strain", "orbital_phase", "inclination_cosine", "polarization_angle")
     binary_values: dict[Literal[BINARY_QUANTITIES], float] = {}
     binary_pulsar_term: bool = False
 
@@ -565,13 +569,6 @@ class FitSection(_Section):
             return values
         return {k: to_unit(v, "rad" if k in _BINARY_ANGLES else "") if not isinstance(v, (int, float)) else v
                 for k, v in values.items()}
-
-    @field_validator("binary_free")
-    @classmethod
-    def _unique_free(cls, names):
-        if len(set(names)) != len(names):
-            raise ValueError("a parameter is listed twice")
-        return names
 
     fixed: dict[str, float] = {}
     priors: dict[str, Prior] = {}
@@ -735,8 +732,9 @@ def message_for(error: dict, loc: tuple = (), location: str = "") -> str:
     kind = error["type"]
     if kind == "extra_forbidden":
         key = str(loc[-1]) if loc else ""
-        if key in RENAMED and RENAMED[key][0] in _keys_at(loc[:-1]):
-            new, what = RENAMED[key]
+        hit = renamed(key) if key else None
+        if hit and hit[0] in _keys_at(loc[:-1]):
+            new, what = hit
             parent = re.sub(r" \([^)]*\)", "", location.rpartition(".")[0])
             return f"unknown key; {what} is now '{parent + '.' if parent else ''}{new}'"
         return "unknown key"

@@ -108,7 +108,7 @@ def _unit_column(header, stem, path, required=True):
 
 def _catalogue(path: Path) -> list:
     header, rows = _rows(path)
-    note = earlier_names([c for c in header if c == "red_gamma"])  # the one catalogue column renamed
+    note = earlier_names(header, known=_NOISE)
     if note:
         raise InputError(f"a column has an earlier name ({note})", str(path))
     for column in ("name",):

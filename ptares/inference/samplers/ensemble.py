@@ -28,7 +28,7 @@ from ptares.dataset import fingerprint
 from ptares.errors import InputError
 from ptares.inference.model import FitModel
 
-__all__ = ["run_sampler", "summarise", "FitRun", "CHAIN_GROUP"]
+__all__ = ["run_sampler", "summarise", "default_burn", "posterior_draws", "read_chain", "FitRun", "CHAIN_GROUP"]
 
 CHAIN_GROUP = "chains"
 CHECK_EVERY = 100  #: steps between convergence checks
@@ -221,12 +221,29 @@ def _converged(backend, factor: float, previous, final: bool = False):
     return bool(long_enough and settled), tau
 
 
+def read_chain(path) -> emcee.backends.HDFBackend:
+    """The saved chains of a ``chains.h5``, read-only (emcee's HDF reader)."""
+    return emcee.backends.HDFBackend(str(path), name=CHAIN_GROUP, read_only=True)
+
+
+def default_burn(tau, steps: int) -> int:
+    """Burn-in when none is set: two of the longest integrated autocorrelation times (half the
+    chain while they are unknown), leaving at least one step."""
+    tau = np.asarray(tau, dtype=float)
+    burn = int(2 * np.max(tau)) if tau.size and np.all(np.isfinite(tau)) else steps // 2
+    return max(min(burn, steps - 1), 0)
+
+
+def posterior_draws(chain: np.ndarray, burn: int, thin: int = 1) -> np.ndarray:
+    """Draws after burn-in, every ``thin``-th step of every walker: shape (draws, parameters)."""
+    return chain[burn::thin].reshape(-1, chain.shape[-1])
+
+
 def summarise(model: FitModel, run: FitRun) -> dict:
     """The contents of ``posterior.json``."""
     tau = np.asarray(run.autocorr_time)
-    burn = model.section.burn if model.section.burn is not None else int(2 * np.nanmax(tau)) if np.all(np.isfinite(tau)) else run.steps // 2
-    burn = min(burn, run.steps - 1)
-    samples = run.chain[burn :: model.section.thin].reshape(-1, model.ndim)
+    burn = default_burn(tau, run.steps) if model.section.burn is None else min(model.section.burn, run.steps - 1)
+    samples = posterior_draws(run.chain, burn, model.section.thin)
     parameters = {}
     for i, name in enumerate(model.names):
         values = samples[:, i]
