@@ -187,13 +187,13 @@ def test_command_line_reports_an_interrupted_fit_or_sweep(tmp_path, monkeypatch,
     """Ctrl-C in the sampler or the campaign: the API raises Interrupted naming what is kept; the CLI exits 130."""
     from ptares.campaign import sweep as sweep_module
     from ptares.cli import main
-    from ptares.inference.samplers import ensemble
+    from ptares.inference import samplers
 
     def stop(*args, **kwargs):
         raise KeyboardInterrupt
 
     dataset = ptares.write_dataset(ptares.simulate(WITH_NUMBERS), tmp_path / "d.h5")
-    monkeypatch.setattr(ensemble, "run_sampler", stop)
+    monkeypatch.setattr(samplers, "run_sampler", stop)
     with pytest.raises(ptares.Interrupted) as caught:
         ptares.fit(dataset, tmp_path / "o")
     assert caught.value.kept == tmp_path / "o" / "chains.h5"

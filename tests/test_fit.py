@@ -17,7 +17,8 @@ from ptares.cli import main
 from ptares.dataset import write_dataset
 from ptares.errors import InputError
 from ptares.inference.model import FitModel
-from ptares.inference.samplers.ensemble import run_sampler, summarise
+from ptares.inference.samplers import run_sampler
+from ptares.inference.samplers.chains import summarise
 from ptares.inputs.config import FitSection, parse_config
 from ptares.simulation.simulate import simulate
 

@@ -135,7 +135,7 @@ def _check_keys(raw: dict, keys, where: str) -> None:
 
 
 def _summary_of_fit(model, run, summary) -> dict:
-    from ptares.inference.samplers.ensemble import posterior_draws
+    from ptares.inference.samplers.chains import posterior_draws
 
     row = {"fit_converged": summary["converged"]}
     samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
@@ -155,7 +155,8 @@ def run_task(task: Task) -> dict:
     from ptares.correlation.analysis import correlate
     from ptares.correlation.noise import noise_from_dataset
     from ptares.inference.model import FitModel
-    from ptares.inference.samplers.ensemble import run_sampler, summarise
+    from ptares.inference.samplers import run_sampler
+    from ptares.inference.samplers.chains import summarise
     from ptares.simulation.simulate import simulate
 
     started = time.perf_counter()

@@ -12,10 +12,25 @@ Marginalising ``eps`` first, each pulsar has
 + ln|Phi| + ln|Sigma|] - (n - m)/2 ln 2 pi``.
 This equals the Gaussian density of the residuals projected onto the complement
 of the timing model (``G^T r`` with orthonormal ``G``), which is what the tests
-compare it with.  With an uncorrelated common process ``Phi`` is diagonal per
-pulsar; with Hellings–Downs correlations it couples pulsars but only at the
-same frequency, so ``Phi^-1`` is one small P x P inverse per frequency and the
-cost is one Cholesky factorisation of the (P 2K) x (P 2K) matrix ``Sigma``.
+compare it with.  Columns whose prior variance is zero drop out of ``a``.
+
+With an uncorrelated common process ``Phi`` is diagonal per pulsar, and ``Sigma`` is one
+small block per pulsar, factorised for all pulsars at once.  With Hellings–Downs
+correlations ``Phi`` couples pulsars, but only on the common process's columns ``c``
+(its 2 Kc lowest-frequency columns) and only at equal frequency, so ``Phi_c^-1`` is one
+small P x P inverse per frequency.  The columns ``r`` that belong to a pulsar's red
+noise alone (frequencies above the common process's) are eliminated pulsar by pulsar
+first, by a Schur complement (van Haasteren & Vallisneri 2014): with
+``D_a = (F^T N'^-1 F)_rr + Phi_rr^-1``,
+``S = blockdiag((F^T N'^-1 F)_cc - (F^T N'^-1 F)_cr D_a^-1 (F^T N'^-1 F)_rc) + Phi_c^-1``
+and ``d'_c = d_c - (F^T N'^-1 F)_cr D_a^-1 d_r``,
+``ln|Sigma| = sum_a ln|D_a| + ln|S|`` and
+``d^T Sigma^-1 d = sum_a d_r^T D_a^-1 d_r + d'^T S^-1 d'``.  The cost is one Cholesky
+factorisation of the (P 2Kc) x (P 2Kc) matrix ``S``, whatever the number of red-noise
+frequencies, plus small per-pulsar ones.  The same factors give an exact draw of the
+coefficients from ``N(Sigma^-1 d, Sigma^-1)``: the common columns from their marginal
+``N(S^-1 d', S^-1)``, then each pulsar's own columns given them,
+``N(D_a^-1 (d_r - (F^T N'^-1 F)_rc a_c), D_a^-1)``.
 What does not depend on the parameters is computed once.
 """
 
@@ -25,6 +40,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
+from scipy.linalg import lapack as _lapack
 
 from ptares.errors import InputError
 from ptares.limits import MEMORY_LIMIT
@@ -50,6 +66,70 @@ class _Pulsar:
     log_det_mtm: float
 
 
+@dataclass
+class _OwnBlock:
+    """Pulsars whose own (uncoupled) columns are the same, factorised together."""
+
+    members: np.ndarray  #: (g,) pulsar indices
+    columns: np.ndarray  #: (m,) basis columns
+    lower: np.ndarray  #: (g, m, m) Cholesky factor L of D = (F^T N'^-1 F)_rr + Phi_rr^-1
+    coupling: np.ndarray  #: (g, m, nc) L^-1 (F^T N'^-1 F)_rc
+    whitened: np.ndarray  #: (g, m) L^-1 d_r
+
+
+@dataclass
+class _Factors:
+    """What a likelihood value or a coefficient draw needs, for one set of parameters."""
+
+    quadratic: float  #: d^T Sigma^-1 d
+    log_det: float  #: ln|Phi| + ln|Sigma|, over the columns with nonzero prior variance
+    blocks: list  #: of :class:`_OwnBlock`
+    shared: np.ndarray  #: (nc,) columns of the correlated common process (empty without one)
+    core: np.ndarray | None  #: Cholesky factor L_S of S, (nc P) x (nc P), lower triangle, Fortran order
+    whitened: np.ndarray | None  #: L_S^-1 d' (nc P,), frequency-major like S
+
+
+def _core_indices(pulsars: int, columns: int):
+    """Flat positions, in the frequency-major (nc P) x (nc P) matrix S (row ``k P + a`` for column k
+    of pulsar a), of the per-pulsar blocks (P, nc, nc) and of the per-column P x P couplings (nc, P, P).
+
+    Frequency-major, each coupling is a dense diagonal block, which is quicker to fill."""
+    width = pulsars * columns
+    a = np.arange(pulsars)[:, None, None]
+    i = np.arange(columns)[None, :, None]
+    j = np.arange(columns)[None, None, :]
+    blocks = ((i * pulsars + a) * width + j * pulsars + a).ravel()
+    k = np.arange(columns)[:, None, None]
+    a = np.arange(pulsars)[None, :, None]
+    b = np.arange(pulsars)[None, None, :]
+    couplings = ((k * pulsars + a) * width + k * pulsars + b).ravel()
+    return blocks, couplings
+
+
+def _groups(mask: np.ndarray):
+    """Pulsars with identical column masks (P, columns), as (pulsar indices, columns) pairs."""
+    if np.all(mask == mask[0]):
+        return [(np.arange(mask.shape[0]), np.flatnonzero(mask[0]))]
+    patterns, inverse = np.unique(mask, axis=0, return_inverse=True)
+    inverse = inverse.ravel()
+    return [(np.flatnonzero(inverse == g), np.flatnonzero(pattern)) for g, pattern in enumerate(patterns)]
+
+
+def _as_slice(columns: np.ndarray):
+    """A slice for consecutive indices (cheaper to take than a fancy index), else the indices."""
+    if columns.size and columns[-1] - columns[0] + 1 == columns.size:
+        return slice(int(columns[0]), int(columns[-1]) + 1)
+    return columns
+
+
+def _select(array: np.ndarray, members: np.ndarray, *axes: np.ndarray) -> np.ndarray:
+    """``array[members]`` restricted, axis by axis, to the indices in ``axes``; may be a view of ``array``."""
+    part = array if members.size == array.shape[0] else array[members]  # members are sorted and distinct
+    for axis, indices in enumerate(axes, start=1):
+        part = part[(slice(None),) * axis + (_as_slice(indices),)]
+    return part
+
+
 class Likelihood:
     """Log-likelihood of a dataset for given noise, common-process and signal parameters.
 
@@ -62,7 +142,8 @@ class Likelihood:
 
     :meth:`__call__` takes per-pulsar arrays ``white_scale``, ``white_quadrature`` (s),
     ``red_amplitude``, ``red_spectral_index``, the common ``amplitude`` and ``gamma``, and an
-    optional ``signal`` (list of per-pulsar residuals, s) subtracted first.
+    optional ``signal`` (list of per-pulsar residuals, s) subtracted first;
+    :meth:`draw_coefficients` takes the same and draws the Fourier coefficients given them.
     """
 
     def __init__(self, dataset, harmonics: int, red_harmonics: int, correlated: bool):
@@ -71,10 +152,16 @@ class Likelihood:
         self.red_harmonics = int(red_harmonics)
         self.size = 2 * max(self.harmonics, self.red_harmonics)
         self.correlated = bool(correlated)
-        core = (len(dataset.pulsars) * self.size) ** 2 * 8 if correlated else len(dataset.pulsars) * self.size**2 * 8
-        if core > MEMORY_LIMIT:
-            raise InputError(f"{self.size // 2} frequencies for {len(dataset.pulsars)} pulsars need {core / 1e9:.1f} GB; "
-                             "use fewer", "fit.harmonics")
+        count = len(dataset.pulsars)
+        # the per-pulsar F^T N'^-1 F, and for Hellings-Downs the dense core S over the common columns
+        per_pulsar = count * self.size**2 * 8
+        core = (count * 2 * self.harmonics) ** 2 * 8 if self.correlated else 0
+        if max(core, per_pulsar) > MEMORY_LIMIT:
+            if core >= per_pulsar:
+                raise InputError(f"{self.harmonics} common-process frequencies correlated across {count} pulsars need "
+                                 f"{core / 1e9:.1f} GB; use fewer", "fit.harmonics")
+            raise InputError(f"{self.size // 2} frequencies for {count} pulsars need {per_pulsar / 1e9:.1f} GB; use fewer",
+                             "fit.red_harmonics" if self.red_harmonics > self.harmonics else "fit.harmonics")
         self.pulsars = []
         for p in dataset.pulsars:
             times = (p.mjd - dataset.start_mjd) * 86400.0
@@ -95,6 +182,8 @@ class Likelihood:
         positions = np.array([p.position for p in dataset.pulsars])
         self.gamma_matrix = correlation_matrix(positions, "hellings-downs")
         self._white_cache = {}
+        # where S gets its pieces, for the usual case that every common column has nonzero variance
+        self._core_index = _core_indices(count, 2 * self.harmonics) if self.correlated and self.harmonics else None
 
     # --- pieces ---------------------------------------------------------------
     def _projected(self, index: int, scale: float, quadrature: float, signal=None):
@@ -114,17 +203,16 @@ class Likelihood:
         log_det = -float(np.sum(np.log(weights)))
         if M.shape[1]:
             MN = M.T * weights
-            MNM = MN @ M
-            try:
-                factor = scipy.linalg.cho_factor(MNM)
-            except np.linalg.LinAlgError:
-                raise NotPositiveDefinite(f"M^T N^-1 M of pulsar {index} is not positive definite (degenerate timing model?)") from None
-            MNF = MN @ F
-            MNr = MN @ r
-            FNF = FNF - MNF.T @ scipy.linalg.cho_solve(factor, MNF)
-            FNr = FNr - MNF.T @ scipy.linalg.cho_solve(factor, MNr)
-            rNr = rNr - float(MNr @ scipy.linalg.cho_solve(factor, MNr))
-            log_det += 2.0 * float(np.sum(np.log(np.diag(factor[0])))) - p.log_det_mtm
+            lower, info = _lapack.dpotrf(MN @ M, lower=1, clean=1)
+            if info:
+                raise NotPositiveDefinite(f"M^T N^-1 M of pulsar {index} is not positive definite (degenerate timing model?)")
+            # with M^T N^-1 M = L L^T: subtract (L^-1 M^T N^-1 F)^T (L^-1 M^T N^-1 F) and the like
+            whitened_F = _lapack.dtrtrs(lower, MN @ F, lower=1)[0]
+            whitened_r = _lapack.dtrtrs(lower, MN @ r, lower=1)[0]
+            FNF = FNF - whitened_F.T @ whitened_F
+            FNr = FNr - whitened_F.T @ whitened_r
+            rNr = rNr - float(whitened_r @ whitened_r)
+            log_det += 2.0 * float(np.sum(np.log(np.diag(lower)))) - p.log_det_mtm
         result = (FNF, FNr, rNr, log_det, r.size - M.shape[1])
         if signal is None:
             if len(self._white_cache) > 4 * len(self.pulsars):
@@ -149,96 +237,116 @@ class Likelihood:
     # --- the likelihood -------------------------------------------------------
     def __call__(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
                  signal=None) -> float:
-        pieces = [
+        pieces = self._pieces(white_scale, white_quadrature, signal)
+        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
+        constant = sum(-0.5 * (piece[3] + piece[4] * _LOG_2PI) - 0.5 * piece[2] for piece in pieces)
+        factors = self._factorise(pieces, red, common)
+        return constant + 0.5 * factors.quadratic - 0.5 * factors.log_det
+
+    def draw_coefficients(self, rng, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0,
+                          gamma=13.0 / 3.0, signal=None) -> np.ndarray:
+        """One draw of every pulsar's Fourier coefficients (P, size) in s from ``p(a | parameters, residuals)``.
+
+        The timing model is marginalised: ``a ~ N(Sigma^-1 d, Sigma^-1)`` with
+        ``Sigma = F^T N'^-1 F + Phi^-1`` and ``d = F^T N'^-1 r`` (PHYSICS.md, "Gibbs sampling").
+        Columns are those of the basis (sine and cosine of k/T interleaved, k = 1..size/2);
+        those with zero prior variance are 0.  ``rng`` is a :class:`numpy.random.Generator`;
+        the other arguments are those of :meth:`__call__`.
+        """
+        pieces = self._pieces(white_scale, white_quadrature, signal)
+        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
+        factors = self._factorise(pieces, red, common)
+        coefficients = np.zeros((len(self.pulsars), self.size))
+        shared = None
+        if factors.core is not None:  # the common columns from their marginal N(S^-1 d', S^-1): L_S^-T (L_S^-1 d' + z)
+            noise = rng.standard_normal(factors.whitened.size)
+            solution, _ = _lapack.dtrtrs(factors.core, factors.whitened + noise, lower=1, trans=1)
+            shared = solution.reshape(factors.shared.size, len(self.pulsars)).T
+            coefficients[:, factors.shared] = shared
+        for block in factors.blocks:  # each pulsar's own columns given the common ones: L^-T (L^-1 (d_r - FNF_rc a_c) + z)
+            right = block.whitened + rng.standard_normal(block.whitened.shape)
+            if shared is not None:
+                right -= np.einsum("gmk,gk->gm", block.coupling, shared[block.members])
+            own = np.linalg.solve(block.lower.swapaxes(1, 2), right[..., None])[..., 0]
+            coefficients[block.members[:, None], block.columns[None, :]] = own
+        return coefficients
+
+    def _pieces(self, white_scale, white_quadrature, signal):
+        return [
             self._projected(a, white_scale[a], white_quadrature[a], None if signal is None else signal[a])
             for a in range(len(self.pulsars))
         ]
-        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
-        constant = sum(-0.5 * (piece[3] + piece[4] * _LOG_2PI) - 0.5 * piece[2] for piece in pieces)
-        if self.correlated and amplitude > 0:
-            return constant + self._correlated(pieces, red, common)
+
+    def _factorise(self, pieces, red, common) -> _Factors:
+        """Factors of ``Sigma`` for the per-pulsar pieces and the prior variances from :meth:`_spectra`.
+
+        Columns of the correlated common process (nonzero common variance; none for an
+        uncorrelated model) are shared by all pulsars; each pulsar's other columns with nonzero
+        prior variance are its own, factorised per pulsar (batched over pulsars with the same
+        columns) and, where there is a shared part, eliminated from it by a Schur complement.
+        """
+        count = len(pieces)
         prior = red + common[None, :]
-        kept = prior > 0
-        if np.all(kept == kept[0]):  # the usual case: one batched factorisation for all pulsars
-            return constant + self._uncorrelated_batch(pieces, prior[:, kept[0]], kept[0])
-        return constant + sum(self._uncorrelated(piece, prior[a]) for a, piece in enumerate(pieces))
-
-    @staticmethod
-    def _uncorrelated_batch(pieces, prior, kept):
-        if not np.any(kept):
-            return 0.0
-        sigma = np.stack([piece[0][np.ix_(kept, kept)] for piece in pieces])
-        d = np.stack([piece[1][kept] for piece in pieces])
-        index = np.arange(prior.shape[1])
-        sigma[:, index, index] += 1.0 / prior
-        try:
-            lower = np.linalg.cholesky(sigma)
-        except np.linalg.LinAlgError:
-            raise NotPositiveDefinite("Sigma = F^T N^-1 F + Phi^-1 of a pulsar is not positive definite") from None
-        whitened = np.linalg.solve(lower, d[..., None])[..., 0]
-        return 0.5 * float(np.sum(whitened**2)) - 0.5 * (
-            float(np.sum(np.log(prior))) + 2.0 * float(np.sum(np.log(np.diagonal(lower, axis1=1, axis2=2))))
-        )
-
-    @staticmethod
-    def _uncorrelated(piece, prior):
-        FNF, FNr = piece[0], piece[1]
-        kept = prior > 0
-        if not np.any(kept):
-            return 0.0
-        sigma = FNF[np.ix_(kept, kept)].copy()
-        sigma[np.diag_indices_from(sigma)] += 1.0 / prior[kept]
-        try:
-            factor = scipy.linalg.cho_factor(sigma, lower=True, check_finite=False)
-        except np.linalg.LinAlgError:
-            raise NotPositiveDefinite("Sigma = F^T N^-1 F + Phi^-1 of a pulsar is not positive definite") from None
-        d = FNr[kept]
-        return 0.5 * float(d @ scipy.linalg.cho_solve(factor, d, check_finite=False)) - 0.5 * (
-            float(np.sum(np.log(prior[kept]))) + 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
-        )
-
-    def _correlated(self, pieces, red, common):
-        P = len(pieces)
-        columns = 2 * max(self.harmonics, self.red_harmonics if np.any(red) else 0)
-        sigma = np.zeros((P * columns, P * columns))
-        d = np.empty(P * columns)
-        for a, piece in enumerate(pieces):
-            block = slice(a * columns, (a + 1) * columns)
-            sigma[block, block] = piece[0][:columns, :columns]
-            d[block] = piece[1][:columns]
-        variances = red[:, :columns] + common[None, :columns]  # (P, columns)
-        kept = variances > 0
-        if kept.all():  # the usual case: all P x P blocks at once
-            phi = self.gamma_matrix[None, :, :] * common[:columns, None, None]
-            phi[:, np.arange(P), np.arange(P)] += red[:, :columns].T
+        shared = np.flatnonzero(common > 0) if self.correlated else np.empty(0, dtype=np.intp)
+        own = prior > 0
+        own[:, shared] = False
+        width = shared.size
+        FNF = np.stack([piece[0] for piece in pieces])
+        d = np.stack([piece[1] for piece in pieces])
+        everyone = np.arange(count)
+        shared_blocks = _select(FNF, everyone, shared, shared).copy()  # (P, nc, nc)
+        shared_d = d[:, shared]  # (P, nc)
+        quadratic = log_det = 0.0
+        blocks = []
+        for members, columns in _groups(own):
+            if columns.size == 0:
+                continue
+            variances = _select(prior, members, columns)
+            sigma = _select(FNF, members, columns, columns).copy()
+            sigma.reshape(members.size, -1)[:, :: columns.size + 1] += 1.0 / variances
             try:
-                lower = np.linalg.cholesky(phi)
+                lower = np.linalg.cholesky(sigma)
             except np.linalg.LinAlgError:
-                raise NotPositiveDefinite("Phi of the correlated model is not positive definite") from None
-            log_det_phi = 2.0 * float(np.sum(np.log(np.diagonal(lower, axis1=1, axis2=2))))
-            inverse = np.linalg.inv(phi)
-            rows = np.arange(P)[None, :] * columns + np.arange(columns)[:, None]  # (columns, P)
-            sigma[rows[:, :, None], rows[:, None, :]] += inverse
-        else:
-            log_det_phi = 0.0
-            for j in range(columns):
-                present = np.flatnonzero(kept[:, j])
-                if present.size == 0:
-                    continue
-                phi = self.gamma_matrix[np.ix_(present, present)] * common[j] + np.diag(red[present, j])
-                try:
-                    factor = scipy.linalg.cho_factor(phi, lower=True, check_finite=False)
-                except np.linalg.LinAlgError:
-                    raise NotPositiveDefinite(f"Phi at basis column {j} is not positive definite") from None
-                log_det_phi += 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
-                rows = present * columns + j
-                sigma[np.ix_(rows, rows)] += scipy.linalg.cho_solve(factor, np.eye(present.size), check_finite=False)
-            keep = kept.ravel()
-            sigma, d = sigma[np.ix_(keep, keep)], d[keep]
+                raise NotPositiveDefinite("Sigma = F^T N^-1 F + Phi^-1 of a pulsar is not positive definite") from None
+            right = np.concatenate([_select(FNF, members, columns, shared), _select(d, members, columns)[..., None]], axis=2)
+            solved = np.linalg.solve(lower, right)  # L^-1 right (numpy has no batched triangular solve)
+            coupling, whitened = solved[..., :width], solved[..., width]
+            quadratic += float((whitened * whitened).sum())
+            log_det += float(np.log(variances).sum()) + 2.0 * float(np.log(np.diagonal(lower, axis1=1, axis2=2)).sum())
+            if width:
+                shared_blocks[members] -= np.matmul(coupling.swapaxes(1, 2), coupling)
+                shared_d[members] -= np.einsum("gmk,gm->gk", coupling, whitened)
+            blocks.append(_OwnBlock(members, columns, lower, coupling, whitened))
+        if width == 0:
+            return _Factors(quadratic, log_det, blocks, shared, None, None)
+
+        # Phi_c at one column is Gamma S_gw + diag(S_red): the same for the sine and the cosine of a frequency
+        variances = np.vstack([common[shared], red[:, shared]])
+        distinct = np.ones(width, dtype=bool)
+        distinct[1:] = (variances[:, 1:] != variances[:, :-1]).any(axis=0)
+        which = np.cumsum(distinct) - 1
+        phi = self.gamma_matrix * variances[0, distinct][:, None, None]
+        phi.reshape(phi.shape[0], -1)[:, :: count + 1] += variances[1:, distinct].T
         try:
-            factor = scipy.linalg.cho_factor(sigma, lower=True, overwrite_a=True, check_finite=False)
+            lower = np.linalg.cholesky(phi)
         except np.linalg.LinAlgError:
-            raise NotPositiveDefinite("Sigma of the correlated model is not positive definite") from None
-        return 0.5 * float(d @ scipy.linalg.cho_solve(factor, d, check_finite=False)) - 0.5 * (
-            log_det_phi + 2.0 * float(np.sum(np.log(np.diag(factor[0]))))
-        )
+            raise NotPositiveDefinite("Phi of the correlated model is not positive definite") from None
+        log_det += 2.0 * float(np.log(np.diagonal(lower, axis1=1, axis2=2)).sum(axis=1)[which].sum())
+        inverse = np.linalg.inv(phi)[which]  # (nc, P, P)
+
+        placed_blocks, placed_couplings = (self._core_index if self._core_index is not None and width == 2 * self.harmonics
+                                           else _core_indices(count, width))
+        core = np.zeros((count * width, count * width))
+        flat = core.reshape(-1)
+        flat[placed_couplings] = inverse.ravel()
+        flat[placed_blocks] += shared_blocks.ravel()
+        # core is symmetric, so its transpose is the same matrix in Fortran order: LAPACK factorises it in place
+        factor, info = _lapack.dpotrf(core.T, lower=1, clean=0, overwrite_a=1)
+        if info > 0:
+            raise NotPositiveDefinite("Sigma of the correlated model is not positive definite")
+        if info < 0:
+            raise ValueError(f"LAPACK dpotrf refused argument {-info}")
+        whitened, _ = _lapack.dtrtrs(factor, shared_d.T.ravel(), lower=1)
+        quadratic += float(whitened @ whitened)
+        log_det += 2.0 * float(np.log(factor.diagonal()).sum())
+        return _Factors(quadratic, log_det, blocks, shared, factor, whitened)

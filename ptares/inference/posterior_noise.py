@@ -21,7 +21,7 @@ from ptares.inference.parameters import (
     WHITE_SCALE,
     for_pulsar,
 )
-from ptares.inference.samplers.ensemble import default_burn, posterior_draws, read_chain
+from ptares.inference.samplers.chains import saved_draws
 
 __all__ = ["noise_from_chains"]
 
@@ -32,7 +32,7 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
     Parameters the fit held fixed keep the values it held them at; the fit's
     common process (``common_lg_amplitude``, ``common_spectral_index``, on its frequencies) becomes
     the common process, and red noise the fit left out stays out.  Burn-in is
-    two integrated autocorrelation times, as in the fit's summary.  The chains
+    the fit summary's default (two integrated autocorrelation times, and the Gibbs sampler's adaptation).  The chains
     must come from a fit of this very dataset.
     """
 
@@ -46,18 +46,13 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
             common_harmonics = int(f.attrs["common_harmonics"])
             red_harmonics = int(f.attrs["red_harmonics"])
             origin = f.attrs["dataset_fingerprint"]
-        backend = read_chain(path)
-        steps = backend.iteration
-        with np.errstate(invalid="ignore", divide="ignore"):
-            tau = backend.get_autocorr_time(tol=0) if steps > 1 else np.array([np.nan])
+        samples = saved_draws(path)
     except (OSError, KeyError, ValueError) as exc:
         raise InputError(f"not a ptares chains file ({exc})", str(path)) from None
     if origin != fingerprint(dataset):
         raise InputError("comes from a fit of another dataset", str(path))
-    chain = backend.get_chain()
-    if chain.size == 0:
+    if samples.size == 0:
         raise InputError("holds no samples yet", str(path))
-    samples = posterior_draws(chain, default_burn(tau, steps))
     rng = np.random.default_rng(seed)
     picked = samples[rng.choice(samples.shape[0], size=min(draws, samples.shape[0]), replace=False)]
     held = {k: (float(v) if v is not None else -np.inf) for k, v in held.items()}

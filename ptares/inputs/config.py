@@ -542,11 +542,16 @@ class FitSection(_Section):
     first injected source).  ``fixed`` pins any parameter to a value; ``priors``
     replaces default priors (keys are parameter names, or a per-pulsar quantity
     without ``@pulsar``, e.g. ``red_lg_amplitude``, for every pulsar; see
-    :mod:`ptares.inference.parameters`).  Sampler: ``walkers`` (0: automatic),
-    ``max_steps``, stop when the chain is longer than ``autocorr_factor``
-    autocorrelation times, ``thin``, ``burn`` (default two autocorrelation
-    times), ``start`` at draws from the prior or near the maximum posterior,
-    ``seed``, ``workers`` (processes for likelihood calls; 1: none).
+    :mod:`ptares.inference.parameters`).  ``sampler``: ``"ensemble"`` (emcee),
+    ``"gibbs"`` (blocked Gibbs, for large noise models) or ``"auto"`` (Gibbs above
+    20 free parameters without a continuous wave); ``walkers`` of the ensemble (0:
+    automatic), ``gibbs_chains`` independent Gibbs chains; stop at ``max_steps`` or
+    when the chain is longer than ``autocorr_factor`` autocorrelation times, every
+    parameter has ``effective_samples`` effective draws and (Gibbs) every split
+    R-hat is below 1.01; ``thin``, ``burn`` (default two autocorrelation times, and
+    the Gibbs sampler's adaptation), ``start`` (ensemble) at draws from the prior or
+    near the maximum posterior, ``seed``, ``workers`` (processes: for the ensemble's
+    likelihood calls, or running Gibbs chains side by side; 1: none).
     ``pulsars`` limits the fit to those pulsars.
     """
 
@@ -573,9 +578,12 @@ class FitSection(_Section):
     fixed: dict[str, float] = {}
     priors: dict[str, Prior] = {}
     pulsars: Optional[tuple[str, ...]] = None
+    sampler: Literal["auto", "ensemble", "gibbs"] = "auto"
     walkers: Count = Field(default=0, ge=0, le=10_000)
+    gibbs_chains: Count = Field(default=2, ge=1, le=64)
     max_steps: Count = Field(default=20_000, ge=10, le=10_000_000)
     autocorr_factor: Quantity(None, Positive) = 50.0
+    effective_samples: Count = Field(default=400, ge=0, le=10_000_000)
     thin: Count = Field(default=1, ge=1)
     burn: Optional[Count] = Field(default=None, ge=0)
     start: Literal["prior", "map"] = "prior"

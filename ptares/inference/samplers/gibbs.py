@@ -1,0 +1,479 @@
+"""Blocked Gibbs sampling of large noise models (van Haasteren & Vallisneri 2014; Laal et al. 2023, PRD 108, 063008).
+
+The model (see :mod:`ptares.inference.likelihood`) has, besides its parameters,
+the Fourier coefficients ``a`` of every pulsar's red noise and the common process.
+Given the parameters, ``a`` is Gaussian and is drawn exactly; given ``a``, the
+parameters split into small blocks.  One iteration of each chain:
+
+1. draw all coefficients ``a | parameters, data`` (one factorisation; with
+   Hellings–Downs correlations only the common-process columns are coupled);
+2. for each pulsar ``p`` in turn:
+
+   a. its white noise ``| a_p, data`` by Metropolis steps on the timing-model-
+      marginalised white likelihood of ``r_p - F_p a_p`` (cost linear in its TOAs);
+   b. its red noise ``| white, common process, a of the other pulsars`` with
+      ``a_p`` integrated out (Metropolis steps on a per-pulsar Woodbury likelihood:
+      the prior of ``a_p`` given the other pulsars' coefficients is Gaussian,
+      zero-mean for an uncorrelated common process);
+   c. ``a_p | everything`` exactly;
+
+3. the common process's parameters with all coefficients integrated out
+   (Metropolis steps on the full marginalised likelihood).
+
+Steps 2b and 3 integrate coefficients out and draw them afresh right after
+(a partially collapsed Gibbs sampler, van Dyk & Park 2008, JASA 103, 790): the
+chain keeps the posterior invariant and does not suffer the slow "funnel" mixing
+of amplitude and coefficients where the data constrain the coefficients weakly.
+
+The Metropolis proposals of each block are Gaussian; during the first
+:data:`ADAPTATION` iterations their covariance is refitted every
+:data:`SEGMENT` iterations from that chain's own history (2.38^2/d times the
+sample covariance; Gelman, Roberts & Gilks 1996), then frozen; the adaptation
+steps are always discarded as burn-in.  Everything a chain needs to continue is
+its last point, its random state and its history, all in the chains file, so a
+resumed run continues exactly as an uninterrupted one would.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+
+from ptares.errors import InputError
+from ptares.inference import kernels
+from ptares.inference.likelihood import NotPositiveDefinite
+from ptares.inference.priors import Uniform
+from ptares.inference.parameters import (
+    COMMON_AMPLITUDE,
+    COMMON_INDEX,
+    RED_AMPLITUDE,
+    RED_INDEX,
+    WHITE_QUADRATURE,
+    WHITE_SCALE,
+    for_pulsar,
+)
+from ptares.physics.constants import F_YR
+from ptares.physics.spectra import coefficient_variance, fourier_frequencies
+
+__all__ = ["GibbsSampler", "run_gibbs", "adaptation_steps", "ADAPTATION", "SEGMENT", "MOVES"]
+
+#: Most iterations during which the Metropolis proposals adapt (always burnt); see :func:`adaptation_steps`.
+ADAPTATION = 500
+#: Iterations between adaptations, checkpoints and convergence checks.
+SEGMENT = 100
+#: Metropolis proposals per iteration for each kind of block: white-noise steps cost one pass
+#: over a pulsar's TOAs, red-noise steps a small factorisation, common-process steps the
+#: whole array's likelihood.
+MOVES = {"white": 10, "red": 4, "common": 4}
+
+_LOG_2PI = np.log(2.0 * np.pi)
+_OPTIMAL_SCALE = 2.38**2  # / d: Gelman, Roberts & Gilks (1996)
+
+
+def _unit_power_law(span: float, harmonics: int, size: int):
+    """Coefficient variance of a unit-amplitude flat power law on ``harmonics`` frequencies, zero beyond, and
+    ``ln(f / f_yr)`` (size,): a power law's variance is then ``A^2 unit exp(-gamma log_ratio)``
+    (:func:`ptares.physics.spectra.coefficient_variance`)."""
+    unit, log_ratio = np.zeros(size), np.zeros(size)
+    if harmonics:
+        unit[: 2 * harmonics] = np.repeat(coefficient_variance(span, harmonics, 1.0, 0.0), 2)
+        log_ratio[: 2 * harmonics] = np.repeat(np.log(fourier_frequencies(span, harmonics) / F_YR), 2)
+    return unit, log_ratio
+
+
+def _power_law(unit, log_ratio, amplitude: float, index: float):
+    return (amplitude * amplitude) * unit * np.exp(-index * log_ratio)
+
+
+class _Block:
+    """A few free parameters updated together by Metropolis steps, with their proposal covariance."""
+
+    def __init__(self, indices, priors, kind):
+        self.kind, self.moves = kind, MOVES[kind]
+        self.indices = np.asarray(indices, dtype=int)
+        self.priors = [priors[i] for i in self.indices]
+        widths = np.array([abs(p.ppf(0.84) - p.ppf(0.16)) / 2.0 for p in self.priors])
+        self.initial = np.diag((0.1 * widths) ** 2)
+        # uniform priors (the usual case) need only their bounds: a constant density inside
+        self._box = None
+        if all(isinstance(p, Uniform) for p in self.priors):
+            self._box = ([p.low for p in self.priors], [p.high for p in self.priors],
+                         -float(sum(np.log(p.high - p.low) for p in self.priors)))
+
+    def log_prior(self, values) -> float:
+        if self._box is not None:
+            lows, highs, inside = self._box
+            return inside if all(low <= v <= high for low, v, high in zip(lows, values, highs)) else -np.inf
+        return float(sum(p.log_pdf(v) for p, v in zip(self.priors, values)))
+
+
+class GibbsSampler:
+    """Blocked Gibbs sampler of a :class:`~ptares.inference.model.FitModel` without a continuous wave."""
+
+    def __init__(self, model):
+        if model.section.binary:
+            raise InputError("the Gibbs sampler has no step for a continuous wave; use sampler = \"ensemble\"",
+                             "fit.sampler")
+        self.model = model
+        self.likelihood = model.likelihood
+        names = model.dataset.names
+        index = {name: i for i, name in enumerate(model.names)}
+        self.white_blocks, self.red_blocks = [], []
+        used = set()
+        for pulsar in names:
+            white = [index[k] for k in (for_pulsar(WHITE_SCALE, pulsar), for_pulsar(WHITE_QUADRATURE, pulsar)) if k in index]
+            red = [index[k] for k in (for_pulsar(RED_AMPLITUDE, pulsar), for_pulsar(RED_INDEX, pulsar)) if k in index]
+            self.white_blocks.append(_Block(white, model.priors, "white") if white else None)
+            self.red_blocks.append(_Block(red, model.priors, "red") if red else None)
+            used |= set(white) | set(red)
+        common = [index[k] for k in (COMMON_AMPLITUDE, COMMON_INDEX) if k in index]
+        self.common_block = _Block(common, model.priors, "common") if common else None
+        used |= set(common)
+        left = [model.names[i] for i in range(model.ndim) if i not in used]
+        if left:
+            raise InputError(f"the Gibbs sampler has no step for {', '.join(left)}; use sampler = \"ensemble\"",
+                             "fit.sampler")
+        self.blocks = [b for b in self.white_blocks + self.red_blocks + [self.common_block] if b is not None]
+        for number, block in enumerate(self.blocks):
+            block.number = number
+        self._index = index
+        # per pulsar, where each noise quantity is: (position in x, or -1 and its held value)
+        self._slots = [[(index[k], 0.0) if k in index else (-1, float(model.values.get(k, -np.inf)))
+                        for k in (for_pulsar(q, pulsar) for q in (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX))]
+                       for pulsar in names]
+        self._names = names
+        self._correlated = model.likelihood.correlated
+        lk = model.likelihood
+        self._red_unit, self._red_log_ratio = _unit_power_law(lk.span, lk.red_harmonics, lk.size)
+        self._common_unit, self._common_log_ratio = _unit_power_law(lk.span, lk.harmonics, lk.size)
+
+    # --- parameters ----------------------------------------------------------
+    def _physical(self, x):
+        """Per-pulsar white scale, quadrature (s), red amplitude and index; common amplitude and index."""
+        v = self.model.parameters(x)
+        names = self._names
+        return dict(
+            white_scale=np.array([v[for_pulsar(WHITE_SCALE, n)] for n in names]),
+            white_quadrature=np.array([10 ** v[for_pulsar(WHITE_QUADRATURE, n)] for n in names]),
+            red_amplitude=np.array([10 ** v[for_pulsar(RED_AMPLITUDE, n)] for n in names]),
+            red_spectral_index=np.array([v[for_pulsar(RED_INDEX, n)] for n in names]),
+            amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
+            gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
+        )
+
+    def _red_variance(self, amplitude, index):
+        """Prior variance of one pulsar's coefficients from its red noise, zero beyond its frequencies (size,)."""
+        return _power_law(self._red_unit, self._red_log_ratio, amplitude, index)
+
+    def _common_variance(self, x):
+        """Prior variance of each pulsar's coefficients from the common process (size,)."""
+        amplitude = 10 ** self._value(x, COMMON_AMPLITUDE) if self.common_block is not None or COMMON_AMPLITUDE in \
+            self.model.values else 0.0
+        index = self._value(x, COMMON_INDEX) if COMMON_INDEX in self._index or COMMON_INDEX in self.model.values else 13 / 3
+        return _power_law(self._common_unit, self._common_log_ratio, amplitude, index)
+
+    def _white_arrays(self, x):
+        """Every pulsar's white scale and quadrature (s) at ``x``."""
+        values = [self._white_values(x, p) for p in range(len(self._names))]
+        return np.array([v[0] for v in values]), np.array([v[1] for v in values])
+
+    # --- the blocks' densities ------------------------------------------------
+    def _white_log_likelihood(self, p, scale, quadrature, residual) -> float:
+        """ln p(r_p - F_p a_p | white noise), timing model integrated out."""
+        q = self.likelihood.pulsars[p]
+        return kernels.white_log_likelihood(q.errors, residual, q.design, scale, quadrature, q.log_det_mtm)
+
+    @staticmethod
+    def _collapsed(pieces, mean, variance, rng=None):
+        """ln p(r_p | its coefficients ~ N(mean, diag variance)) up to white-noise terms, and with
+        ``rng`` also a draw of the coefficients given the data (None where Sigma is not positive definite)."""
+        noise = None if rng is None else rng.standard_normal(variance.size)
+        value, draw = kernels.collapsed(pieces[0], pieces[1], pieces[2], mean, variance, noise)
+        return value, (draw if draw.size else None)
+
+    # --- conditional prior of one pulsar's coefficients given the others' (Hellings–Downs) ---
+    def _common_inverse(self, red, common):
+        """Per common frequency, the inverse of Phi_k = Gamma phi_k + diag(red_k): (K, P, P)."""
+        K = self.likelihood.harmonics
+        phi = self.likelihood.gamma_matrix[None, :, :] * common[0: 2 * K: 2, None, None]
+        P = phi.shape[1]
+        phi[:, np.arange(P), np.arange(P)] += red[:, 0: 2 * K: 2].T
+        return np.linalg.inv(phi)
+
+    def _conditional_prior(self, p, coefficients, red, common, inverse):
+        """Mean and variance (size,) of pulsar p's coefficients given the other pulsars', without p's own red noise."""
+        size = self.likelihood.size
+        mean, variance = np.zeros(size), np.zeros(size)
+        if not self._correlated or inverse is None:
+            variance[:] = common
+            return mean, variance
+        K = self.likelihood.harmonics
+        row = inverse[:, p, :].copy()  # (K, P)
+        own = row[:, p].copy()
+        row[:, p] = 0.0
+        others = coefficients[:, : 2 * K]  # (P, 2K)
+        mean[0: 2 * K: 2] = -np.einsum("kb,bk->k", row, others[:, 0::2]) / own
+        mean[1: 2 * K: 2] = -np.einsum("kb,bk->k", row, others[:, 1::2]) / own
+        total = np.repeat(1.0 / own, 2)
+        variance[: 2 * K] = np.maximum(total - red[p, : 2 * K], 0.0)
+        return mean, variance
+
+    @staticmethod
+    def _update_inverse(inverse, p, change):
+        """Sherman–Morrison: Phi_k gains ``change_k`` at (p, p); update its inverse in place."""
+        column = inverse[:, :, p].copy()  # (K, P)
+        denominator = 1.0 + change * inverse[:, p, p]
+        inverse -= (change / denominator)[:, None, None] * column[:, :, None] * column[:, None, :]
+
+    # --- Metropolis ----------------------------------------------------------
+    @staticmethod
+    def _metropolis(block, x, log_density, current, proposal, rng):
+        """``block.moves`` random-walk Metropolis steps of ``block`` on ``x`` (in place); returns (value, accepted)."""
+        accepted = 0
+        steps = rng.standard_normal((block.moves, block.indices.size)) @ np.linalg.cholesky(proposal).T
+        thresholds = np.log(rng.uniform(size=block.moves))
+        here = x[block.indices].copy()
+        here_prior = block.log_prior(here)
+        for step, threshold in zip(steps, thresholds):
+            trial = here + step
+            prior = block.log_prior(trial)
+            if prior == -np.inf:
+                continue
+            x[block.indices] = trial
+            value = log_density(x)
+            if threshold < (value + prior) - (current + here_prior):
+                current, here, here_prior, accepted = value, trial, prior, accepted + 1
+        x[block.indices] = here
+        return current, accepted
+
+    # --- one iteration -------------------------------------------------------
+    def iterate(self, x, rng, proposals):
+        """One Gibbs iteration from ``x`` (changed in place); returns (log posterior at the new x, acceptance)."""
+        lk = self.likelihood
+        theta = self._physical(x)
+        red = np.stack([self._red_variance(a, i) for a, i in zip(theta["red_amplitude"], theta["red_spectral_index"])])
+        common = self._common_variance(x)
+        coefficients = lk.draw_coefficients(rng, **theta)
+        correlated = self._correlated and theta["amplitude"] > 0
+        inverse = self._common_inverse(red, common) if correlated else None
+        accepted, proposed = 0, 0
+        for p in range(len(self._names)):
+            white, red_block = self.white_blocks[p], self.red_blocks[p]
+            scale, quadrature = theta["white_scale"][p], theta["white_quadrature"][p]
+            if white is not None:
+                residual = lk.pulsars[p].residuals - lk.pulsars[p].basis @ coefficients[p]
+
+                def white_density(y, p=p, residual=residual):
+                    s, q = self._white_values(y, p)
+                    return self._white_log_likelihood(p, s, q, residual)
+
+                current = white_density(x)
+                _, hits = self._metropolis(white, x, white_density, current, proposals[white.number], rng)
+                accepted, proposed = accepted + hits, proposed + white.moves
+                scale, quadrature = self._white_values(x, p)
+            pieces = lk._projected(p, scale, quadrature)
+            mean, base = self._conditional_prior(p, coefficients, red, common, inverse)
+            if red_block is not None:
+
+                def red_density(y, p=p, pieces=pieces, mean=mean, base=base):
+                    amplitude, index = self._red_values(y, p)
+                    return self._collapsed(pieces, mean, base + self._red_variance(amplitude, index))[0]
+
+                current = red_density(x)
+                _, hits = self._metropolis(red_block, x, red_density, current, proposals[red_block.number], rng)
+                accepted, proposed = accepted + hits, proposed + red_block.moves
+                amplitude, index = self._red_values(x, p)
+                new_red = self._red_variance(amplitude, index)
+                if inverse is not None:
+                    self._update_inverse(inverse, p, (new_red - red[p])[0: 2 * lk.harmonics: 2])
+                red[p] = new_red
+            _, draw = self._collapsed(pieces, mean, base + red[p], rng)
+            if draw is None:
+                raise NotPositiveDefinite(f"the coefficients of pulsar {self._names[p]} have no valid conditional")
+            coefficients[p] = draw
+        log_likelihood = self._full_log_likelihood if self._correlated else self._uncorrelated(red, x)
+        current = log_likelihood(x)
+        if self.common_block is not None:
+            current, hits = self._metropolis(self.common_block, x, log_likelihood, current,
+                                             proposals[self.common_block.number], rng)
+            accepted, proposed = accepted + hits, proposed + self.common_block.moves
+        return current + self.model.log_prior(x), accepted / max(proposed, 1)
+
+    def _full_log_likelihood(self, x) -> float:
+        try:
+            return self.model.log_likelihood(x)
+        except NotPositiveDefinite:
+            return -np.inf
+
+    def _uncorrelated(self, red, x):
+        """The uncorrelated model's likelihood as a function of the common process alone (noise held)."""
+        lk = self.likelihood
+        pieces = [lk._projected(p, scale, quadrature)
+                  for p, (scale, quadrature) in enumerate(zip(*self._white_arrays(x)))]
+        FNF = np.stack([piece[0] for piece in pieces])
+        FNr = np.stack([piece[1] for piece in pieces])
+        rNr = np.array([piece[2] for piece in pieces])
+        constant = -0.5 * sum(piece[3] + piece[4] * _LOG_2PI for piece in pieces)
+
+        def log_likelihood(y):
+            common = self._common_variance(y)
+            return constant + kernels.collapsed_total(FNF, FNr, rNr, red + common[None, :])
+
+        return log_likelihood
+
+    def _white_values(self, x, p):
+        """Pulsar p's white scale and quadrature (s) at ``x``."""
+        (scale, fixed_scale), (quadrature, fixed_quadrature) = self._slots[p][:2]
+        return (x[scale] if scale >= 0 else fixed_scale), 10 ** (x[quadrature] if quadrature >= 0 else fixed_quadrature)
+
+    def _red_values(self, x, p):
+        """Pulsar p's red-noise amplitude and spectral index at ``x``."""
+        (amplitude, fixed_amplitude), (index, fixed_index) = self._slots[p][2:]
+        return 10 ** (x[amplitude] if amplitude >= 0 else fixed_amplitude), (x[index] if index >= 0 else fixed_index)
+
+    def _value(self, x, name):
+        index = self._index.get(name)
+        return float(x[index]) if index is not None else float(self.model.values[name])
+
+    # --- proposals -----------------------------------------------------------
+    def proposals(self, history=None):
+        """Proposal covariance of each block (a list in block order): the initial one, or fitted to a
+        chain's ``history`` (steps, parameters)."""
+        result = []
+        for block in self.blocks:
+            covariance = block.initial
+            if history is not None and len(history) > 10:
+                recent = history[len(history) // 2:, block.indices]
+                sample = np.atleast_2d(np.cov(recent, rowvar=False))
+                if np.all(np.isfinite(sample)) and np.all(np.linalg.eigvalsh(sample) > 0):
+                    covariance = _OPTIMAL_SCALE / block.indices.size * sample
+                else:  # stuck: no movement to learn from yet; try smaller steps
+                    covariance = 0.25 * block.initial
+            result.append(covariance)
+        return result
+
+    def run_segment(self, x, state: str, proposals, iterations: int):
+        """``iterations`` iterations of one chain from ``x`` with the random state ``state`` (JSON text).
+
+        Returns (points (iterations, ndim), log posteriors, acceptance fractions, new state).
+        """
+        rng = np.random.Generator(np.random.PCG64())
+        rng.bit_generator.state = json.loads(state)
+        x = np.array(x, dtype=float)
+        points = np.empty((iterations, x.size))
+        values, acceptance = np.empty(iterations), np.empty(iterations)
+        for i in range(iterations):
+            values[i], acceptance[i] = self.iterate(x, rng, proposals)
+            points[i] = x
+        return points, values, acceptance, json.dumps(rng.bit_generator.state)
+
+
+def adaptation_steps(section) -> int:
+    """Iterations of adaptation: :data:`ADAPTATION`, or a quarter of ``max_steps`` (whole segments) if less."""
+    return min(ADAPTATION, section.max_steps // 4 // SEGMENT * SEGMENT)
+
+
+def random_state(seed: int, chain: int) -> str:
+    """The initial random state (JSON) of chain number ``chain``: independent streams from one seed."""
+    generator = np.random.Generator(np.random.PCG64(np.random.SeedSequence([seed, chain])))
+    return json.dumps(generator.bit_generator.state)
+
+
+# --- the run -------------------------------------------------------------------
+
+_WORKER = {}
+
+
+def _start_worker(model):
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C stops the run after the current segment
+    _WORKER["sampler"] = GibbsSampler(model)
+
+
+def _segment_in_worker(x, state, proposals, iterations):
+    return _WORKER["sampler"].run_segment(x, state, proposals, iterations)
+
+
+def _starting_points(model, chains: int, seed: int) -> np.ndarray:
+    """One prior draw per chain with a finite posterior (from its own random stream)."""
+    points = np.empty((chains, model.ndim))
+    for c in range(chains):
+        rng = np.random.default_rng([seed, 7, c])
+        for _ in range(200):
+            trial = model.sample_prior(rng, 1)[0]
+            if np.isfinite(model(trial)):
+                break
+        else:
+            raise InputError("the posterior is zero at 200 prior draws; check the priors and fixed values", "fit")
+        points[c] = trial
+    return points
+
+
+class _Step:
+    """What the chains file stores per step (emcee's State has the same fields)."""
+
+    def __init__(self, coords, log_prob, random_state):
+        self.coords, self.log_prob, self.random_state = coords, log_prob, random_state
+
+
+def run_gibbs(model, backend, chains: int, resume: bool, pool_size: int, interrupted: list, bar) -> None:
+    """Advance ``chains`` independent Gibbs chains in ``backend`` until the convergence rule holds,
+    ``max_steps``, or an interrupt; segments of the chains run in ``pool_size`` processes when above 1."""
+    from ptares.inference.samplers.convergence import assess, steps_needed
+
+    section = model.section
+    sampler = GibbsSampler(model)
+    adaptation = adaptation_steps(section)
+    backend._seconds, backend._steps = np.inf, 2**62  # written whole segments at a time, with their random states
+    if resume:
+        chain = backend.get_chain()
+        points, states = chain[-1].copy(), json.loads(backend.saved_random_state())
+    else:
+        chain = np.empty((0, chains, model.ndim))
+        points, states = _starting_points(model, chains, section.seed), [random_state(section.seed, c) for c in range(chains)]
+    done = int(backend.iteration)
+    bar.update(done)
+    previous = np.inf
+    if resume and (done >= section.max_steps or assess(chain, section.autocorr_factor, section.effective_samples, True,
+                                                       section.burn, min(adaptation, done)).converged):
+        return
+    pool = None
+    if pool_size > 1:
+        import multiprocessing
+
+        pool = multiprocessing.get_context("spawn").Pool(min(pool_size, chains), initializer=_start_worker, initargs=(model,))
+    try:
+        while done < section.max_steps and not interrupted:
+            iterations = min(SEGMENT - done % SEGMENT, section.max_steps - done)
+            adapted = min(done // SEGMENT * SEGMENT, adaptation)
+            proposals = [sampler.proposals(chain[:adapted, c] if adapted else None) for c in range(chains)]
+            jobs = [(points[c], states[c], proposals[c], iterations) for c in range(chains)]
+            if pool is not None:
+                results = pool.starmap(_segment_in_worker, jobs)
+            else:
+                results = [sampler.run_segment(*job) for job in jobs]
+            segment = np.stack([r[0] for r in results], axis=1)  # (iterations, chains, ndim)
+            values = np.stack([r[1] for r in results], axis=1)
+            acceptance = np.stack([r[2] for r in results], axis=1)
+            states = [r[3] for r in results]
+            for i in range(iterations):
+                backend.save_step(_Step(segment[i], values[i], json.dumps(states) if i == iterations - 1 else None),
+                                  acceptance[i])
+            backend.flush()
+            chain = np.concatenate([chain, segment])
+            points = segment[-1].copy()
+            done += iterations
+            bar.update(iterations)
+            verdict = assess(chain, section.autocorr_factor, section.effective_samples, True, section.burn,
+                             min(adaptation, done), previous_tau=previous)
+            previous = float(np.max(verdict.autocorr_time))
+            bar.total = min(section.max_steps, steps_needed(verdict, done, chains, section.autocorr_factor,
+                                                            section.effective_samples, adaptation))
+            bar.refresh()
+            if verdict.converged and done >= adaptation:
+                break
+    finally:
+        if pool is not None:
+            pool.terminate()
