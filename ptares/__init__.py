@@ -18,6 +18,7 @@ with astropy Quantities.  The subpackages are named ``simulation``, ``correlatio
 from ptares.api import (
     FitResult,
     Interrupted,
+    NoiseResult,
     SweepResult,
     config_from,
     correlate,
@@ -25,6 +26,7 @@ from ptares.api import (
     export_tables,
     fit,
     import_tables,
+    pulsar_noise,
     simulate,
     sweep,
 )
@@ -50,6 +52,7 @@ __all__ = [
     "simulate",
     "correlate",
     "fit",
+    "pulsar_noise",
     "sweep",
     "describe",
     "import_tables",
@@ -57,6 +60,7 @@ __all__ = [
     "config_from",
     "CorrelationResult",
     "FitResult",
+    "NoiseResult",
     "SweepResult",
     "Interrupted",
     "InputError",

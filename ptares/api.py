@@ -7,7 +7,9 @@ Quantity is accepted (converted to the key's default unit; one that does not con
 is an :class:`~ptares.errors.InputError` naming the key).  Settings are keyword
 arguments named like the keys of ``[correlate]`` and ``[fit]``, or a dict or TOML file
 of such a table.  Files are written only when ``out`` is given; each function
-returns an object whose ``repr`` is a short summary.  Example::
+returns an object whose ``repr`` is a short summary.  The keyword ``threads`` of each
+sets the BLAS and numba threads of the process and of each worker it starts (default
+:data:`~ptares.threads.DEFAULT_THREADS`, one: see :mod:`ptares.threads`).  Example::
 
     import astropy.units as u
     import ptares
@@ -27,6 +29,7 @@ from __future__ import annotations
 
 import contextvars
 import copy
+import functools
 import json
 import os
 import sys
@@ -53,6 +56,7 @@ from ptares.inputs.config import (
     validation_error,
     with_overrides,
 )
+from ptares.threads import thread_count, thread_limits
 
 if TYPE_CHECKING:  # imported when first used: it pulls in scipy.stats
     from ptares.correlation.analysis import CorrelationResult
@@ -62,8 +66,8 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-__all__ = ["simulate", "correlate", "fit", "sweep", "describe", "import_tables", "export_tables",
-           "FitResult", "SweepResult", "Interrupted", "config_from"]
+__all__ = ["simulate", "correlate", "fit", "pulsar_noise", "sweep", "describe", "import_tables", "export_tables",
+           "FitResult", "NoiseResult", "SweepResult", "Interrupted", "config_from"]
 
 #: True while the command line runs: messages then name options as ``--overwrite`` rather than ``overwrite=True``.
 COMMAND_LINE = contextvars.ContextVar("ptares_command_line", default=False)
@@ -88,6 +92,17 @@ def _flag(name: str) -> str:
 def _option(name: str) -> str:
     """How a message names the option ``name``: ``--name`` on the command line, ``name`` in Python."""
     return f"--{name.replace('_', '-')}" if COMMAND_LINE.get() else name
+
+
+def _threaded(function):
+    """Run ``function`` under :func:`~ptares.threads.thread_limits` of its ``threads`` keyword (None: the default)."""
+
+    @functools.wraps(function)
+    def run(*args, **kwargs):
+        with thread_limits(thread_count(kwargs.get("threads"), _option("threads"))):
+            return function(*args, **kwargs)
+
+    return run
 
 
 def _say(verbose: bool, line: str) -> None:
@@ -220,8 +235,9 @@ def _dataset(dataset) -> Dataset:
 # ---------------------------------------------------------------- simulate
 
 
+@_threaded
 def simulate(config, *, seed: int | None = None, out=None, overwrite: bool = False, figures: bool = True,
-             verbose: bool = False, **sections) -> Dataset:
+             verbose: bool = False, threads: int | None = None, **sections) -> Dataset:
     """Simulate the array a config describes; returns the :class:`Dataset` (residuals in s, epochs in MJD).
 
     ``config``: a :class:`Config`, a TOML file, or a dict of sections such as
@@ -231,6 +247,7 @@ def simulate(config, *, seed: int | None = None, out=None, overwrite: bool = Fal
     (with neither, a fresh one is drawn and recorded).  With ``out``, writes
     ``out/dataset.h5`` and, unless ``figures=False``, the figures; earlier outputs are
     replaced only with ``overwrite=True``.  ``verbose`` shows progress and the files written.
+    ``threads``: BLAS and numba threads (None: :data:`~ptares.threads.DEFAULT_THREADS`).
     """
     from ptares.simulation.simulate import simulate as simulate_config
 
@@ -281,8 +298,9 @@ def _noise_models(dataset: Dataset, section: CorrelateSection, folder: Path | No
     return noise_from_values(dataset, **given, pulsars=pulsars)
 
 
+@_threaded
 def correlate(dataset, out=None, *, settings=None, overwrite: bool = False, verbose: bool = False,
-              **options) -> CorrelationResult:
+              threads: int | None = None, **options) -> CorrelationResult:
     """Pair correlations, optimal statistics and nulls of a dataset; returns a :class:`CorrelationResult`.
 
     ``dataset``: a :class:`Dataset` or the path of a ``dataset.h5``.  Settings are the
@@ -292,6 +310,7 @@ def correlate(dataset, out=None, *, settings=None, overwrite: bool = False, verb
     relative ``chains`` is taken from the settings file's folder.  With ``out``,
     writes ``correlations.json``, ``correlations.png`` and (with null trials)
     ``nulls.png``; earlier ones are replaced only with ``overwrite=True``.
+    ``threads``: BLAS and numba threads (None: :data:`~ptares.threads.DEFAULT_THREADS`).
     """
     from ptares.correlation.analysis import correlate as correlate_dataset
 
@@ -361,7 +380,7 @@ class FitResult:
         """Every step of every walker, shape (steps, walkers, parameters), burn-in included."""
         if self._chain is not None:
             return self._chain
-        from ptares.inference.samplers.ensemble import read_chain
+        from ptares.inference.samplers.chains import read_chain
 
         return read_chain(self.chains).get_chain()
 
@@ -370,7 +389,7 @@ class FitResult:
 
         ``burn`` and ``thin`` default to the summary's (as in ``posterior.json`` and the figures).
         """
-        from ptares.inference.samplers.ensemble import posterior_draws
+        from ptares.inference.samplers.chains import posterior_draws
 
         burn = self.summary["burn"] if burn is None else int(burn)
         thin = self.summary["thin"] if thin is None else int(thin)
@@ -385,7 +404,8 @@ class FitResult:
     def __repr__(self) -> str:
         state = "converged" if self.converged else "NOT converged"
         count = f"{len(self.names)} parameter{'s' if len(self.names) != 1 else ''}"
-        lines = [f"FitResult: {count}, {self.steps} steps x {self.walkers} walkers, {state}; "
+        noun = "chains" if self.summary.get("sampler") == "gibbs" else "walkers"
+        lines = [f"FitResult: {count}, {self.steps} steps x {self.walkers} {noun}, {state}; "
                  f"acceptance {self.summary['acceptance_fraction']:.2f}, "
                  f"{self.summary['effective_samples']:.0f} effective samples"]
         for name in self.names[:3]:
@@ -413,9 +433,21 @@ def _fit_source(source):
     raise InputError(f"expected a Dataset, a Config, a dict of sections or a file, got {type(source).__name__}", "source")
 
 
+def _fit_section(source, config, settings, options) -> FitSection:
+    """The ``[fit]`` settings, with a relative ``pulsar_noise`` taken from the folder of the file that gave it."""
+    section, folder = _section(FitSection, "fit", settings, options, default=config.fit if config is not None else None)
+    if settings is None and isinstance(source, (str, os.PathLike)) and config is not None:
+        folder = Path(source).parent
+    if section.pulsar_noise and folder is not None and "pulsar_noise" not in options \
+            and not Path(section.pulsar_noise).is_absolute():
+        section = section.model_copy(update={"pulsar_noise": str(folder / section.pulsar_noise)})
+    return section
+
+
+@_threaded
 def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bool = True, verbose: bool = False,
-        **options) -> FitResult:
-    """Sample the posterior of a model of a dataset with emcee; returns a :class:`FitResult`.
+        threads: int | None = None, **options) -> FitResult:
+    """Sample the posterior of a model of a dataset (emcee, or blocked Gibbs for large models); returns a :class:`FitResult`.
 
     ``source``: a :class:`Dataset` or a ``dataset.h5``; or a config (a :class:`Config`, a
     TOML file, a dict of sections), which is simulated first and fitted with its
@@ -429,19 +461,17 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
     end, and ``dataset.h5`` is written when the source was a config.  Without
     ``out`` the chains live in a temporary file and are kept in memory afterwards.
     Ctrl-C during sampling raises :class:`Interrupted` (its ``kept`` names the
-    chains file to resume).
+    chains file to resume).  ``threads``: BLAS and numba threads of this process and
+    of each of the ``workers`` (None: :data:`~ptares.threads.DEFAULT_THREADS`).
     """
     from ptares.dataset import fingerprint, write_dataset, write_json
     from ptares.inference.model import FitModel
-    from ptares.inference.samplers.ensemble import (
-        posterior_draws,
-        run_sampler,
-        summarise,
-    )
+    from ptares.inference import samplers
+    from ptares.inference.samplers.chains import posterior_draws, summarise
     from ptares.simulation.simulate import simulate as simulate_config
 
     dataset, config = _fit_source(source)
-    section, _ = _section(FitSection, "fit", settings, options, default=config.fit if config is not None else None)
+    section = _fit_section(source, config, settings, options)
     if out is not None:
         # chains.h5 is resumed, not overwritten; the other outputs are rewritten at the end of every run
         out = check_output_directory(out, True)
@@ -451,13 +481,14 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
 
     def announce(chains):
         _say(verbose, f"fitting {model.ndim} parameters ({', '.join(model.names[:6])}{', ...' if model.ndim > 6 else ''}) "
+                      f"with the {samplers.choose_sampler(model)} sampler "
                       f"to {len(model.dataset.pulsars)} pulsars; chains in {chains}")
 
     if out is None:
         with tempfile.TemporaryDirectory(prefix="ptares-fit-") as scratch:
             chains = Path(scratch) / "chains.h5"
             announce(chains)
-            run = run_sampler(model, chains, progress=verbose)
+            run = samplers.run_sampler(model, chains, progress=verbose)
         summary = summarise(model, run)
         return FitResult(summary, list(model.names), None, None, dict(model.injected), run.chain)
 
@@ -475,7 +506,7 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
         chains = out / "chains.h5"
         announce(chains)
         try:
-            run = run_sampler(model, chains, progress=verbose, overwrite=overwrite)
+            run = samplers.run_sampler(model, chains, progress=verbose, overwrite=overwrite)
         except KeyboardInterrupt:
             raise Interrupted(chains) from None
         summary = summarise(model, run)
@@ -486,11 +517,72 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
 
             samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
             save_figure(corner_figure(samples, model.names, model.injected, converged=summary["converged"]), out / "corner.png")
-            save_figure(trace_figure(run.chain, model.names, summary["burn"], model.injected, converged=summary["converged"]),
+            save_figure(trace_figure(run.chain, model.names, summary["burn"], model.injected, converged=summary["converged"],
+                                     independent=summary["sampler"] == "gibbs"),
                         out / "trace.png")
     except OSError as exc:
         raise _cannot_write(exc, out) from None
     return FitResult(summary, list(model.names), chains, out, dict(model.injected))
+
+
+# ---------------------------------------------------------------- per-pulsar noise
+
+
+@dataclass(repr=False)
+class NoiseResult:
+    """The per-pulsar noise stage: ``pulsars`` maps each pulsar to its row (``status``, ``converged``,
+    ``parameters`` with mean, sd, median and 68% interval); ``out`` holds ``pulsar_noise.json``."""
+
+    pulsars: dict
+    out: Path
+
+    @property
+    def failed(self) -> list:
+        return [name for name, row in self.pulsars.items() if row.get("status") != "ok"]
+
+    @property
+    def not_converged(self) -> list:
+        return [name for name, row in self.pulsars.items() if row.get("status") == "ok" and not row.get("converged")]
+
+    def __repr__(self) -> str:
+        return (f"NoiseResult: {len(self.pulsars)} pulsars, {len(self.failed)} failed, "
+                f"{len(self.not_converged)} not converged; in {self.out / 'pulsar_noise.json'}")
+
+
+@_threaded
+def pulsar_noise(source, out, *, settings=None, workers: int = 1, scheduler=None, overwrite: bool = False,
+                 figures: bool = True, verbose: bool = False, threads: int | None = None, **options) -> NoiseResult:
+    """Fit every pulsar's white and red noise alone (no common process), in ``workers`` processes or on a Dask
+    ``scheduler``; returns a :class:`NoiseResult`.
+
+    ``source`` and ``settings``/``options`` as for :func:`fit` (its ``[fit]`` table gives the noise model,
+    harmonics, priors and sampler limits).  Writes ``out/pulsars/<name>.h5`` (chains, resumed on a rerun),
+    ``out/pulsars/<name>.json``, ``out/pulsar_noise.json`` (for ``[fit] pulsar_noise``) and, unless
+    ``figures=False``, ``out/pulsar_noise.png``.  Finished pulsars are skipped when run again.
+    """
+    from ptares.campaign.noise_stage import run_noise_stage
+    from ptares.simulation.simulate import simulate as simulate_config
+
+    dataset, config = _fit_source(source)
+    section = _fit_section(source, config, settings, options)
+    out = check_output_directory(out, True)
+    if dataset is None:
+        dataset = simulate_config(config, progress=verbose)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        try:
+            content = run_noise_stage(dataset, section, out, workers=workers, scheduler=scheduler, overwrite=overwrite,
+                                      progress=verbose)
+        except KeyboardInterrupt:
+            raise Interrupted(out / "pulsars") from None
+        if figures:
+            from ptares.figures.common import save_figure
+            from ptares.figures.inference import pulsar_noise_figure
+
+            save_figure(pulsar_noise_figure(content["pulsars"]), out / "pulsar_noise.png")
+    except OSError as exc:
+        raise _cannot_write(exc, out) from None
+    return NoiseResult(content["pulsars"], out)
 
 
 # ---------------------------------------------------------------- sweep
@@ -543,8 +635,9 @@ class SweepResult:
         return "\n".join(lines)
 
 
+@_threaded
 def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = False, figures: bool = True,
-          verbose: bool = False) -> SweepResult:
+          verbose: bool = False, threads: int | None = None) -> SweepResult:
     """Run (or resume) the campaign of a config's ``[sweep]`` table into the folder ``out``; returns a :class:`SweepResult`.
 
     ``config``: a TOML file with a ``[sweep]`` table, or a dict of sections holding one
@@ -553,6 +646,7 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
     client) instead.  Finished tasks in ``out/tasks`` are kept and skipped on a rerun;
     ``overwrite=True`` discards them.  Writes ``results.csv`` and, unless
     ``figures=False``, the campaign figures.  Ctrl-C raises :class:`Interrupted`.
+    ``threads``: BLAS and numba threads of each worker (None: :data:`~ptares.threads.DEFAULT_THREADS`).
     """
     from ptares.campaign.detection import detection_threshold
     from ptares.campaign.sweep import run_sweep
@@ -639,9 +733,10 @@ def describe(config) -> str:
     return "\n".join(lines)
 
 
-def import_tables(config, out=None, *, overwrite: bool = False) -> Dataset:
+@_threaded
+def import_tables(config, out=None, *, overwrite: bool = False, threads: int | None = None) -> Dataset:
     """A dataset from the config's TOA table and catalogue as they are (no simulation); written to
-    ``out/dataset.h5`` when ``out`` is given."""
+    ``out/dataset.h5`` when ``out`` is given.  ``threads`` as in :func:`simulate`."""
     from ptares.dataset import write_dataset
     from ptares.simulation.simulate import import_tables as tables_to_dataset
 
@@ -657,9 +752,11 @@ def import_tables(config, out=None, *, overwrite: bool = False) -> Dataset:
     return dataset
 
 
-def export_tables(dataset, out, *, overwrite: bool = False) -> list:
+@_threaded
+def export_tables(dataset, out, *, overwrite: bool = False, threads: int | None = None) -> list:
     """Write ``toas.csv``, ``pulsars.csv``, ``signals.json`` and ``import.toml`` of a dataset (or a
-    dataset file) into ``out``; importing them gives the dataset back.  Returns the paths written."""
+    dataset file) into ``out``; importing them gives the dataset back.  Returns the paths written.
+    ``threads`` as in :func:`simulate`."""
     from ptares.inputs.tables import export_tables as write_tables
 
     dataset = _dataset(dataset)

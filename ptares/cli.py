@@ -13,6 +13,7 @@ from pathlib import Path
 
 from ptares.api import COMMAND_LINE
 from ptares.errors import InputError, PhysicsWarning
+from ptares.threads import DEFAULT_THREADS, thread_count, thread_limits
 from ptares.version import __version__
 
 _default_showwarning = warnings.showwarning
@@ -32,7 +33,8 @@ def _check(args) -> int:
 def _simulate(args) -> int:
     from ptares import api
 
-    api.simulate(args.config, out=args.out, overwrite=args.overwrite, figures=not args.no_figures, verbose=True)
+    api.simulate(args.config, out=args.out, overwrite=args.overwrite, figures=not args.no_figures, verbose=True,
+                 threads=args.threads)
     return 0
 
 
@@ -44,7 +46,7 @@ def _correlate(args) -> int:
     if args.overlays:
         options["overlays"] = True
     result = api.correlate(args.dataset, args.out, settings=args.config, overwrite=args.overwrite, verbose=True,
-                           **options)
+                           threads=args.threads, **options)
     hd = result.estimates["hellings-downs"]
     p_text = ""
     if "p_value" in hd:
@@ -56,15 +58,22 @@ def _correlate(args) -> int:
 def _fit(args) -> int:
     from ptares import api
 
-    options = {k: getattr(args, k) for k in ("max_steps", "walkers", "workers", "seed") if getattr(args, k) is not None}
+    options = {k: getattr(args, k) for k in ("max_steps", "walkers", "workers", "seed", "sampler")
+               if getattr(args, k) is not None}
     try:
-        result = api.fit(args.source, args.out, settings=args.config, overwrite=args.overwrite, verbose=True, **options)
+        result = api.fit(args.source, args.out, settings=args.config, overwrite=args.overwrite, verbose=True,
+                         threads=args.threads, **options)
     except api.Interrupted as exc:
         print(f"ptares: interrupted; the chains so far are in {exc.kept}; run the same command to resume",
               file=sys.stderr)
         return 130
-    state = "converged" if result.converged else "NOT converged (raise max_steps and rerun to continue)"
-    print(f"{result.steps} steps, {state}; wrote {result.out / 'posterior.json'}, corner.png, trace.png")
+    summary = result.summary
+    state = "converged" if result.converged else (f"NOT converged: {summary['not_converged_because']} "
+                                                  "(raise max_steps and rerun to continue)")
+    rhat = f", largest R-hat {summary['max_rhat']:.3f}" if summary.get("max_rhat") is not None else ""
+    print(f"{summary['sampler']} sampler, {result.steps} steps, fewest effective samples "
+          f"{summary['effective_samples']:.0f}{rhat}; {state}")
+    print(f"wrote {result.out / 'posterior.json'}, corner.png, trace.png")
     for name in result.names[:8]:
         entry = result.parameters[name]
         low, high = entry["interval68"]
@@ -79,12 +88,32 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: error: {message} (see --help)\n")
 
 
+def _noise(args) -> int:
+    from ptares import api
+
+    options = {k: getattr(args, k) for k in ("max_steps", "seed") if getattr(args, k) is not None}
+    try:
+        result = api.pulsar_noise(args.source, args.out, settings=args.config, workers=args.workers,
+                                  scheduler=args.scheduler, overwrite=args.overwrite, verbose=True, threads=args.threads,
+                                  **options)
+    except api.Interrupted as exc:
+        print(f"ptares: interrupted; finished pulsars and chains so far are in {exc.kept}; run the same command to resume",
+              file=sys.stderr)
+        return 130
+    print(f"{len(result.pulsars)} pulsars; wrote {result.out / 'pulsar_noise.json'} and pulsar_noise.png")
+    for name in result.failed[:5]:
+        print(f"  {name}: failed: {result.pulsars[name]['error']}")
+    for name in result.not_converged[:5]:
+        print(f"  {name}: NOT converged ({result.pulsars[name]['not_converged_because']}); raise max_steps and rerun")
+    return 0
+
+
 def _sweep(args) -> int:
     from ptares import api
 
     try:
         result = api.sweep(args.config, args.out, workers=args.workers, scheduler=args.scheduler,
-                           overwrite=args.overwrite, verbose=True)
+                           overwrite=args.overwrite, verbose=True, threads=args.threads)
     except api.Interrupted as exc:
         print(f"ptares: interrupted; finished tasks are kept in {exc.kept}; run the same command to resume",
               file=sys.stderr)
@@ -99,7 +128,7 @@ def _sweep(args) -> int:
 def _import(args) -> int:
     from ptares import api
 
-    dataset = api.import_tables(args.config, args.out, overwrite=args.overwrite)
+    dataset = api.import_tables(args.config, args.out, overwrite=args.overwrite, threads=args.threads)
     print(f"wrote {Path(args.out) / 'dataset.h5'} ({len(dataset.pulsars)} pulsars, {dataset.toa_count} TOAs)")
     return 0
 
@@ -107,28 +136,47 @@ def _import(args) -> int:
 def _export(args) -> int:
     from ptares import api
 
-    for path in api.export_tables(args.dataset, args.out, overwrite=args.overwrite):
+    for path in api.export_tables(args.dataset, args.out, overwrite=args.overwrite, threads=args.threads):
         print(f"wrote {path}")
     return 0
+
+
+def _threads(text: str) -> int:
+    """The value of ``--threads``: a whole number of at least 1."""
+    try:
+        return thread_count(int(text))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number of threads, got {text!r}") from None
+    except InputError as exc:
+        raise argparse.ArgumentTypeError(exc.message) from None
+
+
+THREADS_HELP = (f"BLAS and numba threads per process, workers included (default {DEFAULT_THREADS}: "
+                "more only pays on cores nothing else uses)")
 
 
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="ptares", description="Pulsar-timing-array residual modeller.")
     parser.add_argument("--version", action="version", version=f"ptares {__version__}")
+    parser.add_argument("--threads", type=_threads, default=DEFAULT_THREADS, metavar="N", help=THREADS_HELP)
+    # every command takes it too, after its name; SUPPRESS keeps a value given before the name
+    common = _Parser(add_help=False)
+    common.add_argument("--threads", type=_threads, default=argparse.SUPPRESS, metavar="N", help=THREADS_HELP)
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=_Parser)
 
-    check = commands.add_parser("check", help="validate a config and summarise what it simulates")
+    check = commands.add_parser("check", help="validate a config and summarise what it simulates", parents=[common])
     check.add_argument("config", help="TOML config file")
     check.set_defaults(run=_check)
 
-    sim = commands.add_parser("simulate", help="simulate a dataset and its figures from a config")
+    sim = commands.add_parser("simulate", help="simulate a dataset and its figures from a config", parents=[common])
     sim.add_argument("config", help="TOML config file")
     sim.add_argument("--out", required=True, help="output directory (dataset.h5 and PNG figures)")
     sim.add_argument("--overwrite", action="store_true", help="replace an existing dataset.h5")
     sim.add_argument("--no-figures", action="store_true", help="write the dataset only")
     sim.set_defaults(run=_simulate)
 
-    cor = commands.add_parser("correlate", help="pair cross-correlations, optimal statistics and nulls of a dataset")
+    cor = commands.add_parser("correlate", parents=[common],
+                              help="pair cross-correlations, optimal statistics and nulls of a dataset")
     cor.add_argument("dataset", help="HDF5 dataset (from ptares simulate)")
     cor.add_argument("--out", required=True, help="output directory (correlations.json, correlations.png, nulls.png)")
     cor.add_argument("--config", help="TOML file whose [correlate] table holds the settings")
@@ -146,18 +194,34 @@ def build_parser() -> argparse.ArgumentParser:
     cor.add_argument("--overwrite", action="store_true", help="replace earlier outputs")
     cor.set_defaults(run=_correlate)
 
-    fit = commands.add_parser("fit", help="Bayesian fit of noise, background and continuous waves with emcee")
+    fit = commands.add_parser("fit", parents=[common],
+                              help="Bayesian fit of noise, background and continuous waves (emcee or blocked Gibbs)")
     fit.add_argument("source", help="a TOML config (simulated, then fitted with its [fit]) or an HDF5 dataset")
     fit.add_argument("--out", required=True, help="output directory (chains.h5, posterior.json, corner.png, trace.png)")
     fit.add_argument("--config", help="TOML file whose [fit] table holds the settings")
     fit.add_argument("--max-steps", type=int, help="most steps to run (rerun with more to extend)")
+    fit.add_argument("--sampler", choices=["auto", "ensemble", "gibbs"],
+                     help="ensemble (emcee) or blocked Gibbs; auto: Gibbs above 20 free parameters")
     fit.add_argument("--walkers", type=int, help="number of walkers (default: automatic)")
-    fit.add_argument("--workers", type=int, help="processes for likelihood calls")
+    fit.add_argument("--workers", type=int, help="processes: likelihood calls (ensemble) or chains side by side (Gibbs)")
     fit.add_argument("--seed", type=int, help="seed of the sampler")
     fit.add_argument("--overwrite", action="store_true", help="start the chains afresh instead of resuming")
     fit.set_defaults(run=_fit)
 
-    sweep = commands.add_parser("sweep", help="injection-recovery campaign over a [sweep] grid, resumable")
+    noise = commands.add_parser("noise", parents=[common],
+                                help="fit every pulsar's own noise alone, in parallel (for [fit] pulsar_noise)")
+    noise.add_argument("source", help="a TOML config (simulated first) or an HDF5 dataset")
+    noise.add_argument("--out", required=True, help="output directory (pulsar_noise.json, pulsars/, pulsar_noise.png)")
+    noise.add_argument("--config", help="TOML file whose [fit] table holds the noise model and sampler settings")
+    noise.add_argument("--max-steps", type=int, help="most steps per pulsar (rerun with more to extend)")
+    noise.add_argument("--seed", type=int, help="seed of the samplers")
+    noise.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
+    noise.add_argument("--scheduler", help="address of a Dask scheduler (instead of local workers)")
+    noise.add_argument("--overwrite", action="store_true", help="discard earlier results of this directory")
+    noise.set_defaults(run=_noise)
+
+    sweep = commands.add_parser("sweep", parents=[common],
+                                help="injection-recovery campaign over a [sweep] grid, resumable")
     sweep.add_argument("config", help="TOML config with a [sweep] table")
     sweep.add_argument("--out", required=True, help="output directory (tasks/, results.csv, figures)")
     sweep.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
@@ -165,13 +229,14 @@ def build_parser() -> argparse.ArgumentParser:
     sweep.add_argument("--overwrite", action="store_true", help="discard earlier results of this directory")
     sweep.set_defaults(run=_sweep)
 
-    imp = commands.add_parser("import", help="make a dataset from a TOA table and a catalogue, without simulating")
+    imp = commands.add_parser("import", parents=[common],
+                              help="make a dataset from a TOA table and a catalogue, without simulating")
     imp.add_argument("config", help="TOML config whose [array] names the table and catalogue")
     imp.add_argument("--out", required=True, help="output directory (dataset.h5)")
     imp.add_argument("--overwrite", action="store_true", help="replace an existing dataset.h5")
     imp.set_defaults(run=_import)
 
-    exp = commands.add_parser("export", help="write a dataset as a TOA table and a catalogue (CSV)")
+    exp = commands.add_parser("export", help="write a dataset as a TOA table and a catalogue (CSV)", parents=[common])
     exp.add_argument("dataset", help="HDF5 dataset")
     exp.add_argument("--out", required=True, help="output directory (toas.csv, pulsars.csv, import.toml)")
     exp.add_argument("--overwrite", action="store_true", help="replace existing tables")
@@ -192,7 +257,8 @@ def main(argv=None) -> int:
     args = build_parser().parse_args(argv)
     token = COMMAND_LINE.set(True)  # messages name options as --flags
     try:
-        return args.run(args)
+        with thread_limits(args.threads):
+            return args.run(args)
     except InputError as exc:
         print(f"ptares: error: {exc.line()}", file=sys.stderr)
         return 2

@@ -261,8 +261,10 @@ def corner_figure(samples, names, injected=None, converged: bool = True):
     return fig
 
 
-def trace_figure(chain, names, burn: int = 0, injected=None, converged: bool = True):
-    """Walker traces of the shown parameters (``chain``: steps, walkers, parameters); the burn-in is shaded.
+def trace_figure(chain, names, burn: int = 0, injected=None, converged: bool = True, independent: bool = False):
+    """Traces of the shown parameters (``chain``: steps, walkers or chains, parameters); the burn-in is shaded.
+
+    ``independent``: the second axis holds independent chains (Gibbs), not ensemble walkers.
 
     Injected values are orange lines; ``converged=False`` says "not converged" in red above the traces.
     """
@@ -285,16 +287,57 @@ def trace_figure(chain, names, burn: int = 0, injected=None, converged: bool = T
         ax.tick_params(labelsize=7)
         ax.margins(x=0)
     axes[-1, 0].set_xlabel("step")
-    words = [f"{walkers} walker{'s' if walkers != 1 else ''}"]
+    noun = "chain" if independent else "walker"
+    words = [f"{walkers} {noun}{'s' if walkers != 1 else ''}"]
     if burn > 0:
         words.append(f"shaded: burn-in ({burn} steps)")
     if any(names[i] in injected for i in shown):
         words.append("orange: injected")
     if len(names) > len(shown):
         words.append(f"{len(shown)} of {len(names)} parameters")
-    axes[0, 0].set_title("Walker traces: " + "; ".join(words), fontsize=9, loc="left")
+    axes[0, 0].set_title(f"{noun.capitalize()} traces: " + "; ".join(words), fontsize=9, loc="left")
     if not converged:
         axes[0, 0].set_title(NOT_CONVERGED, loc="right", fontsize=12, fontweight="bold", color=_STAMP,
                              bbox={"boxstyle": "round,pad=0.3", "facecolor": "white", "edgecolor": _STAMP, "linewidth": 1.8})
+    fig.tight_layout()
+    return fig
+
+
+def pulsar_noise_figure(rows: dict):
+    """Each pulsar's noise from the per-pulsar noise stage: one panel per quantity, a row per pulsar with
+    its posterior median and 68% interval; injected values orange; pulsars whose fit failed or did not
+    converge named in red."""
+    quantities = [q for q in parameters.PER_PULSAR
+                  if any(parameters.for_pulsar(q, n) in row.get("parameters", {}) for n, row in rows.items())]
+    names = list(rows)
+    height = 1.2 + 0.22 * len(names)
+    fig, axes = plt.subplots(1, max(len(quantities), 1), figsize=(2.6 * max(len(quantities), 1) + 1.4, height),
+                             sharey=True, squeeze=False)
+    y = np.arange(len(names))[::-1]
+    troubled = {n for n, row in rows.items() if row.get("status") != "ok" or not row.get("converged")}
+    for ax, q in zip(axes[0], quantities):
+        for position, name in zip(y, names):
+            entry = rows[name].get("parameters", {}).get(parameters.for_pulsar(q, name))
+            if entry is None:
+                continue
+            low, high = entry["interval68"]
+            colour = _STAMP if name in troubled else COMPONENT_COLOURS["gwb"]
+            ax.plot([low, high], [position, position], color=colour, lw=2.2, solid_capstyle="butt")
+            ax.plot(entry["median"], position, "o", color=colour, ms=3.5)
+            if entry.get("injected") is not None:
+                ax.plot(entry["injected"], position, "x", color=_INJECTED, ms=5, mew=1.4)
+        ax.set_xlabel(parameters.LABELS[q], fontsize=9)
+        ax.tick_params(labelsize=7)
+        ax.grid(axis="x", color="#dddddd", lw=0.6)
+    axes[0, 0].set_yticks(y)
+    axes[0, 0].set_yticklabels(names, fontsize=7 if len(names) < 40 else 5)
+    for label in axes[0, 0].get_yticklabels():
+        if label.get_text() in troubled:
+            label.set_color(_STAMP)
+    axes[0, 0].set_ylim(-0.8, len(names) - 0.2)
+    note = "median and 68% interval of each pulsar's noise fitted alone; orange x: injected"
+    if troubled:
+        note += f"; red: failed or not converged ({len(troubled)})"
+    fig.suptitle(note, fontsize=8.5, x=0.01, ha="left")
     fig.tight_layout()
     return fig

@@ -49,6 +49,15 @@ def _cholesky(matrix):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True, error_model="numpy")
+def _factor(matrix):  # pragma: no cover - compiled
+    """(lower Cholesky factor by LAPACK, True), or (matrix, False) where it is not positive definite."""
+    try:
+        return np.linalg.cholesky(matrix), True
+    except Exception:  # numba raises LinAlgError for a matrix that is not positive definite
+        return matrix, False
+
+
+@numba.njit(cache=True, error_model="numpy")
 def _forward(lower, right):  # pragma: no cover - compiled
     """``L^-1 right``."""
     size = right.size
@@ -152,7 +161,11 @@ def _collapsed(FNF, FNr, rNr, mean, variance, noise):  # pragma: no cover - comp
             for j in range(size):
                 quadratic += mean[i] * FNF[i, j] * mean[j]
     draw = np.empty(0)
-    if not _cholesky(sigma):
+    for a in range(count):  # LAPACK reads the lower triangle only; numba's wrapper wants it symmetric
+        for b in range(a):
+            sigma[b, a] = sigma[a, b]
+    sigma, ok = _factor(sigma)
+    if not ok:
         return -np.inf, draw
     whitened = _forward(sigma, d)
     value = -0.5 * quadratic

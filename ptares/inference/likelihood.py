@@ -192,6 +192,11 @@ class Likelihood:
         cached = self._white_cache.get(key) if signal is None else None
         if cached is not None:
             return cached
+        if quadrature == 0 and scale != 1 and signal is None:
+            # N = scale^2 diag(errors^2) scales N'^-1 by 1/scale^2 and ln|N| + ln|M^T N^-1 M| by (n - m) ln scale^2
+            FNF, FNr, rNr, log_det, dof = self._projected(index, 1.0, 0.0)
+            factor = 1.0 / (scale * scale)
+            return (FNF * factor, FNr * factor, rNr * factor, log_det + dof * np.log(scale * scale), dof)
         p = self.pulsars[index]
         weights = 1.0 / ((scale * p.errors) ** 2 + quadrature**2)
         r = p.residuals if signal is None else p.residuals - signal

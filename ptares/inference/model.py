@@ -22,6 +22,7 @@ from ptares.dataset import Dataset
 from ptares.errors import InputError, PhysicsWarning
 from ptares.inference import priors as prior_module
 from ptares.inference.likelihood import Likelihood, NotPositiveDefinite
+from ptares.inference.pulsar_noise import read_pulsar_noise
 from ptares.inference.parameters import (
     BINARY_QUANTITIES,
     COMMON_AMPLITUDE,
@@ -114,9 +115,13 @@ def _check_value(key: str, value: float, where: str) -> None:
         raise InputError(f"{value} is outside the allowed range [{low:g}, {high:g}]", where)
 
 
+def _support(prior) -> tuple:
+    return getattr(prior, "low", -np.inf), getattr(prior, "high", np.inf)
+
+
 def _check_support(prior, key: str, where: str) -> None:
     low, high = VALID[quantity(key)]
-    bounds = (getattr(prior, "low", -np.inf), getattr(prior, "high", np.inf))
+    bounds = _support(prior)
     if bounds[0] < low or bounds[1] > high:
         hint = "; give the normal prior 'bounds' inside it" if isinstance(prior, prior_module.Normal) else ""
         raise InputError(f"the prior reaches [{bounds[0]:g}, {bounds[1]:g}], outside the allowed [{low:g}, {high:g}]{hint}",
@@ -191,6 +196,17 @@ class FitModel:
                             or is_array_signal(k)}
         if self.red_mode != "none":
             used |= {k for k in values if quantity(k) in (RED_AMPLITUDE, RED_INDEX)}
+        self._noise_priors = {}
+        if section.pulsar_noise is not None:  # the noise stage's results; [fit] fixed and priors still override them
+            for name, summary in read_pulsar_noise(section.pulsar_noise, dataset).items():
+                if name not in free:
+                    continue
+                if section.pulsar_noise_use == "fix":
+                    values[name] = summary["median"]
+                    free.remove(name)
+                else:
+                    low, high = _support(self.default_priors[quantity(name)])
+                    self._noise_priors[name] = prior_module.Normal(summary["mean"], max(summary["sd"], 1e-6), low, high)
         for key, value in sorted(section.fixed.items(), key=lambda item: item[0] not in PER_PULSAR):  # all pulsars' first
             targets = [k for k in values if quantity(k) == key and k != key] if key in PER_PULSAR else [key]
             for target in targets:
@@ -258,6 +274,8 @@ class FitModel:
     def _prior(self, name: str):
         if name in self.section.priors:
             return prior_module.from_config(self.section.priors[name])
+        if name in self._noise_priors:
+            return self._noise_priors[name]
         kind = quantity(name)
         if kind in self.section.priors:
             return prior_module.from_config(self.section.priors[kind])

@@ -552,7 +552,10 @@ class FitSection(_Section):
     the Gibbs sampler's adaptation), ``start`` (ensemble) at draws from the prior or
     near the maximum posterior, ``seed``, ``workers`` (processes: for the ensemble's
     likelihood calls, or running Gibbs chains side by side; 1: none).
-    ``pulsars`` limits the fit to those pulsars.
+    ``pulsars`` limits the fit to those pulsars.  ``pulsar_noise`` names the
+    ``pulsar_noise.json`` of a per-pulsar noise stage (``ptares noise``; relative
+    to the config's folder); its results ``"fix"`` each pulsar's free noise
+    parameters at their medians or set their ``"prior"`` (``pulsar_noise_use``).
     """
 
     common: Literal["uncorrelated", "hellings-downs", "none"] = "uncorrelated"
@@ -577,6 +580,8 @@ class FitSection(_Section):
 
     fixed: dict[str, float] = {}
     priors: dict[str, Prior] = {}
+    pulsar_noise: Optional[str] = None
+    pulsar_noise_use: Literal["fix", "prior"] = "prior"
     pulsars: Optional[tuple[str, ...]] = None
     sampler: Literal["auto", "ensemble", "gibbs"] = "auto"
     walkers: Count = Field(default=0, ge=0, le=10_000)

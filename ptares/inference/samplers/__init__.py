@@ -65,7 +65,10 @@ def run_sampler(model, path, progress: bool = False, overwrite: bool = False):
                 if section.workers > 1:
                     import multiprocessing
 
-                    pool = multiprocessing.get_context("spawn").Pool(section.workers, initializer=_ignore_interrupts)
+                    from ptares.threads import current_threads, worker_initializer
+
+                    pool = multiprocessing.get_context("spawn").Pool(section.workers, initializer=worker_initializer,
+                                                                     initargs=(current_threads(), _ignore_interrupts))
                 with pool if pool is not None else nullcontext():
                     run_ensemble(model, backend, chains, resume, pool, interrupted, bar)
     finally:

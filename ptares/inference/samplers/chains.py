@@ -106,7 +106,8 @@ def _identity(model, sampler: str, chains: int) -> str:
     """A fingerprint of what is being sampled, so a resume never mixes two different fits or datasets."""
     settings = model.section.model_dump(exclude={"max_steps", "autocorr_factor", "effective_samples", "burn", "thin",
                                                  "workers", "walkers", "gibbs_chains", "sampler"})
-    text = json.dumps({"names": model.names, "settings": settings, "sampler": sampler, "chains": chains,
+    text = json.dumps({"names": model.names, "priors": [repr(p) for p in model.priors], "settings": settings,
+                       "sampler": sampler, "chains": chains,
                        "values": model.values, "dataset": fingerprint(model.dataset)}, sort_keys=True, default=str)
     return hashlib.sha256(text.encode()).hexdigest()
 

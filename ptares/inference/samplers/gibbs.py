@@ -443,7 +443,10 @@ def run_gibbs(model, backend, chains: int, resume: bool, pool_size: int, interru
     if pool_size > 1:
         import multiprocessing
 
-        pool = multiprocessing.get_context("spawn").Pool(min(pool_size, chains), initializer=_start_worker, initargs=(model,))
+        from ptares.threads import current_threads, worker_initializer
+
+        pool = multiprocessing.get_context("spawn").Pool(min(pool_size, chains), initializer=worker_initializer,
+                                                         initargs=(current_threads(), _start_worker, model))
     try:
         while done < section.max_steps and not interrupted:
             iterations = min(SEGMENT - done % SEGMENT, section.max_steps - done)
