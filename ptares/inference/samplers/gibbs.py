@@ -55,6 +55,7 @@ from ptares.inference.parameters import (
 )
 from ptares.physics.constants import F_YR
 from ptares.physics.spectra import coefficient_variance, fourier_frequencies
+from ptares.rng import stream
 
 __all__ = ["GibbsSampler", "run_gibbs", "adaptation_steps", "ADAPTATION", "SEGMENT", "MOVES"]
 
@@ -376,8 +377,7 @@ def adaptation_steps(section) -> int:
 
 def random_state(seed: int, chain: int) -> str:
     """The initial random state (JSON) of chain number ``chain``: independent streams from one seed."""
-    generator = np.random.Generator(np.random.PCG64(np.random.SeedSequence([seed, chain])))
-    return json.dumps(generator.bit_generator.state)
+    return json.dumps(stream(seed, "gibbs", f"chain {chain}").bit_generator.state)
 
 
 # --- the run -------------------------------------------------------------------
@@ -400,7 +400,7 @@ def _starting_points(model, chains: int, seed: int) -> np.ndarray:
     """One prior draw per chain with a finite posterior (from its own random stream)."""
     points = np.empty((chains, model.ndim))
     for c in range(chains):
-        rng = np.random.default_rng([seed, 7, c])
+        rng = stream(seed, "gibbs start", f"chain {c}")
         for _ in range(200):
             trial = model.sample_prior(rng, 1)[0]
             if np.isfinite(model(trial)):
