@@ -99,6 +99,8 @@ def run_case(pulsars: int, common: str):
           f"({seconds / TARGET_SECONDS:.2f} x the 20-minute target), {summary['steps']} iterations x "
           f"{summary['walkers']} chains, fewest effective samples {fewest:.0f}, largest R-hat {summary['max_rhat']:.3f}, "
           f"converged: {summary['converged']}" + ("" if summary["converged"] else f" ({summary['not_converged_because']})"))
+    slowest = sorted(entries, key=lambda n: -entries[n]["autocorr_time"])[:4]
+    print("  longest autocorrelation times: " + ", ".join(f"{n} {entries[n]['autocorr_time']:.1f}" for n in slowest))
     common_entry = entries.get("common_lg_amplitude")
     if common_entry:
         print(f"  common_lg_amplitude {common_entry['median']:.2f} (injected {np.log10(3e-15):.2f}), "

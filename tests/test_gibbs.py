@@ -239,3 +239,46 @@ def test_gibbs_summary_reports_convergence_numbers(tmp_path):
     entry = summary["parameters"]["common_lg_amplitude"]
     assert {"effective_samples", "rhat", "autocorr_time"} <= set(entry)
     assert not summary["converged"] and "effective samples" in summary["not_converged_because"]
+
+
+def test_progress_length_follows_the_convergence_rule():
+    """The progress bar's total is what the rule still asks for: max(factor x tau, burn + wanted ESS x tau / chains)."""
+    from ptares.inference.samplers.convergence import Convergence, steps_needed
+
+    verdict = Convergence(False, np.array([10.0, 40.0]), np.array([5.0, 1.0]), None, 80, "")
+    assert steps_needed(verdict, 300, chains=2, autocorr_factor=50, effective_samples=10) == 50 * 40
+    assert steps_needed(verdict, 300, chains=2, autocorr_factor=5, effective_samples=400) == 80 + 400 * 40 // 2
+
+
+def test_command_line_gibbs_fit_says_why_it_has_not_converged(tmp_path, capsys):
+    """``ptares fit --sampler gibbs`` on a short run: the summary line names the sampler, the fewest effective
+    samples and R-hat, and what the convergence rule still misses; trace.png and posterior.json are written."""
+    import json
+
+    from ptares.cli import main
+    from ptares.dataset import write_dataset
+
+    dataset = write_dataset(six_pulsars(count=3, span=5.0), tmp_path / "d.h5")
+    settings = tmp_path / "s.toml"
+    settings.write_text('[fit]\nred = "free"\nred_harmonics = 6\nharmonics = 6\n')
+    assert main(["fit", str(dataset), "--config", str(settings), "--sampler", "gibbs", "--max-steps", "200",
+                 "--out", str(tmp_path / "o")]) == 0
+    printed = capsys.readouterr().out
+    assert "gibbs sampler, 200 steps" in printed and "R-hat" in printed and "NOT converged:" in printed
+    summary = json.loads((tmp_path / "o" / "posterior.json").read_text())
+    assert summary["sampler"] == "gibbs" and summary["not_converged_because"]
+    assert (tmp_path / "o" / "trace.png").is_file()
+
+
+def test_gibbs_fits_white_noise_alone(tmp_path):
+    """A model with no Fourier columns at all (white noise free, no red or common process) samples; the white
+    scale's posterior holds the injected 1.4 within 4 posterior standard deviations."""
+    config = small_config(array={"random": {"count": 2}},
+                          observing={"start": 53000, "span": 4.0, "cadence": 10.0, "toa_error": 1.0},
+                          noise={"white": {"scale": 1.4}}, gwb=None)
+    data = simulate(config, seed=1)
+    model = FitModel(data, FitSection(sampler="gibbs", white="free", red="none", common="none", max_steps=600,
+                                      fixed={"white_lg_quadrature": -np.inf}))
+    run = run_sampler(model, tmp_path / "c.h5")
+    draws = posterior_draws(run.chain, run.convergence.burn)
+    assert np.all(np.abs(draws.mean(axis=0) - 1.4) < 4 * draws.std(axis=0))

@@ -64,20 +64,31 @@ def test_a_rerun_skips_finished_pulsars(stage, monkeypatch):
 
 
 def test_array_fit_fixes_or_samples_under_the_stage_results(stage):
-    """``pulsar_noise_use = "fix"`` holds each pulsar's noise at the stage's medians (only the common process is
-    free); ``"prior"`` keeps them free under normal priors of the stage's mean and standard deviation."""
+    """By default the stage fixes each pulsar's white noise at its medians and leaves red noise free (its
+    single-pulsar posterior has absorbed the common process); listing red quantities fixes them too;
+    ``pulsar_noise_use = "prior"`` keeps them free under normal priors of the stage's mean and standard
+    deviation; a prior set in [fit] priors wins over the stage's."""
     data, out, content = stage
     path = str(out / "pulsar_noise.json")
-    fixed = FitModel(data, FitSection(white="free", red="free", red_harmonics=6, fixed={"white_lg_quadrature": -np.inf},
-                                      common="uncorrelated", harmonics=6, pulsar_noise=path, pulsar_noise_use="fix"))
-    assert fixed.names == ["common_lg_amplitude", "common_spectral_index"]
+    base = dict(white="free", red="free", red_harmonics=6, fixed={"white_lg_quadrature": -np.inf}, common="uncorrelated",
+                harmonics=6, pulsar_noise=path)
     name = data.names[0]
-    assert fixed.values[f"red_lg_amplitude@{name}"] == content["pulsars"][name]["parameters"][f"red_lg_amplitude@{name}"]["median"]
-    prior = FitModel(data, FitSection(white="free", red="free", red_harmonics=6, fixed={"white_lg_quadrature": -np.inf},
-                                      common="uncorrelated", harmonics=6, pulsar_noise=path))
+    white_only = FitModel(data, FitSection(**base))
+    assert not any(n.startswith("white_") for n in white_only.names)
+    assert f"red_lg_amplitude@{name}" in white_only.names
+    assert white_only.values[f"white_scale@{name}"] == content["pulsars"][name]["parameters"][f"white_scale@{name}"]["median"]
+    everything = FitModel(data, FitSection(**base, pulsar_noise_quantities=("white_scale", "red_lg_amplitude",
+                                                                           "red_spectral_index")))
+    assert everything.names == ["common_lg_amplitude", "common_spectral_index"]
+    assert everything.values[f"red_lg_amplitude@{name}"] == \
+        content["pulsars"][name]["parameters"][f"red_lg_amplitude@{name}"]["median"]
+    prior = FitModel(data, FitSection(**base, pulsar_noise_use="prior",
+                                      priors={"red_lg_amplitude": {"uniform": [-16, -12]}},
+                                      pulsar_noise_quantities=("white_scale", "red_lg_amplitude")))
     chosen = prior.priors[prior.names.index(f"white_scale@{name}")]
     summary = content["pulsars"][name]["parameters"][f"white_scale@{name}"]
     assert isinstance(chosen, Normal) and chosen.mean == summary["mean"] and chosen.sd == summary["sd"]
+    assert not isinstance(prior.priors[prior.names.index(f"red_lg_amplitude@{name}")], Normal)
 
 
 def test_results_of_other_data_are_refused(stage):
@@ -111,4 +122,19 @@ def test_command_line_noise_stage_then_array_fit(stage, tmp_path, capsys):
     import ptares
 
     result = ptares.fit(dataset, settings=relative, figures=False)
-    assert result.names == ["common_lg_amplitude", "common_spectral_index"]
+    assert not any(n.startswith("white_") for n in result.names) and "common_lg_amplitude" in result.names
+
+
+def test_noise_stage_on_a_dask_cluster_matches_local_processes(tmp_path):
+    """The same pulsars fitted on a dask.distributed LocalCluster give the same posterior summaries as local
+    worker processes (each fit is seeded, so the engines must not matter)."""
+    import distributed
+
+    data = noisy_array()
+    settings = FitSection(**{**SETTINGS, "max_steps": 300, "pulsars": tuple(data.names[:2])})
+    local = noise_stage.run_noise_stage(data, settings, tmp_path / "local", workers=1, progress=False)
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) as cluster:
+        with distributed.Client(cluster) as client:
+            remote = noise_stage.run_noise_stage(data, settings, tmp_path / "dask", scheduler=client, progress=False)
+    for name in data.names[:2]:
+        assert remote["pulsars"][name]["parameters"] == local["pulsars"][name]["parameters"]

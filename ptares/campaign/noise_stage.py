@@ -16,6 +16,7 @@ from pathlib import Path
 
 from ptares.dataset import Dataset, atomic_path
 from ptares.errors import InputError
+from ptares.inference.parameters import PER_PULSAR, split
 from ptares.inference.pulsar_noise import NOISE_FILE, pulsar_fingerprint, summary_of_draws
 from ptares.inputs.config import FitSection
 
@@ -32,11 +33,18 @@ class NoiseTask:
 
 
 def _single_pulsar_section(section: FitSection, name: str) -> FitSection:
-    """The array fit's settings for one pulsar: its own noise free, no common process or binary, emcee."""
-    settings = section.model_dump(exclude={"pulsars", "common", "binary", "sampler", "pulsar_noise", "fixed", "priors"})
-    fixed = {k: v for k, v in section.fixed.items() if "@" not in k or k.endswith(f"@{name}")}
-    priors = {k: v for k, v in section.priors.items() if "@" not in k or k.endswith(f"@{name}")}
-    settings.update(pulsars=(name,), common="none", binary=False, sampler="ensemble", fixed=fixed,
+    """The array fit's settings for one pulsar: its own noise free, no common process or binary, emcee in this
+    process; of ``fixed`` and ``priors`` only the keys of this pulsar's noise (or every pulsar's) are kept."""
+    settings = section.model_dump(exclude={"pulsars", "common", "binary", "sampler", "pulsar_noise", "fixed", "priors",
+                                           "workers"})
+
+    def own(key: str) -> bool:  # this pulsar's noise, or every pulsar's
+        quantity, pulsar = split(key)
+        return quantity in PER_PULSAR and pulsar in (None, name)
+
+    fixed = {k: v for k, v in section.fixed.items() if own(k)}
+    priors = {k: v for k, v in section.priors.items() if own(k)}
+    settings.update(pulsars=(name,), common="none", binary=False, sampler="ensemble", fixed=fixed, workers=1,
                     priors={k: v.model_dump(exclude_none=True) for k, v in priors.items()},
                     red=section.red or "free")
     return FitSection.model_validate(settings)

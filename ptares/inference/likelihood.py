@@ -37,6 +37,7 @@ What does not depend on the parameters is computed once.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 import scipy.linalg
@@ -47,9 +48,19 @@ from ptares.limits import MEMORY_LIMIT
 from ptares.physics.patterns import correlation_matrix
 from ptares.physics.spectra import coefficient_variance, fourier_basis
 
-__all__ = ["Likelihood", "NotPositiveDefinite"]
+__all__ = ["Likelihood", "NotPositiveDefinite", "Projected"]
 
 _LOG_2PI = np.log(2.0 * np.pi)
+
+
+class Projected(NamedTuple):
+    """One pulsar's data seen through its white noise, with the timing model projected out."""
+
+    FNF: np.ndarray  #: F^T N'^-1 F
+    FNr: np.ndarray  #: F^T N'^-1 r
+    rNr: float  #: r^T N'^-1 r
+    log_det: float  #: ln|N| + ln|M^T N^-1 M| - ln|M^T M|
+    dof: int  #: TOAs less timing-model parameters
 
 
 class NotPositiveDefinite(ArithmeticError):
@@ -186,17 +197,17 @@ class Likelihood:
         self._core_index = _core_indices(count, 2 * self.harmonics) if self.correlated and self.harmonics else None
 
     # --- pieces ---------------------------------------------------------------
-    def _projected(self, index: int, scale: float, quadrature: float, signal=None):
-        """``F^T N'^-1 F``, ``F^T N'^-1 r``, ``r^T N'^-1 r`` and the white part of ln det (cached by white noise)."""
+    def projected(self, index: int, scale: float, quadrature: float, signal=None):
+        """Pulsar ``index``'s :class:`Projected` pieces for a white noise (cached by white noise)."""
         key = (index, float(scale), float(quadrature))
         cached = self._white_cache.get(key) if signal is None else None
         if cached is not None:
             return cached
         if quadrature == 0 and scale != 1 and signal is None:
             # N = scale^2 diag(errors^2) scales N'^-1 by 1/scale^2 and ln|N| + ln|M^T N^-1 M| by (n - m) ln scale^2
-            FNF, FNr, rNr, log_det, dof = self._projected(index, 1.0, 0.0)
+            FNF, FNr, rNr, log_det, dof = self.projected(index, 1.0, 0.0)
             factor = 1.0 / (scale * scale)
-            return (FNF * factor, FNr * factor, rNr * factor, log_det + dof * np.log(scale * scale), dof)
+            return Projected(FNF * factor, FNr * factor, rNr * factor, log_det + dof * np.log(scale * scale), dof)
         p = self.pulsars[index]
         weights = 1.0 / ((scale * p.errors) ** 2 + quadrature**2)
         r = p.residuals if signal is None else p.residuals - signal
@@ -218,7 +229,7 @@ class Likelihood:
             FNr = FNr - whitened_F.T @ whitened_r
             rNr = rNr - float(whitened_r @ whitened_r)
             log_det += 2.0 * float(np.sum(np.log(np.diag(lower)))) - p.log_det_mtm
-        result = (FNF, FNr, rNr, log_det, r.size - M.shape[1])
+        result = Projected(FNF, FNr, rNr, log_det, r.size - M.shape[1])
         if signal is None:
             if len(self._white_cache) > 4 * len(self.pulsars):
                 self._white_cache.clear()
@@ -278,7 +289,7 @@ class Likelihood:
 
     def _pieces(self, white_scale, white_quadrature, signal):
         return [
-            self._projected(a, white_scale[a], white_quadrature[a], None if signal is None else signal[a])
+            self.projected(a, white_scale[a], white_quadrature[a], None if signal is None else signal[a])
             for a in range(len(self.pulsars))
         ]
 

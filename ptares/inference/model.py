@@ -197,9 +197,9 @@ class FitModel:
         if self.red_mode != "none":
             used |= {k for k in values if quantity(k) in (RED_AMPLITUDE, RED_INDEX)}
         self._noise_priors = {}
-        if section.pulsar_noise is not None:  # the noise stage's results; [fit] fixed and priors still override them
+        if section.pulsar_noise is not None:  # the noise stage's results; [fit] fixed and priors override them
             for name, summary in read_pulsar_noise(section.pulsar_noise, dataset).items():
-                if name not in free:
+                if name not in free or quantity(name) not in section.pulsar_noise_quantities:
                     continue
                 if section.pulsar_noise_use == "fix":
                     values[name] = summary["median"]
@@ -272,13 +272,13 @@ class FitModel:
         return values
 
     def _prior(self, name: str):
-        if name in self.section.priors:
-            return prior_module.from_config(self.section.priors[name])
+        """The configured prior of this parameter, else of its quantity, else the noise stage's, else the default."""
+        kind = quantity(name)
+        for key in (name, kind):
+            if key in self.section.priors:
+                return prior_module.from_config(self.section.priors[key])
         if name in self._noise_priors:
             return self._noise_priors[name]
-        kind = quantity(name)
-        if kind in self.section.priors:
-            return prior_module.from_config(self.section.priors[kind])
         return self.default_priors[kind]
 
     @property

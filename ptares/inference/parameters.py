@@ -10,7 +10,7 @@ per-pulsar quantity without ``@pulsar`` stands for every pulsar's.
 
 from __future__ import annotations
 
-from ptares.inputs.config import BINARY_QUANTITIES
+from ptares.inputs.config import BINARY_QUANTITIES, NOISE_QUANTITIES
 
 __all__ = [
     "SEPARATOR",
@@ -40,8 +40,9 @@ WHITE_QUADRATURE = "white_lg_quadrature"  #: lg of the white noise added in quad
 RED_AMPLITUDE = "red_lg_amplitude"  #: lg of a pulsar's red-noise amplitude at 1/yr
 RED_INDEX = "red_spectral_index"  #: a pulsar's red-noise spectral index
 
-#: Quantities every pulsar has one of.
-PER_PULSAR = (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX)
+#: Quantities every pulsar has one of (the config's list, which ``[fit] pulsar_noise_quantities`` draws on).
+PER_PULSAR = NOISE_QUANTITIES
+assert PER_PULSAR == (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX)
 
 def binary(name: str) -> str:
     """``lg_strain`` -> ``binary_lg_strain``: the parameter name of a continuous-wave quantity."""

@@ -526,6 +526,8 @@ class Prior(BaseModel):
 #: epoch (rad), cos of the inclination, polarisation angle (rad), right ascension (rad), sin of
 #: the declination, lg of the GW frequency (Hz).
 _BINARY_ANGLES = ("orbital_phase", "polarization_angle", "right_ascension")  #: radians
+#: Per-pulsar noise quantities of a fit (named as in :mod:`ptares.inference.parameters`).
+NOISE_QUANTITIES = ("white_scale", "white_lg_quadrature", "red_lg_amplitude", "red_spectral_index")
 BINARY_QUANTITIES = ("lg_strain", "orbital_phase", "inclination_cosine", "polarization_angle", "right_ascension",
                      "declination_sine", "lg_frequency")
 
@@ -554,8 +556,9 @@ class FitSection(_Section):
     likelihood calls, or running Gibbs chains side by side; 1: none).
     ``pulsars`` limits the fit to those pulsars.  ``pulsar_noise`` names the
     ``pulsar_noise.json`` of a per-pulsar noise stage (``ptares noise``; relative
-    to the config's folder); its results ``"fix"`` each pulsar's free noise
-    parameters at their medians or set their ``"prior"`` (``pulsar_noise_use``).
+    to the config's folder); its results ``"fix"`` the free noise parameters of
+    the quantities in ``pulsar_noise_quantities`` (white noise by default) at
+    their medians or set their ``"prior"`` (``pulsar_noise_use``).
     """
 
     common: Literal["uncorrelated", "hellings-downs", "none"] = "uncorrelated"
@@ -581,7 +584,9 @@ class FitSection(_Section):
     fixed: dict[str, float] = {}
     priors: dict[str, Prior] = {}
     pulsar_noise: Optional[str] = None
-    pulsar_noise_use: Literal["fix", "prior"] = "prior"
+    pulsar_noise_use: Literal["fix", "prior"] = "fix"
+    pulsar_noise_quantities: Annotated[tuple[Literal[NOISE_QUANTITIES], ...], _listed_once("a quantity")] = (
+        "white_scale", "white_lg_quadrature")
     pulsars: Optional[tuple[str, ...]] = None
     sampler: Literal["auto", "ensemble", "gibbs"] = "auto"
     walkers: Count = Field(default=0, ge=0, le=10_000)

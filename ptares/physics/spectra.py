@@ -33,6 +33,7 @@ __all__ = [
     "strain_from_omega_gw",
     "fourier_frequencies",
     "coefficient_variance",
+    "power_law_factors",
 ]
 
 
@@ -111,3 +112,10 @@ def fourier_basis(times, span: float, harmonics: int) -> np.ndarray:
 def coefficient_variance(span: float, harmonics: int, amplitude: float, gamma: float) -> np.ndarray:
     """Variance ``S(f_k) / T`` (s^2) of each sine and each cosine coefficient."""
     return residual_psd(fourier_frequencies(span, harmonics), amplitude, gamma) / span
+
+
+def power_law_factors(span: float, harmonics: int):
+    """``(unit, log_ratio)`` with ``coefficient_variance(span, harmonics, A, gamma) = A^2 unit exp(-gamma log_ratio)``:
+    the variance of a unit-amplitude flat spectrum and ``ln(f_k / f_yr)``, for samplers that evaluate many
+    power laws on one basis without recomputing the frequencies."""
+    return coefficient_variance(span, harmonics, 1.0, 0.0), np.log(fourier_frequencies(span, harmonics) / F_YR)

@@ -48,18 +48,23 @@ def run_sampler(model, path, progress: bool = False, overwrite: bool = False):
         chains, adaptation = section.walkers or default_walkers(model), 0
         if chains < 2 * model.ndim:
             raise InputError(f"{chains} walkers are fewer than twice the {model.ndim} free parameters", "fit.walkers")
-    backend, resume = open_chains(model, path, sampler, chains, overwrite, adaptation)
+    backend, resume, adaptation = open_chains(model, path, sampler, chains, overwrite, adaptation)
 
     interrupted = []
     previous_handler = None
     if threading.current_thread() is threading.main_thread():
-        # Ctrl-C stops after the current step; worker processes ignore it and finish that step
-        previous_handler = signal.signal(signal.SIGINT, lambda *_: interrupted.append(True))
+        # Ctrl-C stops after the current step or segment (worker processes ignore it and finish theirs);
+        # a second Ctrl-C stops at once, keeping what was written
+        def stop_soon(*_):
+            interrupted.append(True)
+            signal.signal(signal.SIGINT, previous_handler)
+
+        previous_handler = signal.signal(signal.SIGINT, stop_soon)
     bar = tqdm(total=section.max_steps, disable=not progress, unit="step", desc=f"{sampler} sampler", leave=False)
     try:
         with bar:
             if sampler == "gibbs":
-                run_gibbs(model, backend, chains, resume, section.workers, interrupted, bar)
+                run_gibbs(model, backend, chains, resume, section.workers, interrupted, bar, adaptation)
             else:
                 pool = None
                 if section.workers > 1:

@@ -78,6 +78,10 @@ class CheckpointedBackend(emcee.backends.HDFBackend):
         for key in ("chain", "log_prob"):
             group[key].resize(steps, axis=0)
 
+    def flush_only_on_request(self) -> None:
+        """Write steps only at :meth:`flush` (for samplers whose random state is known only at the end of a batch)."""
+        self._seconds, self._steps = np.inf, 2**62
+
     def saved_random_state(self) -> str:
         with self.open() as f:
             return str(f[self.name].attrs["random_state"])
@@ -113,7 +117,8 @@ def _identity(model, sampler: str, chains: int) -> str:
 
 
 def open_chains(model, path, sampler: str, chains: int, overwrite: bool, adaptation: int = 0):
-    """The backend of ``path``, and whether it holds steps of this very fit to resume."""
+    """``(backend, resume, adaptation)``: the backend of ``path``, whether it holds steps of this very fit to
+    resume, and the adaptation steps of its sampler (a resumed file keeps the length it began with)."""
     identity = _identity(model, sampler, chains)
     backend = CheckpointedBackend(str(path))
     if path.exists() and not overwrite:
@@ -127,7 +132,9 @@ def open_chains(model, path, sampler: str, chains: int, overwrite: bool, adaptat
         if backend.initialized and backend.iteration > 0:
             if backend.shape != (chains, model.ndim):
                 raise InputError("the saved chains have another number of chains or walkers", str(path))
-            return backend, True
+            with h5py.File(path, "r") as f:
+                adaptation = int(f.attrs.get("adaptation_steps", 0))
+            return backend, True, adaptation
     backend.reset(chains, model.ndim)
     with h5py.File(path, "a") as f:
         f.attrs["fit_identity"] = identity
@@ -139,7 +146,7 @@ def open_chains(model, path, sampler: str, chains: int, overwrite: bool, adaptat
         f.attrs["common_harmonics"] = model.harmonics if model.section.common != "none" else 0
         f.attrs["red_harmonics"] = model.likelihood.red_harmonics
         f.attrs["dataset_fingerprint"] = fingerprint(model.dataset)
-    return backend, False
+    return backend, False, adaptation
 
 
 def finish(model, backend, sampler: str, adaptation: int = 0) -> FitRun:

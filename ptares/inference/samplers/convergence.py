@@ -83,7 +83,7 @@ def assess(chain: np.ndarray, autocorr_factor: float, effective_samples: float, 
     """
     steps = chain.shape[0]
     tau = autocorr_times(chain[adaptation:] if steps - adaptation > 1 else chain)
-    burn = default_burn(tau, steps, adaptation) if burn is None else min(burn, max(steps - 1, 0))
+    burn = default_burn(tau, steps, adaptation) if burn is None else min(max(burn, adaptation), max(steps - 1, 0))
     kept = chain[burn:]
     with np.errstate(invalid="ignore", divide="ignore"):
         effective = np.where(tau > 0, kept.shape[0] * chain.shape[1] / tau, 0.0)

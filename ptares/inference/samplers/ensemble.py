@@ -16,6 +16,7 @@ import scipy.optimize
 
 from ptares.errors import InputError
 from ptares.inference.samplers.convergence import assess, steps_needed
+from ptares.rng import stream
 
 __all__ = ["run_ensemble", "default_walkers", "CHECK_EVERY"]
 
@@ -53,7 +54,7 @@ def run_ensemble(model, backend, walkers: int, resume: bool, pool, interrupted: 
     if resume:
         start = backend.get_last_sample()
     else:
-        rng = np.random.default_rng(section.seed)
+        rng = stream(section.seed, "ensemble start")
         start = emcee.State(_starting_points(model, walkers, rng),
                             random_state=np.random.RandomState(section.seed % 2**32).get_state())
     done = int(backend.iteration)

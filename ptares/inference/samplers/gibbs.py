@@ -25,9 +25,11 @@ Steps 2b and 3 integrate coefficients out and draw them afresh right after
 chain keeps the posterior invariant and does not suffer the slow "funnel" mixing
 of amplitude and coefficients where the data constrain the coefficients weakly.
 
-The Metropolis proposals of each block are Gaussian; during the first
-:data:`ADAPTATION` iterations their covariance is refitted every
-:data:`SEGMENT` iterations from that chain's own history (2.38^2/d times the
+Each block's Metropolis steps are Gaussian random walks and one draw from the block's
+prior (an independence proposal, so that long tails towards vanishing noise are crossed
+in one step rather than walked).  During the first :data:`ADAPTATION` iterations the
+random walks' covariance is refitted every :data:`SEGMENT` iterations from that chain's
+own history (2.38^2/d times the
 sample covariance; Gelman, Roberts & Gilks 1996), then frozen; the adaptation
 steps are always discarded as burn-in.  Everything a chain needs to continue is
 its last point, its random state and its history, all in the chains file, so a
@@ -53,8 +55,7 @@ from ptares.inference.parameters import (
     WHITE_SCALE,
     for_pulsar,
 )
-from ptares.physics.constants import F_YR
-from ptares.physics.spectra import coefficient_variance, fourier_frequencies
+from ptares.physics.spectra import power_law_factors
 from ptares.rng import stream
 
 __all__ = ["GibbsSampler", "run_gibbs", "adaptation_steps", "ADAPTATION", "SEGMENT", "MOVES"]
@@ -63,27 +64,26 @@ __all__ = ["GibbsSampler", "run_gibbs", "adaptation_steps", "ADAPTATION", "SEGME
 ADAPTATION = 500
 #: Iterations between adaptations, checkpoints and convergence checks.
 SEGMENT = 100
-#: Metropolis proposals per iteration for each kind of block: white-noise steps cost one pass
-#: over a pulsar's TOAs, red-noise steps a small factorisation, common-process steps the
-#: whole array's likelihood.
-MOVES = {"white": 10, "red": 4, "common": 4}
+#: Metropolis proposals per iteration for each kind of block (the last a draw from the prior):
+#: white-noise steps cost one pass over a pulsar's TOAs, red-noise steps a small
+#: factorisation, common-process steps the whole array's likelihood.
+MOVES = {"white": 10, "red": 5, "common": 5}
 
 _LOG_2PI = np.log(2.0 * np.pi)
 _OPTIMAL_SCALE = 2.38**2  # / d: Gelman, Roberts & Gilks (1996)
 
 
 def _unit_power_law(span: float, harmonics: int, size: int):
-    """Coefficient variance of a unit-amplitude flat power law on ``harmonics`` frequencies, zero beyond, and
-    ``ln(f / f_yr)`` (size,): a power law's variance is then ``A^2 unit exp(-gamma log_ratio)``
-    (:func:`ptares.physics.spectra.coefficient_variance`)."""
+    """:func:`~ptares.physics.spectra.power_law_factors` on each sine and cosine column (size,), zero beyond."""
     unit, log_ratio = np.zeros(size), np.zeros(size)
     if harmonics:
-        unit[: 2 * harmonics] = np.repeat(coefficient_variance(span, harmonics, 1.0, 0.0), 2)
-        log_ratio[: 2 * harmonics] = np.repeat(np.log(fourier_frequencies(span, harmonics) / F_YR), 2)
+        factors = power_law_factors(span, harmonics)
+        unit[: 2 * harmonics], log_ratio[: 2 * harmonics] = (np.repeat(f, 2) for f in factors)
     return unit, log_ratio
 
 
 def _power_law(unit, log_ratio, amplitude: float, index: float):
+    """Coefficient variances of a power law from :func:`_unit_power_law`'s factors."""
     return (amplitude * amplitude) * unit * np.exp(-index * log_ratio)
 
 
@@ -101,6 +101,13 @@ class _Block:
         if all(isinstance(p, Uniform) for p in self.priors):
             self._box = ([p.low for p in self.priors], [p.high for p in self.priors],
                          -float(sum(np.log(p.high - p.low) for p in self.priors)))
+
+    def sample_prior(self, rng) -> np.ndarray:
+        """One draw of the block's parameters from their priors."""
+        if self._box is not None:
+            lows, highs, _ = self._box
+            return rng.uniform(lows, highs)
+        return np.array([float(np.ravel(p.sample(rng, 1))[0]) for p in self.priors])
 
     def log_prior(self, values) -> float:
         if self._box is not None:
@@ -140,7 +147,7 @@ class GibbsSampler:
             block.number = number
         self._index = index
         # per pulsar, where each noise quantity is: (position in x, or -1 and its held value)
-        self._slots = [[(index[k], 0.0) if k in index else (-1, float(model.values.get(k, -np.inf)))
+        self._slots = [[(index[k], 0.0) if k in index else (-1, float(model.values[k]))
                         for k in (for_pulsar(q, pulsar) for q in (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX))]
                        for pulsar in names]
         self._names = names
@@ -190,8 +197,8 @@ class GibbsSampler:
         """ln p(r_p | its coefficients ~ N(mean, diag variance)) up to white-noise terms, and with
         ``rng`` also a draw of the coefficients given the data (None where Sigma is not positive definite)."""
         noise = None if rng is None else rng.standard_normal(variance.size)
-        value, draw = kernels.collapsed(pieces[0], pieces[1], pieces[2], mean, variance, noise)
-        return value, (draw if draw.size else None)
+        value, draw = kernels.collapsed(pieces.FNF, pieces.FNr, pieces.rNr, mean, variance, noise)
+        return value, (None if value == -np.inf or rng is None else draw)
 
     # --- conditional prior of one pulsar's coefficients given the others' (Hellings–Downs) ---
     def _common_inverse(self, red, common):
@@ -216,8 +223,17 @@ class GibbsSampler:
         others = coefficients[:, : 2 * K]  # (P, 2K)
         mean[0: 2 * K: 2] = -np.einsum("kb,bk->k", row, others[:, 0::2]) / own
         mean[1: 2 * K: 2] = -np.einsum("kb,bk->k", row, others[:, 1::2]) / own
-        total = np.repeat(1.0 / own, 2)
-        variance[: 2 * K] = np.maximum(total - red[p, : 2 * K], 0.0)
+        # variance of the common part given the others, phi_k - phi_k^2 g^T G^-1 g (g: pulsar p's correlations with
+        # the others, G: their Phi_k), with G^-1 = H_-p,-p - h h^T / H_pp from the inverse H of the whole Phi_k;
+        # written so that pulsar p's own red variance never enters (1/H_pp - red_p would lose all digits when the
+        # red noise dwarfs the common process)
+        g = self.likelihood.gamma_matrix[p].copy()
+        g[p] = 0.0
+        phi = common[0: 2 * K: 2]
+        quadratic = np.einsum("a,kab,b->k", g, inverse, g)
+        cross = inverse[:, :, p] @ g
+        conditional = phi - phi**2 * (quadratic - cross**2 / own)
+        variance[: 2 * K] = np.repeat(np.maximum(conditional, 0.0), 2)
         return mean, variance
 
     @staticmethod
@@ -230,20 +246,28 @@ class GibbsSampler:
     # --- Metropolis ----------------------------------------------------------
     @staticmethod
     def _metropolis(block, x, log_density, current, proposal, rng):
-        """``block.moves`` random-walk Metropolis steps of ``block`` on ``x`` (in place); returns (value, accepted)."""
+        """``block.moves`` Metropolis steps of ``block`` on ``x`` (in place); returns (value, accepted).
+
+        All but the last are Gaussian random-walk steps; the last proposes a fresh draw from the block's
+        prior (an independence proposal, accepted with the likelihood ratio), which crosses the long
+        flat tails that posteriors of noise amplitudes have towards "no such noise" in a single step.
+        """
         accepted = 0
-        steps = rng.standard_normal((block.moves, block.indices.size)) @ np.linalg.cholesky(proposal).T
+        walks = block.moves - 1
+        steps = rng.standard_normal((walks, block.indices.size)) @ np.linalg.cholesky(proposal).T
         thresholds = np.log(rng.uniform(size=block.moves))
         here = x[block.indices].copy()
         here_prior = block.log_prior(here)
-        for step, threshold in zip(steps, thresholds):
-            trial = here + step
+        for move, threshold in enumerate(thresholds):
+            independent = move == walks
+            trial = block.sample_prior(rng) if independent else here + steps[move]
             prior = block.log_prior(trial)
             if prior == -np.inf:
                 continue
             x[block.indices] = trial
             value = log_density(x)
-            if threshold < (value + prior) - (current + here_prior):
+            ratio = value - current if independent else (value + prior) - (current + here_prior)
+            if threshold < ratio:
                 current, here, here_prior, accepted = value, trial, prior, accepted + 1
         x[block.indices] = here
         return current, accepted
@@ -273,7 +297,7 @@ class GibbsSampler:
                 _, hits = self._metropolis(white, x, white_density, current, proposals[white.number], rng)
                 accepted, proposed = accepted + hits, proposed + white.moves
                 scale, quadrature = self._white_values(x, p)
-            pieces = lk._projected(p, scale, quadrature)
+            pieces = lk.projected(p, scale, quadrature)
             mean, base = self._conditional_prior(p, coefficients, red, common, inverse)
             if red_block is not None:
 
@@ -310,12 +334,12 @@ class GibbsSampler:
     def _uncorrelated(self, red, x):
         """The uncorrelated model's likelihood as a function of the common process alone (noise held)."""
         lk = self.likelihood
-        pieces = [lk._projected(p, scale, quadrature)
+        pieces = [lk.projected(p, scale, quadrature)
                   for p, (scale, quadrature) in enumerate(zip(*self._white_arrays(x)))]
-        FNF = np.stack([piece[0] for piece in pieces])
-        FNr = np.stack([piece[1] for piece in pieces])
-        rNr = np.array([piece[2] for piece in pieces])
-        constant = -0.5 * sum(piece[3] + piece[4] * _LOG_2PI for piece in pieces)
+        FNF = np.stack([piece.FNF for piece in pieces])
+        FNr = np.stack([piece.FNr for piece in pieces])
+        rNr = np.array([piece.rNr for piece in pieces])
+        constant = -0.5 * sum(piece.log_det + piece.dof * _LOG_2PI for piece in pieces)
 
         def log_likelihood(y):
             common = self._common_variance(y)
@@ -418,60 +442,70 @@ class _Step:
         self.coords, self.log_prob, self.random_state = coords, log_prob, random_state
 
 
-def run_gibbs(model, backend, chains: int, resume: bool, pool_size: int, interrupted: list, bar) -> None:
+def run_gibbs(model, backend, chains: int, resume: bool, pool_size: int, interrupted: list, bar, adaptation: int) -> None:
     """Advance ``chains`` independent Gibbs chains in ``backend`` until the convergence rule holds,
-    ``max_steps``, or an interrupt; segments of the chains run in ``pool_size`` processes when above 1."""
+    ``max_steps``, or an interrupt; segments of the chains run in ``pool_size`` processes when above 1.
+
+    After each segment the file gets the steps and, in its ``random_state`` attribute, the step count, every
+    chain's generator state and the autocorrelation times of the convergence check, so that a resumed run
+    makes the same decisions as an uninterrupted one.
+    """
     from ptares.inference.samplers.convergence import assess, steps_needed
 
     section = model.section
     sampler = GibbsSampler(model)
-    adaptation = adaptation_steps(section)
-    backend._seconds, backend._steps = np.inf, 2**62  # written whole segments at a time, with their random states
+    backend.flush_only_on_request()  # whole segments at a time, with their random states
+    chain = _Growing(chains, model.ndim)
     if resume:
-        chain = backend.get_chain()
-        points, states = chain[-1].copy(), json.loads(backend.saved_random_state())
+        chain.extend(backend.get_chain())
+        saved = json.loads(backend.saved_random_state())
+        if saved.get("step") != backend.iteration:
+            raise InputError("was cut off while being written (its random state is not that of its last step); "
+                             "move it away to start afresh", str(backend.filename))
+        points, states = chain.array[-1].copy(), saved["chains"]
+        verdict = assess(chain.array, section.autocorr_factor, section.effective_samples, True, section.burn,
+                         min(adaptation, backend.iteration), previous_tau=saved["checked_with"])
+        previous = saved["tau"]
+        if verdict.converged and backend.iteration >= adaptation:
+            bar.update(backend.iteration)
+            return
     else:
-        chain = np.empty((0, chains, model.ndim))
         points, states = _starting_points(model, chains, section.seed), [random_state(section.seed, c) for c in range(chains)]
+        previous = np.inf
     done = int(backend.iteration)
     bar.update(done)
-    previous = np.inf
-    if resume and (done >= section.max_steps or assess(chain, section.autocorr_factor, section.effective_samples, True,
-                                                       section.burn, min(adaptation, done)).converged):
-        return
     pool = None
-    if pool_size > 1:
+    if pool_size > 1 and chains > 1:
         import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor
 
         from ptares.threads import current_threads, worker_initializer
 
-        pool = multiprocessing.get_context("spawn").Pool(min(pool_size, chains), initializer=worker_initializer,
-                                                         initargs=(current_threads(), _start_worker, model))
+        pool = ProcessPoolExecutor(min(pool_size, chains), mp_context=multiprocessing.get_context("spawn"),
+                                   initializer=worker_initializer, initargs=(current_threads(), _start_worker, model))
     try:
         while done < section.max_steps and not interrupted:
             iterations = min(SEGMENT - done % SEGMENT, section.max_steps - done)
             adapted = min(done // SEGMENT * SEGMENT, adaptation)
-            proposals = [sampler.proposals(chain[:adapted, c] if adapted else None) for c in range(chains)]
+            proposals = [sampler.proposals(chain.array[:adapted, c] if adapted else None) for c in range(chains)]
             jobs = [(points[c], states[c], proposals[c], iterations) for c in range(chains)]
-            if pool is not None:
-                results = pool.starmap(_segment_in_worker, jobs)
-            else:
-                results = [sampler.run_segment(*job) for job in jobs]
+            results = _run_segments(pool, sampler, jobs)
             segment = np.stack([r[0] for r in results], axis=1)  # (iterations, chains, ndim)
             values = np.stack([r[1] for r in results], axis=1)
             acceptance = np.stack([r[2] for r in results], axis=1)
             states = [r[3] for r in results]
-            for i in range(iterations):
-                backend.save_step(_Step(segment[i], values[i], json.dumps(states) if i == iterations - 1 else None),
-                                  acceptance[i])
-            backend.flush()
-            chain = np.concatenate([chain, segment])
+            chain.extend(segment)
             points = segment[-1].copy()
             done += iterations
-            bar.update(iterations)
-            verdict = assess(chain, section.autocorr_factor, section.effective_samples, True, section.burn,
+            verdict = assess(chain.array, section.autocorr_factor, section.effective_samples, True, section.burn,
                              min(adaptation, done), previous_tau=previous)
+            record = json.dumps({"step": done, "chains": states, "checked_with": previous,
+                                 "tau": float(np.max(verdict.autocorr_time))})
+            for i in range(iterations):
+                backend.save_step(_Step(segment[i], values[i], record if i == iterations - 1 else None), acceptance[i])
+            backend.flush()
             previous = float(np.max(verdict.autocorr_time))
+            bar.update(iterations)
             bar.total = min(section.max_steps, steps_needed(verdict, done, chains, section.autocorr_factor,
                                                             section.effective_samples, adaptation))
             bar.refresh()
@@ -479,4 +513,38 @@ def run_gibbs(model, backend, chains: int, resume: bool, pool_size: int, interru
                 break
     finally:
         if pool is not None:
-            pool.terminate()
+            pool.shutdown(cancel_futures=True)
+
+
+def _run_segments(pool, sampler, jobs) -> list:
+    """Each chain's segment, here or in the pool's processes."""
+    if pool is None:
+        return [sampler.run_segment(*job) for job in jobs]
+    from concurrent.futures.process import BrokenProcessPool
+
+    try:
+        return list(pool.map(_segment_in_worker, *zip(*jobs)))
+    except BrokenProcessPool:
+        raise InputError("a worker process died (out of memory?); the chains so far are kept, "
+                         "rerun the same command to continue", "fit.workers") from None
+
+
+class _Growing:
+    """A (steps, chains, parameters) array that grows by doubling, so appending segments stays cheap."""
+
+    def __init__(self, chains: int, ndim: int):
+        self._data = np.empty((1024, chains, ndim))
+        self._size = 0
+
+    def extend(self, rows: np.ndarray) -> None:
+        needed = self._size + len(rows)
+        if needed > len(self._data):
+            grown = np.empty((max(needed, 2 * len(self._data)),) + self._data.shape[1:])
+            grown[: self._size] = self._data[: self._size]
+            self._data = grown
+        self._data[self._size: needed] = rows
+        self._size = needed
+
+    @property
+    def array(self) -> np.ndarray:
+        return self._data[: self._size]
