@@ -155,6 +155,13 @@ THREADS_HELP = (f"BLAS and numba threads per process, workers included (default 
                 "more only pays on cores nothing else uses)")
 
 
+def _engine_options(command) -> None:
+    """Where the tasks of a resumable many-task command run, and whether to start afresh."""
+    command.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
+    command.add_argument("--scheduler", help="address of a Dask scheduler (instead of local workers)")
+    command.add_argument("--overwrite", action="store_true", help="discard earlier results of this directory")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="ptares", description="Pulsar-timing-array residual modeller.")
     parser.add_argument("--version", action="version", version=f"ptares {__version__}")
@@ -215,18 +222,14 @@ def build_parser() -> argparse.ArgumentParser:
     noise.add_argument("--config", help="TOML file whose [fit] table holds the noise model and sampler settings")
     noise.add_argument("--max-steps", type=int, help="most steps per pulsar (rerun with more to extend)")
     noise.add_argument("--seed", type=int, help="seed of the samplers")
-    noise.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
-    noise.add_argument("--scheduler", help="address of a Dask scheduler (instead of local workers)")
-    noise.add_argument("--overwrite", action="store_true", help="discard earlier results of this directory")
+    _engine_options(noise)
     noise.set_defaults(run=_noise)
 
     sweep = commands.add_parser("sweep", parents=[common],
                                 help="injection-recovery campaign over a [sweep] grid, resumable")
     sweep.add_argument("config", help="TOML config with a [sweep] table")
     sweep.add_argument("--out", required=True, help="output directory (tasks/, results.csv, figures)")
-    sweep.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
-    sweep.add_argument("--scheduler", help="address of a Dask scheduler (instead of local workers)")
-    sweep.add_argument("--overwrite", action="store_true", help="discard earlier results of this directory")
+    _engine_options(sweep)
     sweep.set_defaults(run=_sweep)
 
     imp = commands.add_parser("import", parents=[common],

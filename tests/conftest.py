@@ -70,3 +70,16 @@ def assert_same_pulsars(first, second):
         assert a.injected.keys() == b.injected.keys()
         for key in a.injected:
             np.testing.assert_array_equal(a.injected[key], b.injected[key])
+
+
+def parallel_map(function, items, workers: int = 2) -> list:
+    """``[function(item) for item in items]`` in ``workers`` spawned processes with one BLAS/numba thread each,
+    for many-realisation tests (CI has two cores); ``function`` must be a module-level function."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    from ptares.threads import pin_process
+
+    with ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"), initializer=pin_process,
+                             initargs=(1,)) as pool:
+        return list(pool.map(function, items))

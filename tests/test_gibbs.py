@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 import scipy.linalg
 import scipy.stats
-from conftest import small_config
+from conftest import parallel_map, small_config
 
 from ptares.errors import InputError
 from ptares.inference import kernels
@@ -126,6 +126,11 @@ def test_sampler_is_chosen_by_size_and_refuses_what_it_cannot_sample():
         GibbsSampler(FitModel(data, FitSection(sampler="gibbs", binary=True, binary_values={"lg_frequency": -8.0, "right_ascension": 1.0, "declination_sine": 0.1})))
 
 
+def _run(job):
+    model, path = job
+    return run_sampler(model, path)
+
+
 @pytest.mark.statistical
 def test_gibbs_posterior_of_the_common_process_agrees_with_emcee(tmp_path):
     """6 pulsars, each pulsar's red noise and the common process free (14 parameters): the Gibbs posterior mean
@@ -147,8 +152,7 @@ def test_gibbs_posterior_of_the_common_process_agrees_with_emcee(tmp_path):
     common = dict(red="free", red_harmonics=6, effective_samples=1500, seed=3, priors=priors)
     gibbs = FitModel(data, FitSection(sampler="gibbs", gibbs_chains=2, max_steps=6000, **common))
     ensemble = FitModel(data, FitSection(sampler="ensemble", start="map", walkers=32, max_steps=7000, **common))
-    g_run = run_sampler(gibbs, tmp_path / "g.h5")
-    e_run = run_sampler(ensemble, tmp_path / "e.h5")
+    g_run, e_run = parallel_map(_run, [(gibbs, tmp_path / "g.h5"), (ensemble, tmp_path / "e.h5")])
     g_summary, e_summary = summarise(gibbs, g_run), summarise(ensemble, e_run)
     assert g_summary["converged"], g_summary["not_converged_because"]
     g, e = posterior_draws(g_run.chain, g_summary["burn"]), posterior_draws(e_run.chain, e_summary["burn"])
@@ -163,37 +167,48 @@ def test_gibbs_posterior_of_the_common_process_agrees_with_emcee(tmp_path):
         assert abs(sd_g - sd_e) < 4 * np.sqrt(sd_g**2 / (2 * ess_g) + sd_e**2 / (2 * ess_e)), name
 
 
+PP_PRIORS = {"white_scale": {"uniform": [0.5, 2.0]}, "red_lg_amplitude": {"uniform": [-14.5, -13.0]},
+             "red_spectral_index": {"uniform": [2.0, 5.0]}, "common_lg_amplitude": {"uniform": [-14.5, -13.5]},
+             "common_spectral_index": {"uniform": [3.0, 5.5]}}
+
+
+def _posterior_quantiles(job) -> dict:
+    """One P-P injection (a worker of the calibration test): quantity -> quantiles of the true values."""
+    injection, folder = job
+    rng = np.random.default_rng([20, injection])
+    lg_a, index = rng.uniform(-14.5, -13.5), rng.uniform(3.0, 5.5)
+    config = small_config(
+        run={"name": "pp", "seed": 1000 + injection},
+        array={"random": {"count": 3}},
+        observing={"start": 53000, "span": 6.0, "cadence": 40.0, "toa_error": 0.5},
+        noise={"white": {"scale": {"uniform": [0.5, 2.0]}},
+               "red": {"amplitude": {"log_uniform": [10**-14.5, 1e-13]}, "spectral_index": {"uniform": [2.0, 5.0]},
+                       "harmonics": 6}},
+        gwb={"amplitude": 10**lg_a, "spectral_index": index, "harmonics": 6},
+    )
+    data = simulate(config)
+    section = FitSection(sampler="gibbs", white="free", red="free", red_harmonics=6, harmonics=6, gibbs_chains=1,
+                         max_steps=800, effective_samples=0, priors=PP_PRIORS, seed=injection,
+                         fixed={"white_lg_quadrature": -np.inf})
+    model = FitModel(data, section)
+    run = run_sampler(model, folder / f"pp{injection}.h5")
+    draws = posterior_draws(run.chain, run.convergence.burn)
+    quantiles = {}
+    for i, name in enumerate(model.names):
+        quantiles.setdefault(name.split("@")[0], []).append(float(np.mean(draws[:, i] < model.injected[name])))
+    return quantiles
+
+
 @pytest.mark.statistical
 def test_gibbs_posteriors_are_calibrated_over_injections(tmp_path):
     """P-P test: 50 injections drawn from the fit's priors (3 pulsars; white scale, red noise and the common
     process free: 11 parameters).  The posterior quantile of each true value is uniform when the posterior is
     calibrated; a Kolmogorov-Smirnov test (scipy.stats.kstest) of each quantity's pooled quantiles must not
     reject uniformity at 0.2% (5 quantities: a 1% family-wise false-alarm rate, Bonferroni)."""
-    rng = np.random.default_rng(20)
-    priors = {"white_scale": {"uniform": [0.5, 2.0]}, "red_lg_amplitude": {"uniform": [-14.5, -13.0]},
-              "red_spectral_index": {"uniform": [2.0, 5.0]}, "common_lg_amplitude": {"uniform": [-14.5, -13.5]},
-              "common_spectral_index": {"uniform": [3.0, 5.5]}}
-    quantiles = {key: [] for key in priors}
-    for injection in range(50):
-        lg_a, index = rng.uniform(-14.5, -13.5), rng.uniform(3.0, 5.5)
-        config = small_config(
-            run={"name": "pp", "seed": 1000 + injection},
-            array={"random": {"count": 3}},
-            observing={"start": 53000, "span": 6.0, "cadence": 40.0, "toa_error": 0.5},
-            noise={"white": {"scale": {"uniform": [0.5, 2.0]}},
-                   "red": {"amplitude": {"log_uniform": [10**-14.5, 1e-13]}, "spectral_index": {"uniform": [2.0, 5.0]},
-                           "harmonics": 6}},
-            gwb={"amplitude": 10**lg_a, "spectral_index": index, "harmonics": 6},
-        )
-        data = simulate(config)
-        section = FitSection(sampler="gibbs", white="free", red="free", red_harmonics=6, harmonics=6, gibbs_chains=1,
-                             max_steps=800, effective_samples=0, priors=priors, seed=injection,
-                             fixed={"white_lg_quadrature": -np.inf})
-        model = FitModel(data, section)
-        run = run_sampler(model, tmp_path / f"pp{injection}.h5")
-        draws = posterior_draws(run.chain, run.convergence.burn)
-        for i, name in enumerate(model.names):
-            quantiles[name.split("@")[0]].append(float(np.mean(draws[:, i] < model.injected[name])))
+    quantiles = {key: [] for key in PP_PRIORS}
+    for result in parallel_map(_posterior_quantiles, [(i, tmp_path) for i in range(50)]):
+        for key, values in result.items():
+            quantiles[key] += values
     for key, values in quantiles.items():
         assert scipy.stats.kstest(values, "uniform").pvalue > 0.002, (key, sorted(np.round(values, 2)))
 

@@ -18,7 +18,7 @@ from ptares.simulation.simulate import simulate
 def noisy_array(seed=2):
     config = small_config(
         array={"random": {"count": 3}},
-        observing={"start": 53000, "span": 6.0, "cadence": 20.0, "toa_error": 0.5},
+        observing={"start": 53000, "span": 6.0, "cadence": 30.0, "toa_error": 0.5},
         noise={"white": {"scale": 1.5}, "red": {"amplitude": 3e-14, "spectral_index": 3.0, "harmonics": 6}},
         gwb=None,
     )

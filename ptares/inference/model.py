@@ -310,18 +310,23 @@ class FitModel:
         )
         return self._layout.residuals([source])
 
-    def log_likelihood(self, x) -> float:
-        v = self.parameters(x)
+    def physical(self, x, values: dict | None = None) -> dict:
+        """The likelihood's arguments at ``x``: per-pulsar ``white_scale``, ``white_quadrature`` (s),
+        ``red_amplitude``, ``red_spectral_index``, and the common ``amplitude`` and ``gamma``."""
+        v = self.parameters(x) if values is None else values
         names = self.dataset.names
-        value = self.likelihood(
+        return dict(
             white_scale=np.array([v[for_pulsar(WHITE_SCALE, n)] for n in names]),
             white_quadrature=np.array([10 ** v[for_pulsar(WHITE_QUADRATURE, n)] for n in names]),
             red_amplitude=np.array([10 ** v[for_pulsar(RED_AMPLITUDE, n)] for n in names]),
             red_spectral_index=np.array([v[for_pulsar(RED_INDEX, n)] for n in names]),
             amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
             gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
-            signal=self._signal(v),
         )
+
+    def log_likelihood(self, x) -> float:
+        v = self.parameters(x)
+        value = self.likelihood(**self.physical(x, v), signal=self._signal(v))
         if np.isnan(value):
             raise ArithmeticError(f"the likelihood is NaN at {dict(zip(self.names, x))}")
         return value

@@ -45,7 +45,6 @@ import numpy as np
 from ptares.errors import InputError
 from ptares.inference import kernels
 from ptares.inference.likelihood import NotPositiveDefinite
-from ptares.inference.priors import Uniform
 from ptares.inference.parameters import (
     COMMON_AMPLITUDE,
     COMMON_INDEX,
@@ -55,6 +54,7 @@ from ptares.inference.parameters import (
     WHITE_SCALE,
     for_pulsar,
 )
+from ptares.inference.priors import Uniform
 from ptares.physics.spectra import power_law_factors
 from ptares.rng import stream
 
@@ -157,28 +157,15 @@ class GibbsSampler:
         self._common_unit, self._common_log_ratio = _unit_power_law(lk.span, lk.harmonics, lk.size)
 
     # --- parameters ----------------------------------------------------------
-    def _physical(self, x):
-        """Per-pulsar white scale, quadrature (s), red amplitude and index; common amplitude and index."""
-        v = self.model.parameters(x)
-        names = self._names
-        return dict(
-            white_scale=np.array([v[for_pulsar(WHITE_SCALE, n)] for n in names]),
-            white_quadrature=np.array([10 ** v[for_pulsar(WHITE_QUADRATURE, n)] for n in names]),
-            red_amplitude=np.array([10 ** v[for_pulsar(RED_AMPLITUDE, n)] for n in names]),
-            red_spectral_index=np.array([v[for_pulsar(RED_INDEX, n)] for n in names]),
-            amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
-            gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
-        )
-
     def _red_variance(self, amplitude, index):
         """Prior variance of one pulsar's coefficients from its red noise, zero beyond its frequencies (size,)."""
         return _power_law(self._red_unit, self._red_log_ratio, amplitude, index)
 
     def _common_variance(self, x):
-        """Prior variance of each pulsar's coefficients from the common process (size,)."""
-        amplitude = 10 ** self._value(x, COMMON_AMPLITUDE) if self.common_block is not None or COMMON_AMPLITUDE in \
-            self.model.values else 0.0
-        index = self._value(x, COMMON_INDEX) if COMMON_INDEX in self._index or COMMON_INDEX in self.model.values else 13 / 3
+        """Prior variance of each pulsar's coefficients from the common process (size,; zero without one)."""
+        if COMMON_AMPLITUDE not in self.model.values:  # common = "none"
+            return np.zeros_like(self._common_unit)
+        amplitude, index = 10 ** self._value(x, COMMON_AMPLITUDE), self._value(x, COMMON_INDEX)
         return _power_law(self._common_unit, self._common_log_ratio, amplitude, index)
 
     def _white_arrays(self, x):
@@ -276,7 +263,7 @@ class GibbsSampler:
     def iterate(self, x, rng, proposals):
         """One Gibbs iteration from ``x`` (changed in place); returns (log posterior at the new x, acceptance)."""
         lk = self.likelihood
-        theta = self._physical(x)
+        theta = self.model.physical(x)
         red = np.stack([self._red_variance(a, i) for a, i in zip(theta["red_amplitude"], theta["red_spectral_index"])])
         common = self._common_variance(x)
         coefficients = lk.draw_coefficients(rng, **theta)
