@@ -74,7 +74,7 @@ def _fit(args) -> int:
     print(f"{summary['sampler']} sampler, {result.steps} steps, fewest effective samples "
           f"{summary['effective_samples']:.0f}{rhat}; {state}")
     print(f"wrote {result.out / 'posterior.json'}, corner.png, trace.png")
-    for name in result.names[:8]:
+    for name in sorted(result.names, key=lambda n: "@" in n)[:8]:  # array-wide parameters first
         entry = result.parameters[name]
         low, high = entry["interval68"]
         print(f"  {name:28s} {entry['median']:+.4g}  68%: [{low:+.4g}, {high:+.4g}]")

@@ -295,7 +295,11 @@ def trace_figure(chain, names, burn: int = 0, injected=None, converged: bool = T
         words.append("orange: injected")
     if len(names) > len(shown):
         words.append(f"{len(shown)} of {len(names)} parameters")
-    axes[0, 0].set_title(f"{noun.capitalize()} traces: " + "; ".join(words), fontsize=9, loc="left")
+    title = f"{noun.capitalize()} traces: " + "; ".join(words)
+    if len(title) > 60:  # two lines, clear of the stamp on the right
+        middle = len(words) // 2
+        title = f"{noun.capitalize()} traces: " + "; ".join(words[:middle]) + ";\n" + "; ".join(words[middle:])
+    axes[0, 0].set_title(title, fontsize=9, loc="left")
     if not converged:
         axes[0, 0].set_title(NOT_CONVERGED, loc="right", fontsize=12, fontweight="bold", color=_STAMP,
                              bbox={"boxstyle": "round,pad=0.3", "facecolor": "white", "edgecolor": _STAMP, "linewidth": 1.8})

@@ -118,7 +118,7 @@ def _identity(model, sampler: str, chains: int) -> str:
 
 def open_chains(model, path, sampler: str, chains: int, overwrite: bool, adaptation: int = 0):
     """``(backend, resume, adaptation)``: the backend of ``path``, whether it holds steps of this very fit to
-    resume, and the adaptation steps of its sampler (a resumed file keeps the length it began with)."""
+    resume, and the adaptation steps of its sampler (a resumed file keeps at least the length it began with)."""
     identity = _identity(model, sampler, chains)
     backend = CheckpointedBackend(str(path))
     if path.exists() and not overwrite:
@@ -132,8 +132,10 @@ def open_chains(model, path, sampler: str, chains: int, overwrite: bool, adaptat
         if backend.initialized and backend.iteration > 0:
             if backend.shape != (chains, model.ndim):
                 raise InputError("the saved chains have another number of chains or walkers", str(path))
-            with h5py.File(path, "r") as f:
-                adaptation = int(f.attrs.get("adaptation_steps", 0))
+            # a rerun with a larger max_steps may adapt for longer (those steps are burnt too); never shorter
+            with h5py.File(path, "a") as f:
+                adaptation = max(int(f.attrs.get("adaptation_steps", 0)), adaptation)
+                f.attrs["adaptation_steps"] = adaptation
             return backend, True, adaptation
     backend.reset(chains, model.ndim)
     with h5py.File(path, "a") as f:
