@@ -70,3 +70,15 @@ def test_residual_variance_check_value():
     log_low = np.log(1 / span)
     integral, _ = quad(lambda x: residual_psd(np.exp(x), 2.4e-15, 13 / 3) * np.exp(x), log_low, log_low + 40, epsabs=0.0, epsrel=1e-10)
     assert np.sqrt(integral) == pytest.approx(348e-9, abs=0.5e-9)
+
+
+def test_power_law_factors_give_the_power_law():
+    """A^2 unit exp(-gamma log_ratio) from power_law_factors equals coefficient_variance (the PHYSICS.md power law
+    S(f) = A^2 / (12 pi^2) f_yr^-3 (f / f_yr)^-gamma divided by T) for several amplitudes and indices."""
+    from ptares.physics.spectra import power_law_factors
+
+    span = 12.5 * YEAR
+    unit, log_ratio = power_law_factors(span, 20)
+    for amplitude, gamma in ((1e-15, 13 / 3), (3e-14, 1.5), (2e-16, 6.0)):
+        expected = amplitude**2 / (12 * np.pi**2) * F_YR**-3 * (np.arange(1, 21) / span / F_YR) ** -gamma / span
+        np.testing.assert_allclose(amplitude**2 * unit * np.exp(-gamma * log_ratio), expected, rtol=1e-12)
