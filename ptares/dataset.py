@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import os
 import tempfile
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import h5py
@@ -102,6 +102,10 @@ class Dataset:
             if p.name == name:
                 return p
         raise KeyError(name)
+
+    def subset(self, names) -> "Dataset":
+        """The same run with only the pulsars ``names``, in that order (start, span, signals and provenance kept)."""
+        return replace(self, pulsars=[self.pulsar(n) for n in names])
 
     @property
     def toa_count(self) -> int:

@@ -58,11 +58,8 @@ def noise_tasks(dataset: Dataset, section: FitSection, out: Path) -> list:
         raise InputError(f"the dataset has no pulsar(s) {', '.join(missing)}", "fit.pulsars")
     tasks = []
     for name in names:
-        one = Dataset(pulsars=[dataset.pulsar(name)], config=dataset.config, seed=dataset.seed,
-                      ptares_version=dataset.ptares_version, created=dataset.created, start_mjd=dataset.start_mjd,
-                      span=dataset.span, signals=dataset.signals)
-        tasks.append(NoiseTask(name, one, _single_pulsar_section(section, name), out / "pulsars" / f"{name}.h5",
-                               pulsar_fingerprint(dataset, name)))
+        tasks.append(NoiseTask(name, dataset.subset([name]), _single_pulsar_section(section, name),
+                               out / "pulsars" / f"{name}.h5", pulsar_fingerprint(dataset, name)))
     return tasks
 
 

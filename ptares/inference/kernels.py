@@ -29,26 +29,6 @@ _LOG_2PI = math.log(2.0 * math.pi)
 
 
 @numba.njit(cache=True, error_model="numpy")
-def _cholesky(matrix):  # pragma: no cover - compiled
-    """Lower Cholesky factor in place; False where the matrix is not positive definite."""
-    size = matrix.shape[0]
-    for j in range(size):
-        total = matrix[j, j]
-        for k in range(j):
-            total -= matrix[j, k] * matrix[j, k]
-        if not total > 0.0:
-            return False
-        root = math.sqrt(total)
-        matrix[j, j] = root
-        for i in range(j + 1, size):
-            total = matrix[i, j]
-            for k in range(j):
-                total -= matrix[i, k] * matrix[j, k]
-            matrix[i, j] = total / root
-    return True
-
-
-@numba.njit(cache=True, error_model="numpy")
 def _factor(matrix):  # pragma: no cover - compiled
     """(lower Cholesky factor by LAPACK, True), or (matrix, False) where it is not positive definite."""
     try:
@@ -101,12 +81,16 @@ def _white_log_likelihood(errors, residual, design, scale, quadrature, log_det_m
             for k in range(j + 1):
                 MNM[j, k] += mw * design[i, k]
     if m:
-        if not _cholesky(MNM):
+        for j in range(m):  # filled below the diagonal only
+            for k in range(j):
+                MNM[k, j] = MNM[j, k]
+        lower, ok = _factor(MNM)
+        if not ok:
             return -np.inf
-        whitened = _forward(MNM, MNr)
+        whitened = _forward(lower, MNr)
         for j in range(m):
             value -= whitened[j] * whitened[j]
-            log_det += 2.0 * math.log(MNM[j, j])
+            log_det += 2.0 * math.log(lower[j, j])
         log_det -= log_det_mtm
     return -0.5 * (value + log_det + (n - m) * _LOG_2PI)
 
@@ -161,7 +145,7 @@ def _collapsed(FNF, FNr, rNr, mean, variance, noise):  # pragma: no cover - comp
             for j in range(size):
                 quadratic += mean[i] * FNF[i, j] * mean[j]
     draw = np.empty(0)
-    for a in range(count):  # LAPACK reads the lower triangle only; numba's wrapper wants it symmetric
+    for a in range(count):  # filled below the diagonal only
         for b in range(a):
             sigma[b, a] = sigma[a, b]
     sigma, ok = _factor(sigma)

@@ -255,7 +255,7 @@ class Likelihood:
                  signal=None) -> float:
         pieces = self._pieces(white_scale, white_quadrature, signal)
         red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
-        constant = sum(-0.5 * (piece[3] + piece[4] * _LOG_2PI) - 0.5 * piece[2] for piece in pieces)
+        constant = sum(-0.5 * (piece.log_det + piece.dof * _LOG_2PI) - 0.5 * piece.rNr for piece in pieces)
         factors = self._factorise(pieces, red, common)
         return constant + 0.5 * factors.quadratic - 0.5 * factors.log_det
 

@@ -136,11 +136,7 @@ def _subset(dataset: Dataset, names) -> Dataset:
         raise InputError(f"the dataset has no pulsar(s) {', '.join(missing)}", "fit.pulsars")
     if len(names) < 1:
         raise InputError("names no pulsars", "fit.pulsars")
-    return Dataset(
-        pulsars=[dataset.pulsar(n) for n in names], config=dataset.config, seed=dataset.seed,
-        ptares_version=dataset.ptares_version, created=dataset.created, start_mjd=dataset.start_mjd,
-        span=dataset.span, signals=dataset.signals,
-    )
+    return dataset.subset(names)
 
 
 class FitModel:

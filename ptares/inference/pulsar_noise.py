@@ -33,10 +33,7 @@ def summary_of_draws(values: np.ndarray) -> dict:
 
 def pulsar_fingerprint(dataset: Dataset, name: str) -> str:
     """A hash of what a fit of pulsar ``name`` alone reads from ``dataset``."""
-    one = Dataset(pulsars=[dataset.pulsar(name)], config=dataset.config, seed=dataset.seed,
-                  ptares_version=dataset.ptares_version, created=dataset.created, start_mjd=dataset.start_mjd,
-                  span=dataset.span, signals=dataset.signals)
-    return fingerprint(one)
+    return fingerprint(dataset.subset([name]))
 
 
 def read_pulsar_noise(path, dataset: Dataset, where: str = "fit.pulsar_noise") -> dict:

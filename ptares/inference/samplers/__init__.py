@@ -40,7 +40,7 @@ def run_sampler(model, path, progress: bool = False, overwrite: bool = False):
     if sampler == "gibbs":
         from ptares.inference.samplers.gibbs import GibbsSampler, adaptation_steps, run_gibbs
 
-        GibbsSampler(model)  # refuses models it has no step for, before anything is written
+        gibbs = GibbsSampler(model)  # refuses models it has no step for, before anything is written
         chains, adaptation = section.gibbs_chains, adaptation_steps(section)
     else:
         from ptares.inference.samplers.ensemble import default_walkers, run_ensemble
@@ -64,7 +64,7 @@ def run_sampler(model, path, progress: bool = False, overwrite: bool = False):
     try:
         with bar:
             if sampler == "gibbs":
-                run_gibbs(model, backend, chains, resume, section.workers, interrupted, bar, adaptation)
+                run_gibbs(gibbs, backend, chains, resume, section.workers, interrupted, bar, adaptation)
             else:
                 pool = None
                 if section.workers > 1:

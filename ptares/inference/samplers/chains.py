@@ -60,8 +60,6 @@ class CheckpointedBackend(emcee.backends.HDFBackend):
             g = f[self.name]
             start = int(g.attrs["iteration"])
             stop = start + len(coords)
-            if g["chain"].shape[0] < stop:
-                self._grow(g, stop)
             g["chain"][start:stop] = np.stack(coords)
             g["log_prob"][start:stop] = np.stack(log_prob)
             g["accepted"][:] += np.sum(accepted, axis=0)
@@ -72,11 +70,6 @@ class CheckpointedBackend(emcee.backends.HDFBackend):
                     g.attrs[f"random_state_{i}"] = value
             g.attrs["iteration"] = stop
         self._buffer.clear()
-
-    @staticmethod
-    def _grow(group, steps):
-        for key in ("chain", "log_prob"):
-            group[key].resize(steps, axis=0)
 
     def flush_only_on_request(self) -> None:
         """Write steps only at :meth:`flush` (for samplers whose random state is known only at the end of a batch)."""

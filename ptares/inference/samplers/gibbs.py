@@ -91,7 +91,7 @@ class _Block:
     """A few free parameters updated together by Metropolis steps, with their proposal covariance."""
 
     def __init__(self, indices, priors, kind):
-        self.kind, self.moves = kind, MOVES[kind]
+        self.moves = MOVES[kind]
         self.indices = np.asarray(indices, dtype=int)
         self.priors = [priors[i] for i in self.indices]
         widths = np.array([abs(p.ppf(0.84) - p.ppf(0.16)) / 2.0 for p in self.priors])
@@ -429,7 +429,8 @@ class _Step:
         self.coords, self.log_prob, self.random_state = coords, log_prob, random_state
 
 
-def run_gibbs(model, backend, chains: int, resume: bool, pool_size: int, interrupted: list, bar, adaptation: int) -> None:
+def run_gibbs(sampler: GibbsSampler, backend, chains: int, resume: bool, pool_size: int, interrupted: list, bar,
+              adaptation: int) -> None:
     """Advance ``chains`` independent Gibbs chains in ``backend`` until the convergence rule holds,
     ``max_steps``, or an interrupt; segments of the chains run in ``pool_size`` processes when above 1.
 
@@ -439,8 +440,8 @@ def run_gibbs(model, backend, chains: int, resume: bool, pool_size: int, interru
     """
     from ptares.inference.samplers.convergence import assess, steps_needed
 
+    model = sampler.model
     section = model.section
-    sampler = GibbsSampler(model)
     backend.flush_only_on_request()  # whole segments at a time, with their random states
     chain = _Growing(chains, model.ndim)
     if resume:
@@ -488,6 +489,7 @@ def run_gibbs(model, backend, chains: int, resume: bool, pool_size: int, interru
                              min(adaptation, done), previous_tau=previous)
             record = json.dumps({"step": done, "chains": states, "checked_with": previous,
                                  "tau": float(np.max(verdict.autocorr_time))})
+            backend.grow(iterations, None)  # emcee's own sizing, as its sampler does before each run
             for i in range(iterations):
                 backend.save_step(_Step(segment[i], values[i], record if i == iterations - 1 else None), acceptance[i])
             backend.flush()
