@@ -16,10 +16,12 @@ with astropy Quantities.  The subpackages are named ``simulation``, ``correlatio
 """
 
 from ptares.api import (
+    ComparisonResult,
     FitResult,
     Interrupted,
     NoiseResult,
     SweepResult,
+    compare,
     config_from,
     correlate,
     describe,
@@ -52,6 +54,7 @@ __all__ = [
     "simulate",
     "correlate",
     "fit",
+    "compare",
     "pulsar_noise",
     "sweep",
     "describe",
@@ -60,6 +63,7 @@ __all__ = [
     "config_from",
     "CorrelationResult",
     "FitResult",
+    "ComparisonResult",
     "NoiseResult",
     "SweepResult",
     "Interrupted",

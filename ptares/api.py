@@ -66,8 +66,8 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover
     import tomli as tomllib
 
-__all__ = ["simulate", "correlate", "fit", "pulsar_noise", "sweep", "describe", "import_tables", "export_tables",
-           "FitResult", "NoiseResult", "SweepResult", "Interrupted", "config_from"]
+__all__ = ["simulate", "correlate", "fit", "compare", "pulsar_noise", "sweep", "describe", "import_tables", "export_tables",
+           "FitResult", "ComparisonResult", "NoiseResult", "SweepResult", "Interrupted", "config_from"]
 
 #: True while the command line runs: messages then name options as ``--overwrite`` rather than ``overwrite=True``.
 COMMAND_LINE = contextvars.ContextVar("ptares_command_line", default=False)
@@ -222,6 +222,21 @@ def _section(model, table: str, settings, options: dict, default=None):
             except ValidationError as exc:
                 raise validation_error(exc, {table: options}, "", (table,)) from None
     return section, folder
+
+
+def _tables(settings, names) -> tuple:
+    """``settings`` (None, a TOML file or a dict of tables) split into one entry per table in ``names``:
+    the file (or the table) where it has that table, else None; a file with none of them is an error."""
+    if settings is None:
+        return (None,) * len(names)
+    if isinstance(settings, Mapping):
+        return tuple({name: settings[name]} if name in settings else None for name in names)
+    if isinstance(settings, (str, os.PathLike)):
+        raw = read_toml(settings)
+        if not any(name in raw for name in names):
+            raise InputError(f"has no {' or '.join(f'[{n}]' for n in names)} table", str(settings))
+        return tuple(settings if name in raw else None for name in names)
+    raise InputError(f"expected a dict of tables or a TOML file, got {type(settings).__name__}", "settings")
 
 
 def _dataset(dataset) -> Dataset:
@@ -444,6 +459,21 @@ def _fit_section(source, config, settings, options) -> FitSection:
     return section
 
 
+def _keep_dataset(dataset: Dataset, out: Path, overwrite: bool) -> None:
+    """Write the simulated ``dataset`` to ``out/dataset.h5`` unless it is there; another dataset there is an error
+    (its results would be mixed with this one's) unless ``overwrite``."""
+    from ptares.dataset import fingerprint, write_dataset
+
+    copy_path = out / "dataset.h5"
+    if copy_path.exists() and fingerprint(load_dataset(copy_path)) != fingerprint(dataset):
+        if not overwrite:
+            raise InputError(f"holds a dataset from another config or seed; pass {_flag('overwrite')} "
+                             f"or choose another {_option('out')}", str(copy_path))
+        copy_path.unlink()
+    if not copy_path.exists():
+        write_dataset(dataset, copy_path)
+
+
 @_threaded
 def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bool = True, verbose: bool = False,
         threads: int | None = None, **options) -> FitResult:
@@ -464,7 +494,7 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
     chains file to resume).  ``threads``: BLAS and numba threads of this process and
     of each of the ``workers`` (None: :data:`~ptares.threads.DEFAULT_THREADS`).
     """
-    from ptares.dataset import fingerprint, write_dataset, write_json
+    from ptares.dataset import write_json
     from ptares.inference.model import FitModel
     from ptares.inference import samplers
     from ptares.inference.samplers.chains import posterior_draws, summarise
@@ -495,14 +525,7 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
     try:
         out.mkdir(parents=True, exist_ok=True)
         if config is not None:
-            copy_path = out / "dataset.h5"
-            if copy_path.exists() and fingerprint(load_dataset(copy_path)) != fingerprint(dataset):
-                if not overwrite:
-                    raise InputError(f"holds a dataset from another config or seed; pass {_flag('overwrite')} "
-                                     f"or choose another {_option('out')}", str(copy_path))
-                copy_path.unlink()
-            if not copy_path.exists():
-                write_dataset(dataset, copy_path)
+            _keep_dataset(dataset, out, overwrite)
         chains = out / "chains.h5"
         announce(chains)
         try:
@@ -523,6 +546,98 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
     except OSError as exc:
         raise _cannot_write(exc, out) from None
     return FitResult(summary, list(model.names), chains, out, dict(model.injected))
+
+
+# ---------------------------------------------------------------- compare
+
+
+@dataclass(repr=False)
+class ComparisonResult:
+    """Correlated against uncorrelated common process: ``content`` is ``comparison.json``
+    (``ln_bayes_factor``, ``ln_bayes_factor_error``, ``effective_samples``, ``posterior``, per-pattern
+    entries in ``patterns``); ``fit`` the uncorrelated fit; ``out`` the output folder (or None)."""
+
+    content: dict
+    fit: FitResult
+    out: Path | None
+
+    @property
+    def ln_bayes_factor(self) -> float:
+        return float(self.content["ln_bayes_factor"])
+
+    @property
+    def ln_bayes_factor_error(self) -> float:
+        return float(self.content["ln_bayes_factor_error"])
+
+    @property
+    def reliable(self) -> bool:
+        return bool(self.content["reliable"])
+
+    def __repr__(self) -> str:
+        lines = [f"ComparisonResult: {self.content['draws']} draws of the uncorrelated posterior reweighted"]
+        for pattern, entry in self.content["patterns"].items():
+            state = "" if entry["reliable"] else "  UNRELIABLE"
+            lines.append(f"  {pattern:15s} ln B = {entry['ln_bayes_factor']:+.2f} +/- {entry['ln_bayes_factor_error']:.2f}, "
+                         f"{entry['effective_samples']:.0f} effective samples{state}")
+        if self.content["warning"]:
+            lines.append(f"  warning: {self.content['warning']}")
+        return "\n".join(lines)
+
+
+@_threaded
+def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None, overwrite: bool = False,
+            figures: bool = True, verbose: bool = False, threads: int | None = None, **options) -> ComparisonResult:
+    """Bayes factors of correlated common processes (Hellings–Downs; monopole, dipole) against an
+    uncorrelated one, by reweighting the uncorrelated posterior; returns a :class:`ComparisonResult`.
+
+    ``source`` as for :func:`fit`.  ``settings`` (a dict or TOML file) gives the ``[fit]`` table of the
+    uncorrelated fit (its ``common`` is set to ``"uncorrelated"``) and the ``[compare]`` table;
+    ``fit_options`` is a dict of ``[fit]`` keys over it, keyword ``options`` are ``[compare]`` keys
+    (``samples=1000``, ``patterns=["hellings-downs", "monopole"]``, ``workers=2``).  The likelihood
+    evaluations run in ``workers`` local processes or on a Dask ``scheduler``.  With ``out``:
+    ``out/dataset.h5`` when the source is a config, the fit in ``out/uncorrelated/`` (resumed when run
+    again), ``out/comparison.json`` and, unless ``figures=False``, ``out/comparison.png``.
+    """
+    from ptares.campaign.comparison import compare_models
+    from ptares.dataset import write_json
+    from ptares.inference.model import FitModel
+    from ptares.inputs.config import CompareSection
+    from ptares.simulation.simulate import simulate as simulate_config
+
+    dataset, config = _fit_source(source)
+    fit_settings, compare_settings = _tables(settings, ("fit", "compare"))
+    fit_section = _fit_section(source, config, fit_settings, dict(fit_options or {}))
+    fit_section = fit_section.model_copy(update={"common": "uncorrelated"})
+    section, _ = _section(CompareSection, "compare", compare_settings, options,
+                          default=config.compare if config is not None else None)
+    if out is not None:
+        out = check_output_directory(out, True)
+    if dataset is None:
+        dataset = simulate_config(config, progress=verbose)
+        if out is not None:
+            try:
+                out.mkdir(parents=True, exist_ok=True)
+                _keep_dataset(dataset, out, overwrite)
+            except OSError as exc:
+                raise _cannot_write(exc, out) from None
+    fitted = fit(dataset, None if out is None else out / "uncorrelated", settings=fit_section, overwrite=overwrite,
+                 figures=figures, verbose=verbose, threads=threads)
+    model = FitModel(dataset, fit_section)
+    _say(verbose, f"reweighting the uncorrelated posterior by the {', '.join(section.patterns)} likelihood")
+    comparison = compare_models(model, fitted.chain(), fitted.summary, section, seed=fit_section.seed,
+                                scheduler=scheduler, progress=verbose)
+    if out is not None:
+        try:
+            write_json(out / "comparison.json", comparison.content)
+            if figures:
+                from ptares.figures.common import save_figure
+                from ptares.figures.comparison import comparison_figure
+
+                save_figure(comparison_figure(comparison.draws, model.names, comparison.weights, comparison.content,
+                                              model.injected), out / "comparison.png")
+        except OSError as exc:
+            raise _cannot_write(exc, out) from None
+    return ComparisonResult(comparison.content, fitted, out)
 
 
 # ---------------------------------------------------------------- per-pulsar noise

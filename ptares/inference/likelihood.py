@@ -48,9 +48,12 @@ from ptares.limits import MEMORY_LIMIT
 from ptares.physics.patterns import correlation_matrix
 from ptares.physics.spectra import coefficient_variance, fourier_basis
 
-__all__ = ["Likelihood", "NotPositiveDefinite", "Projected"]
+__all__ = ["Likelihood", "NotPositiveDefinite", "Projected", "PATTERN_FLOOR"]
 
 _LOG_2PI = np.log(2.0 * np.pi)
+
+#: Added to the diagonal of the (singular) monopole and dipole correlation matrices.
+PATTERN_FLOOR = 1e-4
 
 
 class Projected(NamedTuple):
@@ -149,7 +152,11 @@ class Likelihood:
     dataset : :class:`ptares.dataset.Dataset`
     harmonics : frequencies of the common process (k/T, k = 1..harmonics).
     red_harmonics : frequencies of each pulsar's red noise (0: no red noise).
-    correlated : True for a Hellings–Downs common process, False for an uncorrelated one.
+    correlated : the common process's correlation pattern across pulsars: ``"hellings-downs"``
+        (or True), ``"monopole"``, ``"dipole"``, or False / None for an uncorrelated one.
+        A monopole or dipole pattern has a singular correlation matrix (rank 1 and 3), so
+        :data:`PATTERN_FLOOR` times the identity is added to it: a share of the common
+        power that is uncorrelated, too small to matter beside the noise.
 
     :meth:`__call__` takes per-pulsar arrays ``white_scale``, ``white_quadrature`` (s),
     ``red_amplitude``, ``red_spectral_index``, the common ``amplitude`` and ``gamma``, and an
@@ -157,12 +164,13 @@ class Likelihood:
     :meth:`draw_coefficients` takes the same and draws the Fourier coefficients given them.
     """
 
-    def __init__(self, dataset, harmonics: int, red_harmonics: int, correlated: bool):
+    def __init__(self, dataset, harmonics: int, red_harmonics: int, correlated):
         self.span = dataset.span
         self.harmonics = int(harmonics)
         self.red_harmonics = int(red_harmonics)
         self.size = 2 * max(self.harmonics, self.red_harmonics)
-        self.correlated = bool(correlated)
+        self.pattern = "hellings-downs" if correlated is True else (correlated or None)
+        self.correlated = self.pattern is not None
         count = len(dataset.pulsars)
         # the per-pulsar F^T N'^-1 F, and for Hellings-Downs the dense core S over the common columns
         per_pulsar = count * self.size**2 * 8
@@ -191,7 +199,9 @@ class Likelihood:
                 )
             )
         positions = np.array([p.position for p in dataset.pulsars])
-        self.gamma_matrix = correlation_matrix(positions, "hellings-downs")
+        self.gamma_matrix = correlation_matrix(positions, self.pattern or "hellings-downs")
+        if self.pattern in ("monopole", "dipole"):
+            self.gamma_matrix += PATTERN_FLOOR * np.eye(count)
         self._white_cache = {}
         # where S gets its pieces, for the usual case that every common column has nonzero variance
         self._core_index = _core_indices(count, 2 * self.harmonics) if self.correlated and self.harmonics else None

@@ -158,7 +158,7 @@ class FitModel:
             dataset,
             harmonics=self.harmonics if section.common != "none" else 0,
             red_harmonics=red_harmonics if self.red_mode != "none" else 0,
-            correlated=section.common == "hellings-downs",
+            correlated=section.common if section.common not in ("uncorrelated", "none") else None,
         )
 
         # every parameter the model has, with its default (injected) value
@@ -321,10 +321,13 @@ class FitModel:
         )
 
     def log_likelihood(self, x) -> float:
-        v = self.parameters(x)
-        value = self.likelihood(**self.physical(x, v), signal=self._signal(v))
+        return self.log_likelihood_at(self.parameters(x))
+
+    def log_likelihood_at(self, values: dict) -> float:
+        """Log likelihood at a full set of parameter ``values`` (every name of :attr:`values`)."""
+        value = self.likelihood(**self.physical(None, values), signal=self._signal(values))
         if np.isnan(value):
-            raise ArithmeticError(f"the likelihood is NaN at {dict(zip(self.names, x))}")
+            raise ArithmeticError(f"the likelihood is NaN at {({k: values[k] for k in self.names})}")
         return value
 
     def __call__(self, x) -> float:

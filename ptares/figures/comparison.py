@@ -1,0 +1,88 @@
+"""The figure of ``ptares compare``: the common process's posterior under each model.
+
+One panel per common-process parameter: the uncorrelated model's marginal density
+(its draws, equally weighted) as a grey filled curve and each correlated model's
+(the same draws, reweighted) as a line; injected values as an orange rule.  The last
+panel shows each pattern's ln Bayes factor against the uncorrelated model with its
+standard error, and its effective sample size (on a symmetric log scale when the values
+differ by more than 50); unreliable ones are drawn hollow and the title says so.  A
+reweighted density with fewer than :data:`MIN_SHOWN` effective samples is not drawn.
+"""
+
+from __future__ import annotations
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+from ptares.inference import parameters  # noqa: E402
+
+__all__ = ["comparison_figure"]
+
+_UNCORRELATED = "#8d99ae"
+_PATTERN_COLOURS = {"hellings-downs": "#2a6f97", "monopole": "#6a4c93", "dipole": "#2d6a4f"}
+_INJECTED = "#e36414"
+
+#: Fewest effective samples for which a reweighted density is drawn.
+MIN_SHOWN = 10
+
+
+def _density(values, weights, grid):
+    """Gaussian kernel density of weighted ``values`` on ``grid`` (bandwidth from the effective sample size)."""
+    effective = 1.0 / np.sum(weights**2)
+    mean = np.sum(weights * values)
+    spread = np.sqrt(np.sum(weights * (values - mean) ** 2)) or (grid[-1] - grid[0]) / 50.0
+    width = 1.06 * spread * effective**-0.2
+    kernel = np.exp(-0.5 * ((grid[:, None] - values[None, :]) / width) ** 2) / (width * np.sqrt(2.0 * np.pi))
+    return kernel @ weights
+
+
+def comparison_figure(draws: np.ndarray, names, weights: dict, content: dict, injected: dict):
+    """Posteriors of the common-process parameters under each model, and the Bayes factors."""
+    shown = [i for i, n in enumerate(names) if n in (parameters.COMMON_AMPLITUDE, parameters.COMMON_INDEX)] or [0]
+    fig, axes = plt.subplots(1, len(shown) + 1, figsize=(4.2 * (len(shown) + 1), 3.6), constrained_layout=True)
+    equal = np.full(len(draws), 1.0 / len(draws))
+    for ax, i in zip(axes, shown):
+        values = draws[:, i]
+        grid = np.linspace(values.min(), values.max(), 300)
+        ax.fill_between(grid, _density(values, equal, grid), color=_UNCORRELATED, alpha=0.45, lw=0, label="uncorrelated")
+        for pattern, w in weights.items():
+            effective = 1.0 / np.sum(w**2)
+            if effective < MIN_SHOWN:  # a density of a few draws is a spike, not a posterior
+                ax.plot([], [], color=_PATTERN_COLOURS[pattern], lw=1.8, ls=":",
+                        label=f"{pattern} (not drawn: {effective:.0f} effective samples)")
+                continue
+            ax.plot(grid, _density(values, w, grid), color=_PATTERN_COLOURS[pattern], lw=1.8, label=pattern)
+        if names[i] in injected:
+            ax.axvline(injected[names[i]], color=_INJECTED, lw=1.2, label="injected")
+        ax.set_xlabel(names[i])
+        ax.set_yticks([])
+        ax.set_ylabel("posterior density")
+    axes[0].legend(frameon=False, fontsize=7, loc="upper left")
+    axes[0].set_ylim(0.0, axes[0].get_ylim()[1] * 1.6)  # room for the legend above the curves
+
+    ax = axes[-1]
+    patterns = content["patterns"]
+    for k, (pattern, entry) in enumerate(patterns.items()):
+        colour = _PATTERN_COLOURS[pattern]
+        ax.errorbar(k, entry["ln_bayes_factor"], yerr=entry["ln_bayes_factor_error"], fmt="o", ms=8, capsize=4,
+                    color=colour, mfc=colour if entry["reliable"] else "white")
+        ax.annotate(f"{entry['effective_samples']:.0f} eff.", (k, entry["ln_bayes_factor"]), xytext=(8, -3),
+                    textcoords="offset points", fontsize=8, color=colour)
+    ax.axhline(0.0, color="0.5", lw=0.8)
+    values = [abs(e["ln_bayes_factor"]) for e in patterns.values()]
+    if max(values) > 50.0:  # values of very different size: linear near zero, logarithmic beyond
+        ax.set_yscale("symlog", linthresh=10.0)
+    ax.margins(y=0.12)
+    ax.set_xticks(range(len(patterns)), list(patterns), fontsize=8)
+    ax.set_xlim(-0.6, len(patterns) - 0.4)
+    ax.set_ylabel("ln Bayes factor against uncorrelated")
+    hd = patterns["hellings-downs"]
+    title = f"ln B = {hd['ln_bayes_factor']:.2f} ± {hd['ln_bayes_factor_error']:.2f} ({content['draws']} draws)"
+    if not content["reliable"]:
+        title += "\nUNRELIABLE: see comparison.json"
+    fig.suptitle(title, fontsize=10, color="black" if content["reliable"] else "#c1121f")
+    return fig
