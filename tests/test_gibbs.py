@@ -297,3 +297,28 @@ def test_gibbs_fits_white_noise_alone(tmp_path):
     run = run_sampler(model, tmp_path / "c.h5")
     draws = posterior_draws(run.chain, run.convergence.burn)
     assert np.all(np.abs(draws.mean(axis=0) - 1.4) < 4 * draws.std(axis=0))
+
+
+def test_hellings_downs_inverse_update_survives_red_noise_falling_away():
+    """Phi_k = Gamma phi_k + diag(red_k): after pulsar 0's red noise drops from 1e8 times the common
+    power to nothing, the updated inverse equals numpy's inverse of the new Phi_k (a plain
+    Sherman–Morrison update would cancel to no digits here)."""
+    data = simulate(small_config(array={"random": {"count": 4}}, gwb={"amplitude": 2e-15, "harmonics": 3}))
+    model = FitModel(data, FitSection(common="hellings-downs", red="free", red_harmonics=3, harmonics=3))
+    sampler = GibbsSampler(model)
+    size = model.likelihood.size
+    common = np.full(size, 1e-20)
+    red = np.full((4, size), 1e-19)
+    red[0] = 1e-12
+    inverse = sampler._common_inverse(red, common)
+    new = red.copy()
+    new[0] = 1e-30
+    sampler._update_inverse(inverse, 0, (new[0] - red[0])[0::2][:3], new, common)
+    expected = sampler._common_inverse(new, common)
+    assert np.all(np.isfinite(inverse))
+    np.testing.assert_allclose(inverse, expected, rtol=1e-6)
+    # a moderate change takes the Sherman–Morrison route and is exact to rounding
+    moderate = new.copy()
+    moderate[1] = 3e-19
+    sampler._update_inverse(inverse, 1, (moderate[1] - new[1])[0::2][:3], moderate, common)
+    np.testing.assert_allclose(inverse, sampler._common_inverse(moderate, common), rtol=1e-9)

@@ -6,7 +6,7 @@ import scipy.linalg
 import scipy.stats
 from conftest import small_config
 
-from ptares.inference.likelihood import Likelihood, NotPositiveDefinite
+from ptares.inference.likelihood import PATTERN_FLOOR, Likelihood, NotPositiveDefinite
 from ptares.simulation.simulate import simulate
 
 YEAR = 365.25 * 86400.0
@@ -24,7 +24,8 @@ def sine_cosine(times, span, count):
 
 def correlations(data, correlated):
     """Gamma_ab: the Hellings–Downs curve written out here (Hellings & Downs 1983) with separations
-    from astropy, 1 on the diagonal; the identity for an uncorrelated process."""
+    from astropy, 1 on the diagonal; the identity for an uncorrelated process; a monopole or
+    dipole (common practice) with the likelihood's stated diagonal floor, as ``correlated``."""
     from astropy import units as u
     from astropy.coordinates import SkyCoord
 
@@ -33,6 +34,10 @@ def correlations(data, correlated):
     x = (1 - np.cos(angle)) / 2
     with np.errstate(divide="ignore", invalid="ignore"):
         hd = np.where(x > 0, 1.5 * x * np.log(np.where(x > 0, x, 1.0)) - x / 4 + 0.5, 0.5)
+    if correlated == "monopole":  # clock-like: 1 everywhere, plus the stated floor on the diagonal
+        return np.ones_like(angle) + PATTERN_FLOOR * np.eye(len(coords))
+    if correlated == "dipole":  # cos of the separation, plus the floor
+        return np.cos(angle) + PATTERN_FLOOR * np.eye(len(coords))
     gamma_ab = hd if correlated else np.zeros((len(coords),) * 2)
     np.fill_diagonal(gamma_ab, 1.0)
     return gamma_ab
@@ -82,7 +87,7 @@ def data():
     return simulate(config)
 
 
-@pytest.mark.parametrize("correlated", [False, True])
+@pytest.mark.parametrize("correlated", [False, True, "monopole", "dipole"])
 @pytest.mark.parametrize("red_amplitude", [[2e-15, 1e-15, 5e-15], [2e-15, 0.0, 5e-15]])
 @pytest.mark.parametrize("harmonics, red_harmonics", [(5, 6), (6, 4)])
 def test_likelihood_equals_dense_gaussian_density(data, correlated, red_amplitude, harmonics, red_harmonics):

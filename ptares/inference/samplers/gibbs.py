@@ -70,6 +70,10 @@ SEGMENT = 100
 MOVES = {"white": 10, "red": 5, "common": 5}
 
 _LOG_2PI = np.log(2.0 * np.pi)
+#: Smallest |1 + change H_pp| a Sherman–Morrison update of the Hellings–Downs inverse may divide by; below it,
+#: (a relative error of about 1e-16 / floor) the inverse is recomputed.
+SHERMAN_MORRISON_FLOOR = 1e-6
+
 _OPTIMAL_SCALE = 2.38**2  # / d: Gelman, Roberts & Gilks (1996)
 
 
@@ -223,12 +227,19 @@ class GibbsSampler:
         variance[: 2 * K] = np.repeat(np.maximum(conditional, 0.0), 2)
         return mean, variance
 
-    @staticmethod
-    def _update_inverse(inverse, p, change):
-        """Sherman–Morrison: Phi_k gains ``change_k`` at (p, p); update its inverse in place."""
+    def _update_inverse(self, inverse, p, change, red, common):
+        """Sherman–Morrison: Phi_k gains ``change_k`` at (p, p); update its inverse in place.
+
+        Where ``1 + change_k H_pp`` is near zero (pulsar p's red noise falls from dwarfing the
+        common process: the update would cancel to no digits) the frequency's inverse is
+        recomputed from ``red`` (already holding the new value) and ``common``."""
         column = inverse[:, :, p].copy()  # (K, P)
         denominator = 1.0 + change * inverse[:, p, p]
-        inverse -= (change / denominator)[:, None, None] * column[:, :, None] * column[:, None, :]
+        safe = np.abs(denominator) > SHERMAN_MORRISON_FLOOR  # False for NaN too
+        inverse[safe] -= ((change[safe] / denominator[safe])[:, None, None]
+                          * column[safe][:, :, None] * column[safe][:, None, :])
+        if not safe.all():
+            inverse[~safe] = self._common_inverse(red, common)[~safe]
 
     # --- Metropolis ----------------------------------------------------------
     @staticmethod
@@ -297,9 +308,10 @@ class GibbsSampler:
                 accepted, proposed = accepted + hits, proposed + red_block.moves
                 amplitude, index = self._red_values(x, p)
                 new_red = self._red_variance(amplitude, index)
-                if inverse is not None:
-                    self._update_inverse(inverse, p, (new_red - red[p])[0: 2 * lk.harmonics: 2])
+                change = (new_red - red[p])[0: 2 * lk.harmonics: 2]
                 red[p] = new_red
+                if inverse is not None:
+                    self._update_inverse(inverse, p, change, red, common)
             _, draw = self._collapsed(pieces, mean, base + red[p], rng)
             if draw is None:
                 raise NotPositiveDefinite(f"the coefficients of pulsar {self._names[p]} have no valid conditional")
