@@ -165,3 +165,24 @@ class _no_exit:
 
     def __exit__(self, *exc):
         return False
+
+
+def test_likelihood_ratios_on_a_dask_cluster_match_this_process():
+    """The chunks of likelihood ratios give the same weights on a dask.distributed LocalCluster as here."""
+    import distributed
+
+    from ptares.campaign.comparison import compare_models
+    from ptares.inputs.config import CompareSection
+
+    dataset = simulate(small_config(array={"random": {"count": 4}}, gwb={"amplitude": 3e-15, "harmonics": 3}))
+    model = FitModel(dataset, FitSection(red="none", harmonics=3, fixed={"common_spectral_index": 13.0 / 3.0}))
+    chain = np.random.default_rng(1).normal(-14.5, 0.1, (40, 4, 1))
+    summary = {"burn": 0, "converged": True, "parameters": {"common_lg_amplitude": {"autocorr_time": 1.0}}}
+    settings = CompareSection(samples=60, patterns=("hellings-downs", "monopole"), workers=2)
+    here = compare_models(model, chain, summary, settings.model_copy(update={"workers": 1}))
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) as cluster:
+        with distributed.Client(cluster) as client:
+            remote = compare_models(model, chain, summary, settings, scheduler=client)
+    for pattern in ("hellings-downs", "monopole"):
+        np.testing.assert_allclose(remote.weights[pattern], here.weights[pattern], rtol=1e-12)
+    assert remote.content["ln_bayes_factor"] == pytest.approx(here.content["ln_bayes_factor"], rel=1e-12)
