@@ -42,7 +42,7 @@ def _correlate(args) -> int:
     from ptares import api
 
     options = {k: getattr(args, k) for k in ("spectral_index", "harmonics", "noise", "chains", "draws", "bins", "scrambles",
-                                             "phase_shifts", "seed") if getattr(args, k) is not None}
+                                             "phase_shifts", "seed", "estimator") if getattr(args, k) is not None}
     if args.overlays:
         options["overlays"] = True
     result = api.correlate(args.dataset, args.out, settings=args.config, overwrite=args.overwrite, verbose=True,
@@ -78,6 +78,34 @@ def _fit(args) -> int:
         entry = result.parameters[name]
         low, high = entry["interval68"]
         print(f"  {name:28s} {entry['median']:+.4g}  68%: [{low:+.4g}, {high:+.4g}]")
+    return 0
+
+
+def _compare(args) -> int:
+    from ptares import api
+
+    fit_options = {k: getattr(args, k) for k in ("max_steps", "seed", "sampler") if getattr(args, k) is not None}
+    options = {k: getattr(args, k) for k in ("samples", "patterns", "workers") if getattr(args, k) is not None}
+    try:
+        result = api.compare(args.source, args.out, settings=args.config, fit_options=fit_options,
+                             scheduler=args.scheduler, overwrite=args.overwrite, verbose=True, threads=args.threads,
+                             **options)
+    except api.Interrupted as exc:
+        print(f"ptares: interrupted; the uncorrelated chains so far are in {exc.kept}; run the same command to resume",
+              file=sys.stderr)
+        return 130
+    content = result.content
+    fit = content["uncorrelated_fit"]
+    print(f"uncorrelated fit: {fit['sampler']} sampler, {fit['steps']} steps, "
+          f"{'converged' if fit['converged'] else 'NOT converged: ' + str(fit['not_converged_because'])}; "
+          f"{content['draws']} draws reweighted")
+    for pattern, entry in content["patterns"].items():
+        print(f"  {pattern:15s} ln B = {entry['ln_bayes_factor']:+.3g} +/- {entry['ln_bayes_factor_error']:.2g} "
+              f"against uncorrelated, {entry['effective_samples']:.0f} effective samples"
+              + ("" if entry["reliable"] else "  UNRELIABLE"))
+    if content["warning"]:
+        print(f"warning: {content['warning']}")
+    print(f"wrote {result.out / 'comparison.json'}, comparison.png and the fit in {result.out / 'uncorrelated'}")
     return 0
 
 
@@ -198,6 +226,8 @@ def build_parser() -> argparse.ArgumentParser:
     cor.add_argument("--phase-shifts", type=int, help="phase-shift null trials (default 100; 0 for none)")
     cor.add_argument("--seed", type=int, help="seed of the null trials (default 0)")
     cor.add_argument("--overlays", action="store_true", help="also draw the monopole and dipole fits")
+    cor.add_argument("--estimator", choices=["weak-signal", "pair-covariant"],
+                     help="pair weights of the optimal statistic (default weak-signal)")
     cor.add_argument("--overwrite", action="store_true", help="replace earlier outputs")
     cor.set_defaults(run=_correlate)
 
@@ -214,6 +244,22 @@ def build_parser() -> argparse.ArgumentParser:
     fit.add_argument("--seed", type=int, help="seed of the sampler")
     fit.add_argument("--overwrite", action="store_true", help="start the chains afresh instead of resuming")
     fit.set_defaults(run=_fit)
+
+    cmp = commands.add_parser("compare", parents=[common],
+                              help="Bayes factor of Hellings-Downs (and monopole, dipole) against an uncorrelated "
+                                   "common process, by reweighting")
+    cmp.add_argument("source", help="a TOML config (simulated, then fitted) or an HDF5 dataset")
+    cmp.add_argument("--out", required=True,
+                     help="output directory (comparison.json, comparison.png, the uncorrelated fit in uncorrelated/)")
+    cmp.add_argument("--config", help="TOML file whose [fit] and [compare] tables hold the settings")
+    cmp.add_argument("--patterns", nargs="+", choices=["hellings-downs", "monopole", "dipole"],
+                     help="correlation patterns to weigh against the uncorrelated model (hellings-downs always)")
+    cmp.add_argument("--samples", type=int, help="most posterior draws to reweight (default 2000)")
+    cmp.add_argument("--max-steps", type=int, help="most steps of the uncorrelated fit (rerun with more to extend)")
+    cmp.add_argument("--sampler", choices=["auto", "ensemble", "gibbs"], help="sampler of the uncorrelated fit")
+    cmp.add_argument("--seed", type=int, help="seed of the sampler and of the draws' selection")
+    _engine_options(cmp)
+    cmp.set_defaults(run=_compare)
 
     noise = commands.add_parser("noise", parents=[common],
                                 help="fit every pulsar's own noise alone, in parallel (for [fit] pulsar_noise)")

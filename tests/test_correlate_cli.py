@@ -26,7 +26,7 @@ def test_correlate_writes_json_and_figures(dataset_path, tmp_path, capsys):
     assert len(summary["pairs"]) == 21
     assert set(summary["pairs"][0]) == {"a", "b", "angle", "rho", "sigma"}
     assert 0 <= summary["pairs"][0]["angle"] <= np.pi
-    assert set(summary["estimates"]) == {"hellings-downs", "monopole", "dipole", "joint"}
+    assert set(summary["estimates"]) == {"hellings-downs", "monopole", "dipole", "joint", "per_frequency"}
     for name in ("hellings-downs", "monopole", "dipole"):
         assert {"amplitude2", "sigma", "snr", "p_value"} <= set(summary["estimates"][name])
     assert set(summary["fit_quality"]) >= {"chi2", "dof", "p"}

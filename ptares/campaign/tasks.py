@@ -36,7 +36,7 @@ __all__ = ["Task", "load_sweep", "derive_seed", "expand", "run_task"]
 #: results.csv columns after the axis columns.
 COLUMNS = [
     "injected_amplitude", "injected_spectral_index", "injected_correlation",
-    "hd_amplitude2", "hd_sigma", "hd_snr", "hd_p_value", "monopole_snr", "dipole_snr",
+    "hd_amplitude2", "hd_sigma", "hd_snr", "hd_p_value", "hd_sigma_signal", "hd_p_exact", "monopole_snr", "dipole_snr",
     "hd_curve_chi2", "hd_curve_p_calibrated",
     "common_lg_amplitude.median", "common_lg_amplitude.low68", "common_lg_amplitude.high68",
     "common_lg_amplitude.quantile", "common_spectral_index.median", "common_spectral_index.quantile", "fit_converged",
@@ -172,7 +172,8 @@ def run_task(task: Task) -> dict:
             result = correlate(data, noise_from_dataset(data), config.correlate)
             hd = result.estimates["hellings-downs"]
             row.update(hd_amplitude2=hd["amplitude2"], hd_sigma=hd["sigma"], hd_snr=hd["snr"],
-                       hd_p_value=hd.get("p_value"), monopole_snr=result.estimates["monopole"]["snr"],
+                       hd_p_value=hd.get("p_value"), hd_sigma_signal=hd["sigma_signal"], hd_p_exact=hd["p_exact"],
+                       monopole_snr=result.estimates["monopole"]["snr"],
                        dipole_snr=result.estimates["dipole"]["snr"], hd_curve_chi2=result.fit["chi2"],
                        hd_curve_p_calibrated=result.fit.get("p_calibrated"))
         if "fit" in task.stages:

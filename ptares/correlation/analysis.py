@@ -17,6 +17,12 @@ from tqdm.auto import tqdm
 
 from ptares.correlation.fourier import check_dataset, fourier_products
 from ptares.correlation.noise import NoiseModel
+from ptares.correlation.null_distribution import (
+    NULL_DESCRIPTION,
+    null_eigenvalues,
+    null_skewness,
+    tail_probability,
+)
 from ptares.correlation.nulls import p_value, phase_shifts, sky_scrambles
 from ptares.correlation.pairs import (
     PairCorrelations,
@@ -24,6 +30,9 @@ from ptares.correlation.pairs import (
     optimal_statistic,
     overlap,
     pair_correlations,
+    pair_covariant_statistic,
+    per_frequency_statistics,
+    weak_signal_weights,
 )
 from ptares.correlation.scatter import (
     BinnedCorrelations,
@@ -31,6 +40,8 @@ from ptares.correlation.scatter import (
     binned_covariance,
     covariance_method,
     fit_quality,
+    pair_covariance,
+    weighted_covariance,
 )
 from ptares.dataset import Dataset, write_json
 from ptares.inputs.config import CorrelateSection
@@ -38,7 +49,7 @@ from ptares.limits import MEMORY_LIMIT
 from ptares.physics.patterns import correlation_matrix, pattern_function
 from ptares.version import __version__
 
-__all__ = ["CorrelationResult", "correlate", "template_settings", "PATTERN_NAMES"]
+__all__ = ["PATTERN_NAMES", "CorrelationResult", "correlate", "template_settings"]
 
 PATTERN_NAMES = ("hellings-downs", "monopole", "dipole")
 
@@ -54,6 +65,7 @@ class CorrelationResult:
     fit: dict
     settings: dict
     nulls: dict = field(default_factory=dict)  #: {"phase_shifts": {pattern: snr array}, "sky_scrambles": {...}}
+    null_eigenvalues: dict = field(default_factory=dict)  #: {pattern: lambda}: noise-only S/N is sum lambda chi^2_1
     injected_amplitude2: float | None = None
 
     def to_json(self) -> dict:
@@ -147,6 +159,43 @@ def _calibrated_p(products, pairs, binned, shape, gamma_matrix, covariance_at, f
     return {"p_calibrated": float((1 + np.sum(values >= fit["chi2"])) / (1 + trials)), "trials": int(trials)}
 
 
+def _signal_aware(entry: dict, name: str, draw, pairs, gamma_matrix, model_amplitude2, estimator: str) -> np.ndarray:
+    """Add to one pattern's ``entry`` its signal-aware sigma and its exact noise-only p-value and skewness;
+    returns the null's eigenvalues.
+
+    ``draw`` is the first noise model's ``(products, pairs)``; ``pairs`` the (draw-averaged) correlations.
+    With ``estimator = "pair-covariant"`` the entry's estimate becomes the generalised least-squares one
+    (pair covariance at the weak-signal estimate clipped at zero, then once more at the new estimate),
+    and the weak-signal values move to ``entry["weak_signal"]``.
+    """
+    products, first = draw
+    gamma_ab = overlap(first, name)
+    if estimator == "pair-covariant":
+        entry["weak_signal"] = {key: entry[key] for key in ("amplitude2", "sigma", "snr")}
+        amplitude2 = entry["amplitude2"]
+        for _ in range(2):
+            covariance, method = pair_covariance(products, first, gamma_matrix, max(amplitude2, 0.0), model_amplitude2)
+            found, weights = pair_covariant_statistic(pairs, gamma_ab, covariance)
+            amplitude2 = found["amplitude2"]
+        entry.update(found)
+        variance = weights @ covariance @ weights
+        if "p_value" in entry:
+            entry["p_value_statistic"] = "weak-signal S/N (the null trials use weak-signal weights)"
+    else:
+        weights = weak_signal_weights(first, gamma_ab)
+        variance, method = weighted_covariance(products, first, weights, gamma_matrix, max(entry["amplitude2"], 0.0),
+                                               model_amplitude2)
+    entry["sigma_signal"] = float(np.sqrt(variance.item()))
+    entry["sigma_method"] = method
+    eigenvalues, null_method = null_eigenvalues(products, first, weights, entry["sigma"])
+    exact = null_method is not None
+    entry["p_exact"] = tail_probability(entry["snr"], eigenvalues) if exact else None
+    entry["null_skewness"] = null_skewness(eigenvalues) if exact else None
+    entry["null"] = NULL_DESCRIPTION if exact else "unavailable: the eigenvalues would exceed the memory limit"
+    entry["null_method"] = null_method
+    return eigenvalues
+
+
 def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = CorrelateSection(),
               progress: bool = False) -> CorrelationResult:
     """Run the cross-correlation analysis of ``dataset`` under ``noise_models`` (one or more :class:`NoiseModel`)."""
@@ -192,6 +241,21 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
             estimates[name]["p_value_is_bound"] = bool(found[kind] == 1.0 / (1 + nulls[kind][name].size))
             estimates[name]["null_p_values"] = found
 
+    model_amplitude2 = noise_models[0].common_amplitude**2
+    eigenvalues = {}
+    for name in PATTERN_NAMES:
+        # the noise model's common process is the Hellings-Downs background's own power; another pattern's
+        # process would add power of its own
+        own = model_amplitude2 if name == "hellings-downs" else 0.0
+        eigenvalues[name] = _signal_aware(estimates[name], name, draws[0], pairs, correlation_matrix(positions, name),
+                                          own, section.estimator)
+    frequency = [per_frequency_statistics(p, d, overlap(d, "hellings-downs")) for p, d in draws]
+    estimates["per_frequency"] = [
+        {"frequency": float((k + 1) / dataset.span),
+         **{key: float(np.mean([f[key][k] for f in frequency])) for key in ("amplitude2", "sigma", "snr")}}
+        for k in range(harmonics)
+    ]
+
     binned = bin_pairs(pairs, section.bins)
     curve = pattern_function("hellings-downs")
     shape = np.array([np.sum(w * curve(pairs.angle[m])) for m, w in zip(binned.members, binned.weights)])
@@ -199,7 +263,6 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
 
     # the binned covariance is a quadratic polynomial in A^2 (Isserlis: products of terms linear in A^2),
     # so three evaluations give it at every amplitude
-    model_amplitude2 = noise_models[0].common_amplitude**2
     scale = max(abs(estimates["hellings-downs"]["amplitude2"]), model_amplitude2, 1e-300)
     c0, c1, c2 = (binned_covariance(products, draws[0][1], binned, gamma_matrix, a, model_amplitude2)[0]
                   for a in (0.0, scale, 2.0 * scale))
@@ -235,7 +298,9 @@ def correlate(dataset: Dataset, noise_models: list, section: CorrelateSection = 
             "seed": section.seed,
             "overlays": section.overlays,
             "fit_trials": section.fit_trials,
+            "estimator": section.estimator,
         },
         nulls=nulls,
+        null_eigenvalues=eigenvalues,
         injected_amplitude2=float(gwb["amplitude"]) ** 2 if gwb and "amplitude" in gwb else None,
     )

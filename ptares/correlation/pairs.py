@@ -29,7 +29,17 @@ from ptares.correlation.fourier import FourierProducts
 from ptares.physics.patterns import pattern_function
 from ptares.physics.sky import separation_matrix
 
-__all__ = ["PairCorrelations", "pair_matrices", "pair_correlations", "overlap", "optimal_statistic", "joint_statistic"]
+__all__ = [
+    "PairCorrelations",
+    "joint_statistic",
+    "optimal_statistic",
+    "overlap",
+    "pair_correlations",
+    "pair_covariant_statistic",
+    "pair_matrices",
+    "per_frequency_statistics",
+    "weak_signal_weights",
+]
 
 
 @dataclass(frozen=True)
@@ -42,7 +52,7 @@ class PairCorrelations:
     rho: np.ndarray
     sigma: np.ndarray
 
-    def with_values(self, rho, sigma) -> "PairCorrelations":
+    def with_values(self, rho, sigma) -> PairCorrelations:
         return PairCorrelations(self.a, self.b, self.angle, rho, sigma)
 
 
@@ -74,12 +84,48 @@ def overlap(pairs: PairCorrelations, pattern: str) -> np.ndarray:
 
 
 def optimal_statistic(pairs: PairCorrelations, gamma_ab: np.ndarray) -> dict:
-    """Amplitude estimate for one pattern with values ``gamma_ab`` per pair."""
+    """Amplitude estimate for one pattern with values ``gamma_ab`` per pair (weak-signal weights)."""
     weights = 1.0 / pairs.sigma**2
     norm = np.sum(gamma_ab**2 * weights)
     amplitude2 = np.sum(pairs.rho * gamma_ab * weights) / norm
     sigma = norm**-0.5
     return {"amplitude2": float(amplitude2), "sigma": float(sigma), "snr": float(amplitude2 / sigma)}
+
+
+def weak_signal_weights(pairs: PairCorrelations, gamma_ab: np.ndarray) -> np.ndarray:
+    """Weights ``w`` with ``A^2 = sum w rho`` of :func:`optimal_statistic`: ``Gamma / sigma^2 / sum Gamma^2 / sigma^2``."""
+    weights = gamma_ab / pairs.sigma**2
+    return weights / np.sum(gamma_ab * weights)
+
+
+def pair_covariant_statistic(pairs: PairCorrelations, gamma_ab: np.ndarray, covariance: np.ndarray) -> tuple:
+    """Generalised least squares with the pair-pair ``covariance`` (s^4); ``(estimate dict, weights)``.
+
+    ``A^2 = G^T C^-1 rho / G^T C^-1 G``, ``sigma^2 = 1 / G^T C^-1 G`` (Allen & Romano 2023).
+    """
+    solved = np.linalg.solve(covariance, gamma_ab)
+    norm = float(gamma_ab @ solved)
+    weights = solved / norm
+    amplitude2 = float(weights @ pairs.rho)
+    sigma = norm**-0.5
+    return {"amplitude2": amplitude2, "sigma": sigma, "snr": amplitude2 / sigma}, weights
+
+
+def per_frequency_statistics(products: FourierProducts, pairs: PairCorrelations, gamma_ab: np.ndarray) -> dict:
+    """The weak-signal optimal statistic of each Fourier frequency alone: arrays (K,) of
+    ``amplitude2``, ``sigma`` and ``snr``, ``Phi`` kept to that frequency's sine and cosine columns."""
+    P, size = products.X.shape
+    K = size // 2
+    X = products.X.reshape(P, K, 2)
+    k = np.arange(K)
+    Z = products.Z.reshape(P, K, 2, K, 2)[:, k, :, k, :]  # (K, P, 2, 2): each frequency's own block
+    phi = products.phi.reshape(K, 2)
+    numerator = np.einsum("aki,bki,ki->kab", X, X, phi, optimize=True)[:, pairs.a, pairs.b]
+    denominator = np.einsum("kaij,kbji,ki,kj->kab", Z, Z, phi, phi, optimize=True)[:, pairs.a, pairs.b]
+    norm = np.sum(gamma_ab**2 * denominator, axis=1)
+    amplitude2 = np.sum(numerator * gamma_ab, axis=1) / norm
+    sigma = norm**-0.5
+    return {"amplitude2": amplitude2, "sigma": sigma, "snr": amplitude2 / sigma}
 
 
 def joint_statistic(pairs: PairCorrelations, patterns: list) -> dict:

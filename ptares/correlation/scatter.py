@@ -12,7 +12,9 @@ PHYSICS.md, where one noise-free pair has ``Var = (1 + Gamma^2)/2``).
 
 The exact sum needs ``(P (2K))^2`` numbers; for large arrays ptares keeps only
 the diagonal of each ``Y`` (frequencies as independent measurements, the form
-given in PHYSICS.md) and says so in its output.
+given in PHYSICS.md) and says so in its output.  Any weighted sum of pair
+correlations (a bin, an optimal-statistic amplitude) has its variance from the
+same sum (:func:`weighted_covariance`; Allen & Romano 2023 for the amplitude).
 """
 
 from __future__ import annotations
@@ -24,11 +26,25 @@ from scipy import stats
 
 from ptares.correlation.fourier import FourierProducts
 from ptares.correlation.pairs import PairCorrelations, pair_matrices
+from ptares.errors import InputError
+from ptares.limits import MEMORY_LIMIT
 
-__all__ = ["BinnedCorrelations", "bin_pairs", "binned_covariance", "covariance_method", "fit_quality", "EXACT_LIMIT"]
+__all__ = [
+    "EXACT_LIMIT",
+    "BinnedCorrelations",
+    "bin_pairs",
+    "binned_covariance",
+    "covariance_method",
+    "ensemble_draws",
+    "fit_quality",
+    "pair_covariance",
+    "weighted_covariance",
+]
 
 #: Largest P^2 (2K)^2 for which the exact pair-pair covariance is computed.
 EXACT_LIMIT = 2.5e7
+#: Working memory (bytes) of one pass of :func:`weighted_covariance` over the slices.
+_CHUNK_BYTES = 2e8
 
 
 @dataclass(frozen=True)
@@ -71,16 +87,73 @@ def _scaled_blocks(products: FourierProducts, amplitude2: float, model_amplitude
     return Y, auto
 
 
-def _pair_weights(binned: BinnedCorrelations, denominator: np.ndarray, pairs: PairCorrelations, count: int):
-    """Per bin, a symmetric P x P matrix of (normalised weight / D_ab)."""
-    matrices = []
-    for index, w in zip(binned.members, binned.weights):
-        H = np.zeros((count, count))
-        values = w / denominator[pairs.a[index], pairs.b[index]]
-        H[pairs.a[index], pairs.b[index]] = values
-        H[pairs.b[index], pairs.a[index]] = values
-        matrices.append(H)
-    return matrices
+def _slices(products: FourierProducts, gamma_matrix: np.ndarray, amplitude2: float, model_amplitude2: float):
+    """Matrices ``M_s`` (S, P, P) with ``<Y_ac, Y_bd> = sum_s M_s[a, c] M_s[b, d]``, and the method.
+
+    Exact: one slice per element (i, k) of the blocks, ``M_ik[a, c] = Y_ac[i, k]``;
+    frequency-diagonal: one slice per basis column, each ``Y`` kept to its diagonal.
+    """
+    count, size = products.Z.shape[0], products.Z.shape[1]
+    Y, auto = _scaled_blocks(products, amplitude2, model_amplitude2)
+    off = amplitude2 * (gamma_matrix - np.diag(np.diag(gamma_matrix)))
+    diagonal_index = np.arange(count)
+    if covariance_method(products) == "exact":
+        slices = off[None, None] * np.einsum("aij,cjk->ikac", Y, Y, optimize=True)
+        slices[:, :, diagonal_index, diagonal_index] = auto.transpose(1, 2, 0)
+        return slices.reshape(size * size, count, count), "exact"
+    diagonal = np.einsum("xii->ix", Y)  # (2K, P)
+    slices = off[None] * diagonal[:, :, None] * diagonal[:, None, :]
+    slices[:, diagonal_index, diagonal_index] = np.einsum("xii->ix", auto)
+    return slices, "frequency-diagonal"
+
+
+def weighted_covariance(products: FourierProducts, pairs: PairCorrelations, weights: np.ndarray,
+                        gamma_matrix: np.ndarray, amplitude2: float, model_amplitude2: float = 0.0):
+    """Covariance of the weighted sums ``sum_pairs weights[m] * rho`` (weights: (n, pairs)); returns ``(matrix, method)``.
+
+    A binned correlation and an optimal-statistic amplitude are both such sums.  With
+    ``H_m[a, b] = weights[m, ab] / D_ab`` (symmetric) the Isserlis sum over ordered index
+    pairs is ``sum_s tr(M_s H_m M_s^T H_n)``, twice the covariance (both orders of each pair).
+    ``gamma_matrix`` is the P x P pattern of the background (its diagonal is not used).
+    """
+    weights = np.atleast_2d(weights)
+    count = products.Z.shape[0]
+    _, denominator = pair_matrices(products)
+    H = np.zeros((len(weights), count, count))
+    values = weights / denominator[pairs.a, pairs.b]
+    H[:, pairs.a, pairs.b] = values
+    H[:, pairs.b, pairs.a] = values
+    slices, method = _slices(products, gamma_matrix, amplitude2, model_amplitude2)
+    matrix = np.zeros((len(weights), len(weights)))
+    chunk = max(1, int(_CHUNK_BYTES // (16 * len(weights) * count**2)))
+    for start in range(0, len(slices), chunk):
+        part = slices[start:start + chunk]
+        right = (part[None] @ H[:, None]).reshape(len(weights), -1)  # M_s H_m
+        left = (H[:, None] @ part[None]).reshape(len(weights), -1)  # H_n M_s
+        matrix += 0.5 * right @ left.T
+    return 0.5 * (matrix + matrix.T), method
+
+
+def pair_covariance(products: FourierProducts, pairs: PairCorrelations, gamma_matrix: np.ndarray,
+                    amplitude2: float, model_amplitude2: float = 0.0):
+    """Covariance of all pair correlations, ``(pairs, pairs)`` in s^4, at ``amplitude2``; returns ``(matrix, method)``.
+
+    ``Cov(rho_ab, rho_cd) = (<Y_ac, Y_bd> + <Y_ad, Y_bc>) / (D_ab D_cd)``; needs P^4 numbers.
+    """
+    count = products.Z.shape[0]
+    memory = 8.0 * (count**4 + 3 * pairs.a.size**2)
+    if memory > MEMORY_LIMIT:
+        raise InputError(f"the pair-pair covariance of {count} pulsars needs {memory / 1e9:.1f} GB "
+                         f"(at most {MEMORY_LIMIT / 1e9:.0f} GB is allowed); use estimator = 'weak-signal'",
+                         "correlate.estimator")
+    _, denominator = pair_matrices(products)
+    slices, method = _slices(products, gamma_matrix, amplitude2, model_amplitude2)
+    flat = slices.reshape(len(slices), count * count)
+    gram = (flat.T @ flat).reshape(count, count, count, count)  # gram[a, c, b, d] = <Y_ac, Y_bd>
+    a, b = pairs.a[:, None], pairs.b[:, None]
+    c, d = pairs.a[None, :], pairs.b[None, :]
+    scale = denominator[pairs.a, pairs.b]
+    return (gram[a, c, b, d] + gram[a, d, b, c]) / np.outer(scale, scale), method
 
 
 def binned_covariance(products: FourierProducts, pairs: PairCorrelations, binned: BinnedCorrelations,
@@ -89,33 +162,10 @@ def binned_covariance(products: FourierProducts, pairs: PairCorrelations, binned
 
     ``gamma_matrix`` is the P x P pattern of the background (its diagonal is not used).
     """
-    count, size = products.Z.shape[0], products.Z.shape[1]
-    _, denominator = pair_matrices(products)
-    exact = covariance_method(products) == "exact"
-    Y, auto = _scaled_blocks(products, amplitude2, model_amplitude2)
-    H = _pair_weights(binned, denominator, pairs, count)
-    off = amplitude2 * (gamma_matrix - np.diag(np.diag(gamma_matrix)))
-    if exact:
-        # all blocks Y_xy: P x P x (2K)^2, then <Y_ac, Y_bd> for every (a, c), (b, d)
-        blocks = off[:, :, None, None] * np.einsum("aij,cjk->acik", Y, Y, optimize=True)
-        blocks[np.arange(count), np.arange(count)] = auto
-        flat = blocks.reshape(count * count, size * size)
-        gram = (flat @ flat.T).reshape(count, count, count, count)  # gram[a, c, b, d] = <Y_ac, Y_bd>
-        # sum over ordered (a, b), (c, d) of H1[a, b] H2[c, d] <Y_ac, Y_bd> equals twice the unordered sum
-        # of both Isserlis terms, so the unordered covariance is half of it
-        matrix = np.array([[0.5 * np.einsum("ab,cd,acbd->", H1, H2, gram, optimize=True) for H2 in H] for H1 in H])
-        return matrix, "exact"
-    diagonal = np.einsum("xii->xi", Y)  # (P, 2K)
-    auto_diagonal = np.einsum("xii->xi", auto)
-    matrix = np.zeros((len(H), len(H)))
-    for i in range(size):
-        G = off * np.outer(diagonal[:, i], diagonal[:, i])
-        G[np.diag_indices(count)] = auto_diagonal[:, i]
-        products_i = [H1 @ G for H1 in H]
-        for m, left in enumerate(products_i):
-            for n, right in enumerate(products_i):
-                matrix[m, n] += 0.5 * np.sum(left * right.T)
-    return matrix, "frequency-diagonal"
+    weights = np.zeros((len(binned.members), pairs.a.size))
+    for row, index, w in zip(weights, binned.members, binned.weights):
+        row[index] = w
+    return weighted_covariance(products, pairs, weights, gamma_matrix, amplitude2, model_amplitude2)
 
 
 def covariance_method(products: FourierProducts) -> str:

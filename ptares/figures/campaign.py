@@ -10,6 +10,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 
 from ptares.campaign.detection import (
+    PerTaskThreshold,
     detection_probability,
     detection_threshold,
     finished,
@@ -56,7 +57,9 @@ def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
         ax.set_xlabel("injected amplitude A")
         ax.set_ylabel("detection probability")
         ax.set_ylim(-0.03, 1.03)
-        ax.set_title(f"Hellings\u2013Downs S/N > {threshold:.2f} ({how})", fontsize=10)
+        rule = (f"exact p < {false_alarm:g}" if isinstance(threshold, PerTaskThreshold)
+                else f"Hellings\u2013Downs S/N > {threshold:.2f}")
+        ax.set_title(f"{rule} ({how})", fontsize=10)
         ax.legend(fontsize=7)
         ax.grid(alpha=0.3)
         fig.tight_layout()
@@ -84,7 +87,10 @@ def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
         amplitudes = sorted({r["injected_amplitude"] for r in rows})
         data = [[r["hd_snr"] for r in rows if r["injected_amplitude"] == a] for a in amplitudes]
         ax.boxplot(data, tick_labels=[f"{a:.2g}" for a in amplitudes])
-        ax.axhline(threshold, color="#c1121f", ls="--", lw=1, label=f"detection threshold {threshold:.2f}")
+        if not isinstance(threshold, PerTaskThreshold):
+            ax.axhline(threshold, color="#c1121f", ls="--", lw=1, label=f"detection threshold {threshold:.2f}")
+        else:
+            ax.plot([], [], " ", label=f"detection: each task's exact p < {false_alarm:g}")
         ax.set_xlabel("injected amplitude A")
         ax.set_ylabel("Hellings\u2013Downs S/N")
         ax.set_title("S/N distributions", fontsize=10)

@@ -6,11 +6,11 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
 
 from ptares.figures.common import COMPONENT_COLOURS, display_scale
-from ptares.physics.patterns import pattern_function  # noqa: E402
+from ptares.physics.patterns import pattern_function
 
 __all__ = ["correlations_figure", "nulls_figure"]
 
@@ -45,7 +45,8 @@ def correlations_figure(result):
     relation = "\u2264" if hd.get("p_value_is_bound") else "="
     p_text = f", p {relation} {hd['p_value']:.3g}" if "p_value" in hd else ""
     ax.set_title(f"Cross-correlations of {len(result.names)} pulsars, {result.pairs.rho.size} pairs: "
-                 f"S/N = {hd['snr']:.2f}{p_text}; fit \u03c7\u00b2 = {result.fit['chi2']:.1f} / {result.fit['dof']}",
+                 f"S/N = {hd['snr']:.2f}{p_text}; fit \u03c7\u00b2 = {result.fit['chi2']:.1f} / {result.fit['dof']}"
+                 + (f", p calibrated = {result.fit['p_calibrated']:.3g}" if result.fit.get("p_calibrated") is not None else ""),
                  fontsize=10)
     ax.set_xlim(0, 180)
     ax.set_xticks(np.arange(0, 181, 30))
@@ -58,28 +59,42 @@ def correlations_figure(result):
 
 
 def nulls_figure(result):
-    """Histograms of the null S/N of each pattern with the observed S/N marked."""
-    from scipy import stats
+    """Histograms of the null S/N of each pattern, the exact noise-only density, and the observed S/N.
+
+    The density comes from the null's eigenvalues by Imhof's inversion integral
+    (:func:`ptares.correlation.null_distribution.null_density`).
+    """
+    from ptares.correlation.null_distribution import null_density
 
     kinds = [kind for kind in ("phase_shifts", "sky_scrambles") if kind in result.nulls]
     names = ["hellings-downs", "monopole", "dipole"]
-    fig, axes = plt.subplots(1, 3, figsize=(11.0, 3.6), squeeze=False)
+    fig, axes = plt.subplots(1, 3, figsize=(11.0, 3.8), squeeze=False)
     colours = {"phase_shifts": "#2a6f97", "sky_scrambles": "#b8553a"}
     for ax, name in zip(axes[0], names):
-        observed = result.estimates[name]["snr"]
+        entry = result.estimates[name]
+        observed = entry["snr"]
         values = [result.nulls[k][name] for k in kinds if name in result.nulls[k]]
-        high = max([abs(observed) + 1] + [np.max(np.abs(v)) for v in values])
+        high = max([abs(observed) + 1, 4.0] + [np.max(np.abs(v)) for v in values])
         bins = np.linspace(-high, high, 40)
         for kind in kinds:
             if name in result.nulls[kind]:
-                ax.hist(result.nulls[kind][name], bins=bins, density=True, alpha=0.55, color=colours[kind],
+                ax.hist(result.nulls[kind][name], bins=bins, density=True, alpha=0.45, color=colours[kind],
                         label=f"{kind.replace('_', ' ')} ({result.nulls[kind][name].size})")
-        x = np.linspace(-high, high, 200)
-        ax.plot(x, stats.norm.pdf(x), color="k", lw=0.8, label="unit normal")
-        ax.axvline(observed, color="#c1121f", lw=2, label=f"observed {observed:.2f}")
-        ax.set_title(f"{name}: p = {result.estimates[name].get('p_value', float('nan')):.3g}", fontsize=10)
+        eigenvalues = result.null_eigenvalues.get(name)
+        exact_text = ""
+        if eigenvalues is not None and eigenvalues.size:
+            x = np.linspace(-high, high, 300)
+            ax.plot(x, null_density(x, eigenvalues), color="k", lw=1.2,
+                    label=f"exact noise-only density (skewness {entry['null_skewness']:.2f})")
+            exact_text = f", p exact = {entry['p_exact']:.2g}"
+        ax.axvline(observed, color="#c1121f", lw=2, label=f"observed {observed:.2f}{exact_text}")
+        p_trials = entry.get("p_value")
+        relation = "\u2264" if entry.get("p_value_is_bound") else "="
+        trials_text = f"p from trials {relation} {p_trials:.3g}" if p_trials is not None else "no null trials"
+        ax.set_title(f"{name}: {trials_text}", fontsize=10)
         ax.set_xlabel("S/N")
-        ax.legend(fontsize=7)
+        ax.set_ylim(0.0, 1.45 * ax.get_ylim()[1])  # room for the legend above the curves
+        ax.legend(fontsize=7, loc="upper left")
     axes[0, 0].set_ylabel("density")
     fig.tight_layout()
     return fig

@@ -465,7 +465,9 @@ class CorrelateSection(_Section):
     ``scrambles`` and ``phase_shifts`` null trials (0 for none) with
     ``scramble_threshold`` the largest match a kept scramble may have;
     ``fit_trials`` simulations that calibrate the fit-quality p-value; ``seed``
-    for the nulls and those simulations.
+    for the nulls and those simulations; ``estimator`` the optimal statistic's pair
+    weights: ``"weak-signal"`` (noise-only variances) or ``"pair-covariant"``
+    (generalised least squares with the pair-pair covariance at the estimated amplitude).
     """
 
     spectral_index: Optional[Quantity(None, SpectralIndex)] = None
@@ -480,6 +482,7 @@ class CorrelateSection(_Section):
     fit_trials: Count = Field(default=500, ge=0, le=1_000_000)
     seed: Count = Field(default=0, ge=0, le=2**63 - 1)
     overlays: bool = False
+    estimator: Literal["weak-signal", "pair-covariant"] = "weak-signal"
     noise_values: CorrelateNoise = CorrelateNoise()
 
     @model_validator(mode="after")
@@ -535,8 +538,8 @@ BINARY_QUANTITIES = ("lg_strain", "orbital_phase", "inclination_cosine", "polari
 class FitSection(_Section):
     """``[fit]``: the model ``ptares fit`` samples and how.
 
-    ``common``: the common process, ``"uncorrelated"``, ``"hellings-downs"`` or
-    ``"none"``, on ``harmonics`` frequencies; ``red``: each pulsar's red noise
+    ``common``: the common process, ``"uncorrelated"``, ``"hellings-downs"``,
+    ``"monopole"``, ``"dipole"`` or ``"none"``, on ``harmonics`` frequencies; ``red``: each pulsar's red noise
     ``"free"``, ``"injected"`` (fixed at the dataset's truth) or ``"none"``, on
     ``red_harmonics`` frequencies; ``white``: ``"injected"`` or ``"free"``;
     ``binary``: fit a continuous wave from one binary, with the quantities in
@@ -561,7 +564,7 @@ class FitSection(_Section):
     their medians or set their ``"prior"`` (``pulsar_noise_use``).
     """
 
-    common: Literal["uncorrelated", "hellings-downs", "none"] = "uncorrelated"
+    common: Literal["uncorrelated", "hellings-downs", "monopole", "dipole", "none"] = "uncorrelated"
     harmonics: Optional[Count] = Field(default=None, ge=1, le=MAX_HARMONICS)
     red: Optional[Literal["free", "injected", "none"]] = None
     red_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
@@ -601,6 +604,30 @@ class FitSection(_Section):
     workers: Count = Field(default=1, ge=1, le=256)
 
 
+class CompareSection(_Section):
+    """``[compare]``: settings of ``ptares compare``.
+
+    The uncorrelated model is fitted with ``[fit]`` (its ``common`` is set to
+    ``"uncorrelated"``); up to ``samples`` of its posterior draws, thinned to one per
+    autocorrelation time, are reweighted by the likelihood of each of ``patterns``.
+    Fewer than ``min_effective_samples`` effective samples after reweighting is
+    reported as unreliable.  ``workers`` local processes evaluate the likelihoods.
+    """
+
+    patterns: Annotated[tuple[Literal["hellings-downs", "monopole", "dipole"], ...], _listed_once("a pattern")] = (
+        "hellings-downs",)
+    samples: Count = Field(default=2000, ge=10, le=1_000_000)
+    min_effective_samples: Count = Field(default=100, ge=1, le=1_000_000)
+    workers: Count = Field(default=1, ge=1, le=256)
+
+    @field_validator("patterns")
+    @classmethod
+    def _some_pattern(cls, patterns):
+        if not patterns:
+            raise ValueError("name at least one pattern")
+        return patterns
+
+
 class SweepDask(_Section):
     """``[sweep.dask]``: run on a Dask cluster at ``scheduler`` (an address such as ``tcp://host:8786``)."""
 
@@ -622,7 +649,7 @@ class SweepSection(_Section):
     axes: dict[str, list] = {}
     grid: bool = True
     realisations: Count = Field(default=10, ge=1, le=1_000_000)
-    stages: tuple[Literal["simulate", "correlate", "fit"], ...] = ("simulate", "correlate")
+    stages: tuple[Literal["simulate", "correlate", "fit", "compare"], ...] = ("simulate", "correlate")
     seed: Count = Field(default=0, ge=0, le=2**63 - 1)
     false_alarm: Quantity(None, Positive, AfterValidator(_at_most(0.5))) = 0.05
     base: Optional[str] = None
@@ -652,6 +679,7 @@ class Config(_Section):
     binary: tuple[ContinuousWave, ...] = ()
     correlate: CorrelateSection = CorrelateSection()
     fit: FitSection = FitSection()
+    compare: CompareSection = CompareSection()
     sweep: Optional[SweepSection] = None
 
     _text: str = PrivateAttr(default="")

@@ -1,0 +1,145 @@
+"""Exact noise-only distribution of the optimal statistic's S/N (PHYSICS.md).
+
+With the noise model known and no inter-pulsar correlation, the Fourier-domain
+products ``X_a`` are Gaussian with covariance ``blockdiag(Z_a)`` (the pulsars'
+own noise, including any common auto-power the noise model assumes).  Any
+fixed-weight statistic ``S/N = sum_pairs w rho / sigma`` is the quadratic form
+``X^T Q X`` with blocks ``Q_ab = H_ab Phi / 2`` (a != b, ``H_ab = w_ab / (D_ab sigma)``)
+and zero diagonal blocks, so it is distributed as ``sum_i lambda_i chi^2_1`` with
+``lambda`` the eigenvalues of ``C^(1/2) Q C^(1/2)``.  Those equal the nonzero
+eigenvalues of ``R^T (H x I) R / 2`` with ``Y_a = Phi^(1/2) Z_a Phi^(1/2) = R_a R_a^T``
+(size P 2K).  Above :data:`EIGEN_LIMIT` each ``Y_a`` is kept to its diagonal, which
+splits the problem into one P x P problem per basis column (the
+"frequency-diagonal" form of :mod:`ptares.correlation.scatter`).
+
+Tail probabilities follow Imhof (1961, Biometrika 48, 419):
+``P(S > x) = 1/2 + (1/pi) int_0^inf sin theta(u) / (u rho(u)) du`` with
+``theta(u) = sum arctan(lambda_i u) / 2 - x u / 2`` and
+``rho(u) = prod (1 + lambda_i^2 u^2)^(1/4)``; the density is
+``f(x) = (1 / 2 pi) int_0^inf cos theta(u) / rho(u) du`` (the same inversion).
+The cumulants of ``sum lambda_i chi^2_1`` are ``kappa_r = 2^(r-1) (r-1)! sum lambda^r``,
+so the mean is ``sum lambda`` (zero here: Q has no diagonal blocks), the variance
+``2 sum lambda^2`` and the skewness ``kappa_3 / kappa_2^(3/2) = 2^(3/2) sum lambda^3 / (sum lambda^2)^(3/2)``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import integrate
+
+from ptares.correlation.fourier import FourierProducts
+from ptares.correlation.pairs import PairCorrelations, pair_matrices
+from ptares.limits import MEMORY_LIMIT
+
+__all__ = ["EIGEN_LIMIT", "NULL_DESCRIPTION", "null_density", "null_eigenvalues", "null_skewness", "tail_probability"]
+
+#: Largest P 2K for which the eigenvalues are computed without approximation.
+EIGEN_LIMIT = 3000
+#: The null every exact p-value assumes.
+NULL_DESCRIPTION = "noise only, noise model as assumed, Gaussian; estimator weights held fixed"
+#: Absolute accuracy asked of the Imhof integral.
+TOLERANCE = 1e-11
+
+
+def null_eigenvalues(products: FourierProducts, pairs: PairCorrelations, weights: np.ndarray, sigma: float):
+    """``(lambda, method)``: S/N of ``sum weights * rho / sigma`` is ``sum lambda_i chi^2_1`` under the null.
+
+    ``method`` is "exact", "frequency-diagonal", or ``None`` when even the
+    approximation would exceed :data:`ptares.limits.MEMORY_LIMIT` (lambda is then empty).
+    """
+    count, size = products.Z.shape[0], products.Z.shape[1]
+    _, denominator = pair_matrices(products)
+    H = np.zeros((count, count))
+    H[pairs.a, pairs.b] = weights / (denominator[pairs.a, pairs.b] * sigma)
+    H = H + H.T
+    root = np.sqrt(products.phi)
+    Y = root[None, :, None] * products.Z * root[None, None, :]
+    if count * size <= EIGEN_LIMIT:
+        values, vectors = np.linalg.eigh(Y)
+        R = vectors * np.sqrt(np.clip(values, 0.0, None))[:, None, :]  # Y_a = R_a R_a^T
+        blocks = 0.5 * H[:, None, :, None] * np.einsum("aji,bjk->aibk", R, R, optimize=True)
+        return np.linalg.eigvalsh(blocks.reshape(count * size, count * size)), "exact"
+    if 3 * size * count**2 * 8 > MEMORY_LIMIT:
+        return np.empty(0), None
+    diagonal = np.sqrt(np.clip(np.einsum("xii->ix", Y), 0.0, None))  # (2K, P)
+    blocks = 0.5 * diagonal[:, :, None] * H[None] * diagonal[:, None, :]
+    return np.linalg.eigvalsh(blocks).ravel(), "frequency-diagonal"
+
+
+def _kept(eigenvalues) -> np.ndarray:
+    eigenvalues = np.asarray(eigenvalues, dtype=float)
+    return eigenvalues[np.abs(eigenvalues) > 1e-12 * np.max(np.abs(eigenvalues))]
+
+
+def _upper_limit(eigenvalues: np.ndarray, tolerance: float) -> float:
+    """A ``U`` beyond which ``int_U^inf du / (u rho(u)) < pi tolerance``.
+
+    ``log rho`` is convex in ``log u`` with slope ``k(u) = sum t^2 / (1 + t^2) / 2``,
+    ``t = lambda u``, so that tail is at most ``1 / (k(U) rho(U))``.
+    """
+    u = 1.0 / np.max(np.abs(eigenvalues))
+    for _ in range(200):
+        t2 = (eigenvalues * u) ** 2
+        slope = 0.5 * np.sum(t2 / (1.0 + t2))
+        if -0.25 * np.sum(np.log1p(t2)) - np.log(slope) < np.log(np.pi * tolerance):
+            return u
+        u *= 1.5
+    return u
+
+
+def tail_probability(x: float, eigenvalues) -> float:
+    """``P(sum lambda_i chi^2_1 > x)`` by Imhof's method (absolute accuracy about 1e-9).
+
+    The integral runs to ``a``, 20 times the longest scale ``1 / max |lambda|`` of the phase (or less where
+    the envelope ``1 / (u rho)`` has fallen below 1e-3 before that); beyond,
+    ``sin theta = sin phi cos(x u / 2) - cos phi sin(x u / 2)`` with ``phi = sum arctan(lambda u) / 2``
+    slowly varying, and the two Fourier integrals go to quadpack's routine for them (QAWF).
+    """
+    lam = _kept(eigenvalues)
+
+    def phase(u):
+        return 0.5 * np.sum(np.arctan(lam * u))
+
+    def envelope(u):
+        return np.exp(-np.log(u) - 0.25 * np.sum(np.log1p((lam * u) ** 2)))  # in logs: no overflow far out
+
+    a = min(_upper_limit(lam, 1e-3), 20.0 / np.max(np.abs(lam)))
+    options = {"limit": 2000, "epsabs": TOLERANCE, "epsrel": 1e-10}
+    value = integrate.quad(lambda u: np.sin(phase(u) - 0.5 * x * u) * envelope(u), 0.0, a, **options)[0]
+    if x == 0.0:
+        value += integrate.quad(lambda u: np.sin(phase(u)) * envelope(u), a, np.inf, **options)[0]
+    else:
+        omega, sign = 0.5 * abs(x), np.sign(x)
+        value += integrate.quad(lambda u: np.sin(phase(u)) * envelope(u), a, np.inf, weight="cos", wvar=omega,
+                                limlst=200, epsabs=TOLERANCE)[0]
+        value -= sign * integrate.quad(lambda u: np.cos(phase(u)) * envelope(u), a, np.inf, weight="sin", wvar=omega,
+                                       limlst=200, epsabs=TOLERANCE)[0]
+    return float(np.clip(0.5 + value / np.pi, 0.0, 1.0))
+
+
+def null_density(x: np.ndarray, eigenvalues, points: int = 20_000) -> np.ndarray:
+    """Density of ``sum lambda_i chi^2_1`` at ``x``: Imhof's inversion integral by the trapezoid rule on at
+    most ``points`` nodes; where that cannot resolve it (few eigenvalues: a slowly decaying integrand),
+    central differences of :func:`tail_probability`."""
+    lam = _kept(eigenvalues)
+    x = np.asarray(x, dtype=float)
+    upper = _upper_limit(lam, 1e-6)
+    # resolve the fastest oscillation, d theta / du <= (sum |lambda| + max |x|) / 2, with 16 nodes a period
+    step = 2.0 * np.pi / (8.0 * (np.sum(np.abs(lam)) + np.max(np.abs(x))))
+    if upper / step > points:
+        h = 1e-4 * np.sqrt(2.0 * np.sum(lam**2))
+        return np.array([(tail_probability(v - h, lam) - tail_probability(v + h, lam)) / (2 * h) for v in x.ravel()])
+    u = np.linspace(0.0, upper, int(max(upper / step, 1000)))
+    theta0, envelope = np.empty_like(u), np.empty_like(u)
+    for part in np.array_split(np.arange(u.size), max(1, u.size * lam.size // 5_000_000)):
+        t = np.outer(u[part], lam)
+        theta0[part] = 0.5 * np.arctan(t).sum(axis=1)
+        envelope[part] = np.exp(-0.25 * np.log1p(t**2).sum(axis=1))
+    values = np.cos(theta0[:, None] - 0.5 * u[:, None] * x[None, :]) * envelope[:, None]
+    return np.clip(integrate.trapezoid(values, u, axis=0) / (2.0 * np.pi), 0.0, None)
+
+
+def null_skewness(eigenvalues) -> float:
+    """Skewness of ``sum lambda_i chi^2_1``: ``2^(3/2) sum lambda^3 / (sum lambda^2)^(3/2)``."""
+    lam = np.asarray(eigenvalues, dtype=float)
+    return float(2.0**1.5 * np.sum(lam**3) / np.sum(lam**2) ** 1.5)
