@@ -705,16 +705,15 @@ def pulsar_noise(source, out, *, settings=None, workers: int = 1, scheduler=None
 
 @dataclass(repr=False)
 class SweepResult:
-    """A campaign's rows (one dict per task, as in ``results.csv``), its detection threshold and where it is.
+    """A campaign's rows (one dict per task, as in ``results.csv``), its detection rule and where it is.
 
-    ``threshold`` is the Hellings-Downs S/N at false-alarm probability ``false_alarm``
-    (``threshold_basis`` says how it was set); ``out`` holds ``tasks/``,
-    ``results.csv`` and the figures listed in ``figures``.
+    ``rule`` (a :class:`~ptares.campaign.detection.DetectionRule`) says which column detects above or
+    below which threshold at false-alarm probability ``false_alarm`` and how that was set; ``out``
+    holds ``tasks/``, ``results.csv`` and the figures listed in ``figures``.
     """
 
     rows: list
-    threshold: float
-    threshold_basis: str
+    rule: object
     false_alarm: float
     out: Path
     figures: list = field(default_factory=list)
@@ -726,10 +725,10 @@ class SweepResult:
 
     def detection_probability(self) -> dict:
         """Injected background amplitude -> :class:`~ptares.campaign.detection.Detection` (share of its
-        finished tasks with S/N above the threshold, its binomial standard error, the task count)."""
+        finished tasks that detect by :attr:`rule`, its binomial standard error, the task count)."""
         from ptares.campaign.detection import detection_probability
 
-        return detection_probability(self.rows, self.threshold)
+        return detection_probability(self.rows, self.rule)
 
     def __repr__(self) -> str:
         axes = sorted({k[5:] for r in self.rows for k in r if k.startswith("axis:")})
@@ -741,8 +740,7 @@ class SweepResult:
                  f"{len(self.failed)} failed; in {self.out}"]
         if counts:
             lines.append(f"  axes {', '.join(counts)}")
-        lines.append(f"  detection threshold S/N {self.threshold:.3g} at false-alarm {self.false_alarm:g} "
-                     f"({self.threshold_basis})")
+        lines.append(f"  detection: {self.rule} at false-alarm {self.false_alarm:g} ({self.rule.how})")
         detections = self.detection_probability()
         if detections:
             shown = [f"{a:.3g}: {d.fraction:.2f} +/- {d.error:.2f}" for a, d in list(detections.items())[:6]]
@@ -763,7 +761,7 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
     ``figures=False``, the campaign figures.  Ctrl-C raises :class:`Interrupted`.
     ``threads``: BLAS and numba threads of each worker (None: :data:`~ptares.threads.DEFAULT_THREADS`).
     """
-    from ptares.campaign.detection import detection_threshold
+    from ptares.campaign.detection import detection_rule
     from ptares.campaign.sweep import run_sweep
     from ptares.campaign.tasks import load_sweep
 
@@ -807,11 +805,11 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
         from ptares.figures.campaign import sweep_figures
         from ptares.figures.common import save_figure
 
-        for name, fig in sweep_figures(rows, section.false_alarm).items():
+        for name, fig in sweep_figures(rows, section.false_alarm, section.detection, section.ln_bayes_threshold).items():
             save_figure(fig, out / name)
             written.append(out / name)
-    threshold, basis = detection_threshold(rows, section.false_alarm)
-    return SweepResult(rows, threshold, basis, section.false_alarm, out, written)
+    rule = detection_rule(rows, section.false_alarm, section.detection, section.ln_bayes_threshold)
+    return SweepResult(rows, rule, section.false_alarm, out, written)
 
 
 # ---------------------------------------------------------------- check, import, export

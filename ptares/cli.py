@@ -50,8 +50,16 @@ def _correlate(args) -> int:
     hd = result.estimates["hellings-downs"]
     p_text = ""
     if "p_value" in hd:
-        p_text = f", p {'<=' if hd['p_value_is_bound'] else '='} {hd['p_value']:.3g}"
-    print(f"hellings-downs: A^2 = {hd['amplitude2']:.3g} +/- {hd['sigma']:.3g}, S/N = {hd['snr']:.2f}{p_text}")
+        p_text = f", p from trials {'<=' if hd['p_value_is_bound'] else '='} {hd['p_value']:.3g}"
+    if hd.get("p_exact") is not None:
+        p_text += f", exact noise-only p = {hd['p_exact']:.3g}"
+    if result.settings.get("estimator") == "pair-covariant":
+        signal = " (pair-covariant: the background's own scatter included)"
+    elif hd.get("sigma_signal") is not None:
+        signal = f" (weak-signal; {hd['sigma_signal']:.3g} with the background's own scatter)"
+    else:
+        signal = ""
+    print(f"hellings-downs: A^2 = {hd['amplitude2']:.3g} +/- {hd['sigma']:.3g}{signal}, S/N = {hd['snr']:.2f}{p_text}")
     return 0
 
 

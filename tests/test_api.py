@@ -92,7 +92,7 @@ def test_notebook_session(tmp_path):
     assert isinstance(swept, ptares.SweepResult)
     assert len(swept.rows) == 2 and not swept.failed, swept.rows
     assert (tmp_path / "sweep" / "results.csv").exists() and (tmp_path / "sweep" / "config.toml").exists()
-    assert_summary(repr(swept), "2 tasks, 2 ok, 0 failed", "observing.span (2 values)", "detection threshold S/N")
+    assert_summary(repr(swept), "2 tasks, 2 ok, 0 failed", "observing.span (2 values)", "detection: ")
 
 
 def test_quantities_give_the_same_dataset_as_numbers_in_default_units():

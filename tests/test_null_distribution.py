@@ -12,9 +12,8 @@ from conftest import small_config
 from scipy import stats
 
 from ptares.campaign.detection import (
-    PerTaskThreshold,
     detection_probability,
-    detection_threshold,
+    detection_rule,
 )
 from ptares.correlation.fourier import fourier_products
 from ptares.correlation.noise import noise_from_dataset
@@ -130,12 +129,13 @@ def test_campaign_uses_exact_p_values_without_enough_null_tasks():
     without exact p-values, the unit normal (scipy.stats.norm) as before."""
     rows = [{"status": "ok", "injected_amplitude": a, "hd_snr": s, "hd_p_exact": p}
             for a, s, p in ((0.0, 0.5, 0.3), (1e-14, 2.0, 0.04), (1e-14, 2.5, 0.06), (1e-14, 4.0, 1e-4))]
-    threshold, how = detection_threshold(rows, 0.05)
-    assert isinstance(threshold, PerTaskThreshold) and "exact" in how
-    found = detection_probability(rows, threshold)
+    rule = detection_rule(rows, 0.05)
+    assert rule.column == "hd_p_exact" and not rule.above and rule.threshold == 0.05 and "exact" in rule.how
+    found = detection_probability(rows, rule)
     assert found[1e-14].fraction == pytest.approx(2 / 3) and found[0.0].fraction == 0.0
     plain = [{k: v for k, v in r.items() if k != "hd_p_exact"} for r in rows]
-    threshold, how = detection_threshold(plain, 0.05)
+    rule = detection_rule(plain, 0.05)
+    threshold, how = rule.threshold, rule.how
     assert threshold == pytest.approx(stats.norm.isf(0.05)) and "unit-normal" in how
 
 

@@ -152,14 +152,15 @@ def test_list_valued_axis_and_seed_axis(tmp_path, capsys):
 def test_detection_probability_and_threshold():
     """Threshold: the 95% quantile of the no-signal S/N (numpy); detection share k/n with its binomial
     standard error sqrt(p (1 - p) / n), p = (k + 1/2) / (n + 1) so that it is never zero (common practice)."""
-    from ptares.campaign.detection import detection_probability, detection_threshold
+    from ptares.campaign.detection import DetectionRule, detection_probability, detection_rule
 
     null = [{"status": "ok", "injected_amplitude": 0.0, "hd_snr": float(s)} for s in np.linspace(-2, 2, 21)]
     loud = [{"status": "ok", "injected_amplitude": 1e-14, "hd_snr": float(s)} for s in (1.0, 3.0, 4.0, 5.0)]
     failed = [{"status": "failed", "injected_amplitude": 1e-14, "hd_snr": ""}]
-    threshold, how = detection_threshold(null + loud + failed, 0.05)
-    assert threshold == pytest.approx(np.quantile(np.linspace(-2, 2, 21), 0.95), rel=1e-12) and "21 no-signal" in how
-    found = detection_probability(null + loud + failed, 2.0)
+    rule = detection_rule(null + loud + failed, 0.05)
+    assert rule.threshold == pytest.approx(np.quantile(np.linspace(-2, 2, 21), 0.95), rel=1e-12)
+    assert "21 no-signal" in rule.how and rule.column == "hd_snr" and rule.above
+    found = detection_probability(null + loud + failed, DetectionRule("hd_snr", 2.0, True, "given"))
     assert found[1e-14].tasks == 4 and found[1e-14].fraction == 0.75
     p = 3.5 / 5
     assert found[1e-14].error == pytest.approx(np.sqrt(p * (1 - p) / 4), rel=1e-12)
@@ -180,3 +181,60 @@ def test_earlier_keys_in_a_sweep_name_their_replacement(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "gwb.gamma: unknown key; the spectral index is now 'gwb.spectral_index'" in err and err.count("\n") == 1
     assert not (tmp_path / "o").exists()
+
+
+BAYES_SWEEP = """
+[run]
+seed = 1
+[array]
+random = {count = 12}
+[observing]
+span = "10 yr"
+cadence = "30 d"
+toa_error = "1000 ns"
+[gwb]
+amplitude = 1e-15
+harmonics = 5
+[fit]
+red = "none"
+harmonics = 5
+fixed = { common_spectral_index = 4.333333333 }
+effective_samples = 100
+autocorr_factor = 20
+[compare]
+samples = 300
+[sweep]
+realisations = 1
+seed = 11
+stages = ["simulate", "compare"]
+detection = "bayes_factor"
+ln_bayes_threshold = 1.0
+[sweep.axes]
+"gwb.amplitude" = [0.0, 1e-14]
+"""
+
+
+def test_bayes_factor_as_the_detection_statistic(tmp_path):
+    """The compare stage records ln B per task; with detection = "bayes_factor" and fewer than five no-signal
+    tasks the rule is the fixed ln B threshold, and a loud background detects where none does not."""
+    import ptares
+
+    path = tmp_path / "sweep.toml"
+    path.write_text(BAYES_SWEEP)
+    result = ptares.sweep(path, tmp_path / "out")
+    rows = sorted(result.rows, key=lambda r: r["injected_amplitude"])
+    assert [r["status"] for r in rows] == ["ok", "ok"], [r.get("error") for r in rows]
+    assert all(isinstance(r["ln_bayes_factor"], float) and r["ln_bayes_factor_error"] >= 0 for r in rows)
+    assert rows[1]["ln_bayes_factor"] > 1.0 > rows[0]["ln_bayes_factor"]
+    assert result.rule.column == "ln_bayes_factor" and result.rule.threshold == 1.0 and "fixed" in result.rule.how
+    found = result.detection_probability()
+    assert found[0.0].fraction == 0.0 and found[1e-14].fraction == 1.0
+    assert (tmp_path / "out" / "bayes.png").exists() and "ln B > 1" in repr(result)
+
+
+def test_bayes_factor_detection_needs_the_compare_stage(tmp_path, capsys):
+    path = write(tmp_path, extra="").read_text().replace("seed = 11", 'seed = 11\ndetection = "bayes_factor"')
+    (tmp_path / "bad.toml").write_text(path)
+    assert main(["sweep", str(tmp_path / "bad.toml"), "--out", str(tmp_path / "o")]) == 2
+    error = capsys.readouterr().err.strip()
+    assert "sweep" in error and "'compare' stage" in error and len(error.splitlines()) == 1

@@ -1,10 +1,14 @@
 """Detection statistics of a campaign: the detection rule at a false-alarm probability, and
 the detection probability at each injected amplitude with its binomial uncertainty.
 
-A task detects when its Hellings-Downs S/N exceeds a common threshold, the quantile of
-the no-signal tasks' S/N; with too few of those, when its exact noise-only p-value
-(``hd_p_exact``, :mod:`ptares.correlation.null_distribution`) is below the false-alarm
-probability, a threshold of its own; only without either, the unit-normal S/N.
+With the optimal statistic (``[sweep] detection = "snr"``) a task detects when its
+Hellings–Downs S/N exceeds the (1 - false_alarm) quantile of the no-signal tasks' S/N (at
+least five of them); with fewer, when its exact noise-only p-value (``hd_p_exact``,
+:mod:`ptares.correlation.null_distribution`) is below the false-alarm probability; only
+without either, when the S/N exceeds the unit-normal value.  With the Bayes factor
+(``detection = "bayes_factor"``, the ``compare`` stage) a task detects when its
+``ln_bayes_factor`` exceeds the same quantile of the no-signal tasks' values, or, with fewer
+than five, the fixed ``[sweep] ln_bayes_threshold`` (which carries no false-alarm probability).
 """
 
 from __future__ import annotations
@@ -13,7 +17,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Detection", "PerTaskThreshold", "detection_probability", "detection_threshold", "detects", "finished"]
+__all__ = ["Detection", "DetectionRule", "MIN_NULL_TASKS", "detection_probability", "detection_rule", "finished"]
+
+#: No-signal tasks needed before a threshold is read from their distribution.
+MIN_NULL_TASKS = 5
+
+_LABELS = {"hd_snr": "Hellings\u2013Downs S/N", "hd_p_exact": "exact noise-only p", "ln_bayes_factor": "ln B"}
 
 
 def finished(rows, key: str) -> list:
@@ -21,44 +30,42 @@ def finished(rows, key: str) -> list:
     return [r for r in rows if r.get("status") == "ok" and isinstance(r.get(key), float)]
 
 
-class PerTaskThreshold(float):
-    """No common S/N threshold (its value as a number is NaN): a task detects when its exact
-    noise-only p-value ``hd_p_exact`` is below ``false_alarm``."""
+@dataclass(frozen=True)
+class DetectionRule:
+    """A task detects when its ``column`` is above ``threshold`` (``above``) or below it; ``how`` says
+    how the threshold was set."""
 
-    def __new__(cls, false_alarm: float):
-        value = super().__new__(cls, float("nan"))
-        value.false_alarm = float(false_alarm)
-        return value
+    column: str
+    threshold: float
+    above: bool
+    how: str
 
-    def __repr__(self) -> str:
-        return f"PerTaskThreshold(false_alarm={self.false_alarm!r})"
+    def detects(self, row) -> bool:
+        value = row[self.column]
+        return value > self.threshold if self.above else value < self.threshold
+
+    def __str__(self) -> str:
+        return f"{_LABELS.get(self.column, self.column)} {'>' if self.above else '<'} {self.threshold:.3g}"
 
 
-def detection_threshold(rows, false_alarm: float):
-    """Detection rule at ``false_alarm`` from the campaign's rows; ``(threshold, how)``.
-
-    With at least five finished tasks whose injected amplitude is 0, ``threshold`` is the
-    (1 - false_alarm) quantile of their Hellings-Downs S/N.  With fewer, and every finished
-    task carrying ``hd_p_exact``, it is a :class:`PerTaskThreshold` (exact null of each task);
-    otherwise the unit-normal value, which assumes the null S/N is Gaussian (it is skewed).
-    """
+def detection_rule(rows, false_alarm: float, statistic: str = "snr", ln_bayes_threshold: float = 3.0) -> DetectionRule:
+    """The rule at ``false_alarm`` for ``statistic`` (``"snr"`` or ``"bayes_factor"``) from the campaign's rows."""
     from scipy import stats
 
-    done = finished(rows, "hd_snr")
-    silent = [r["hd_snr"] for r in done if r.get("injected_amplitude") == 0.0]
-    if len(silent) >= 5:
-        return float(np.quantile(silent, 1.0 - false_alarm)), f"from {len(silent)} no-signal tasks"
+    column = "ln_bayes_factor" if statistic == "bayes_factor" else "hd_snr"
+    done = finished(rows, column)
+    silent = [r[column] for r in done if r.get("injected_amplitude") == 0.0]
+    if len(silent) >= MIN_NULL_TASKS:
+        return DetectionRule(column, float(np.quantile(silent, 1.0 - false_alarm)), True,
+                             f"from {len(silent)} no-signal tasks")
+    if statistic == "bayes_factor":
+        return DetectionRule(column, float(ln_bayes_threshold), True,
+                             f"fixed ln B threshold: fewer than {MIN_NULL_TASKS} no-signal tasks, no false-alarm probability")
     if done and len(finished(done, "hd_p_exact")) == len(done):
-        return PerTaskThreshold(false_alarm), "per task: exact noise-only p-value below the false-alarm probability"
-    return float(stats.norm.isf(false_alarm)), "unit-normal S/N (fewer than 5 no-signal tasks, no exact p-values)"
-
-
-def detects(row, threshold) -> bool:
-    """Whether a finished task detects: its exact p-value below a :class:`PerTaskThreshold`'s
-    false-alarm probability, else its Hellings-Downs S/N above ``threshold``."""
-    if isinstance(threshold, PerTaskThreshold):
-        return row["hd_p_exact"] < threshold.false_alarm
-    return row["hd_snr"] > threshold
+        return DetectionRule("hd_p_exact", float(false_alarm), False,
+                             f"each task's exact noise-only p-value: fewer than {MIN_NULL_TASKS} no-signal tasks")
+    return DetectionRule(column, float(stats.norm.isf(false_alarm)), True,
+                         f"unit-normal S/N (fewer than {MIN_NULL_TASKS} no-signal tasks, no exact p-values)")
 
 
 @dataclass(frozen=True)
@@ -75,13 +82,11 @@ class Detection:
         return f"{self.fraction:.2f} +/- {self.error:.2f} ({self.tasks} tasks)"
 
 
-def detection_probability(rows, threshold) -> dict:
-    """Injected amplitude -> :class:`Detection` over the finished tasks with that amplitude;
-    ``threshold`` a common S/N or a :class:`PerTaskThreshold` (see :func:`detects`)."""
-    key = "hd_p_exact" if isinstance(threshold, PerTaskThreshold) else "hd_snr"
+def detection_probability(rows, rule: DetectionRule) -> dict:
+    """Injected amplitude -> :class:`Detection` over the finished tasks with that amplitude."""
     groups = {}
-    for r in finished(rows, key):
-        groups.setdefault(r.get("injected_amplitude"), []).append(detects(r, threshold))
+    for r in finished(rows, rule.column):
+        groups.setdefault(r.get("injected_amplitude"), []).append(rule.detects(r))
     result = {}
     for amplitude in sorted(groups, key=lambda a: a or 0.0):
         hits = np.asarray(groups[amplitude])

@@ -40,6 +40,7 @@ COLUMNS = [
     "hd_curve_chi2", "hd_curve_p_calibrated",
     "common_lg_amplitude.median", "common_lg_amplitude.low68", "common_lg_amplitude.high68",
     "common_lg_amplitude.quantile", "common_spectral_index.median", "common_spectral_index.quantile", "fit_converged",
+    "ln_bayes_factor", "ln_bayes_factor_error", "bayes_effective_samples", "bayes_reliable",
     "status", "error", "run_time",
 ]
 
@@ -150,6 +151,26 @@ def _summary_of_fit(model, run, summary) -> dict:
     return row
 
 
+def _bayes_factor(data, config: Config, fitted=None) -> dict:
+    """The compare stage's columns: the uncorrelated fit (``fitted``, when the fit stage ran one) reweighted
+    by the Hellings–Downs likelihood in this process."""
+    from ptares.campaign.comparison import compare_models
+    from ptares.inference.model import FitModel
+    from ptares.inference.samplers import run_sampler
+    from ptares.inference.samplers.chains import summarise
+
+    if fitted is None:
+        model = FitModel(data, config.fit.model_copy(update={"common": "uncorrelated"}))
+        with tempfile.TemporaryDirectory() as scratch:
+            run = run_sampler(model, Path(scratch) / "chains.h5")
+        fitted = (model, run, summarise(model, run))
+    model, run, summary = fitted
+    content = compare_models(model, run.chain, summary, config.compare.model_copy(update={"workers": 1}),
+                             seed=config.fit.seed).content
+    return {"ln_bayes_factor": content["ln_bayes_factor"], "ln_bayes_factor_error": content["ln_bayes_factor_error"],
+            "bayes_effective_samples": content["effective_samples"], "bayes_reliable": content["reliable"]}
+
+
 def run_task(task: Task) -> dict:
     """Run one task and return its row; never raises (a failure is a row with its error)."""
     from ptares.correlation.analysis import correlate
@@ -176,11 +197,16 @@ def run_task(task: Task) -> dict:
                        monopole_snr=result.estimates["monopole"]["snr"],
                        dipole_snr=result.estimates["dipole"]["snr"], hd_curve_chi2=result.fit["chi2"],
                        hd_curve_p_calibrated=result.fit.get("p_calibrated"))
+        fitted = None
         if "fit" in task.stages:
             model = FitModel(data, config.fit)
             with tempfile.TemporaryDirectory() as scratch:
                 run = run_sampler(model, Path(scratch) / "chains.h5")
-            row.update(_summary_of_fit(model, run, summarise(model, run)))
+            summary = summarise(model, run)
+            row.update(_summary_of_fit(model, run, summary))
+            fitted = (model, run, summary) if config.fit.common == "uncorrelated" else None
+        if "compare" in task.stages:
+            row.update(_bayes_factor(data, config, fitted))
         row["status"] = "ok"
     except Exception as exc:  # any failure of one task is recorded, never fatal to the campaign
         message = exc.line() if isinstance(exc, InputError) else f"{type(exc).__name__}: {exc}"

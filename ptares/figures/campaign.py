@@ -10,9 +10,8 @@ import matplotlib.pyplot as plt
 import numpy as np
 
 from ptares.campaign.detection import (
-    PerTaskThreshold,
     detection_probability,
-    detection_threshold,
+    detection_rule,
     finished,
 )
 from ptares.figures.common import COMPONENT_COLOURS
@@ -36,18 +35,19 @@ def _groups(rows):
     return groups
 
 
-def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
+def sweep_figures(rows, false_alarm: float = 0.05, statistic: str = "snr", ln_bayes_threshold: float = 3.0) -> dict:
     """Campaign figures by file name: detection probability, recovered amplitude, S/N distributions
-    (``detection.png``, ``recovery.png``, ``snr.png``) and the coverage of credible intervals (``coverage.png``,
-    when fits ran)."""
+    (``detection.png``, ``recovery.png``, ``snr.png``), the coverage of credible intervals (``coverage.png``,
+    when fits ran) and the Bayes factors (``bayes.png``, when the compare stage ran).  ``statistic`` and
+    ``ln_bayes_threshold`` choose the detection rule (:func:`~ptares.campaign.detection.detection_rule`)."""
     figures = {}
     every_row = rows
+    rule = detection_rule(every_row, false_alarm, statistic, ln_bayes_threshold)
     rows = finished(rows, "hd_snr")
-    if rows:
-        threshold, how = detection_threshold(rows, false_alarm)
+    if finished(every_row, rule.column):
         fig, ax = plt.subplots(figsize=(7.0, 4.5))
-        for label, members in _groups(rows).items():
-            detections = detection_probability(members, threshold)
+        for label, members in _groups(finished(every_row, rule.column)).items():
+            detections = detection_probability(members, rule)
             amplitudes = list(detections)
             fractions = [d.fraction for d in detections.values()]
             errors = [d.error for d in detections.values()]
@@ -57,14 +57,12 @@ def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
         ax.set_xlabel("injected amplitude A")
         ax.set_ylabel("detection probability")
         ax.set_ylim(-0.03, 1.03)
-        rule = (f"exact p < {false_alarm:g}" if isinstance(threshold, PerTaskThreshold)
-                else f"Hellings\u2013Downs S/N > {threshold:.2f}")
-        ax.set_title(f"{rule} ({how})", fontsize=10)
+        ax.set_title(f"{rule} ({rule.how})", fontsize=9)
         ax.legend(fontsize=7)
         ax.grid(alpha=0.3)
         fig.tight_layout()
         figures["detection.png"] = fig
-
+    if rows:
         fig, ax = plt.subplots(figsize=(6.0, 5.0))
         injected = np.array([r["injected_amplitude"] ** 2 for r in rows])
         recovered = np.array([r["hd_amplitude2"] for r in rows])
@@ -87,10 +85,10 @@ def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
         amplitudes = sorted({r["injected_amplitude"] for r in rows})
         data = [[r["hd_snr"] for r in rows if r["injected_amplitude"] == a] for a in amplitudes]
         ax.boxplot(data, tick_labels=[f"{a:.2g}" for a in amplitudes])
-        if not isinstance(threshold, PerTaskThreshold):
-            ax.axhline(threshold, color="#c1121f", ls="--", lw=1, label=f"detection threshold {threshold:.2f}")
+        if rule.column == "hd_snr":
+            ax.axhline(rule.threshold, color="#c1121f", ls="--", lw=1, label=f"detection threshold {rule.threshold:.2f}")
         else:
-            ax.plot([], [], " ", label=f"detection: each task's exact p < {false_alarm:g}")
+            ax.plot([], [], " ", label=f"detection: {rule}")
         ax.set_xlabel("injected amplitude A")
         ax.set_ylabel("Hellings\u2013Downs S/N")
         ax.set_title("S/N distributions", fontsize=10)
@@ -99,10 +97,39 @@ def sweep_figures(rows, false_alarm: float = 0.05) -> dict:
         fig.tight_layout()
         figures["snr.png"] = fig
 
+    compared = finished(every_row, "ln_bayes_factor")
+    if compared:
+        figures["bayes.png"] = bayes_figure(compared, rule)
     coverage = coverage_figure(every_row)
     if coverage is not None:
         figures["coverage.png"] = coverage
     return figures
+
+
+def bayes_figure(rows, rule):
+    """ln Bayes factor (Hellings–Downs against uncorrelated) of every task against its injected amplitude, with
+    its standard error; unreliable reweightings hollow; the detection threshold when the rule uses ln B."""
+    fig, ax = plt.subplots(figsize=(7.0, 4.5))
+    amplitudes = sorted({r["injected_amplitude"] for r in rows})
+    position = {a: i for i, a in enumerate(amplitudes)}
+    offsets = np.random.default_rng(0).uniform(-0.15, 0.15, len(rows))  # spread the points of one amplitude
+    for r, offset in zip(rows, offsets):
+        reliable = bool(r.get("bayes_reliable", True))
+        ax.errorbar(position[r["injected_amplitude"]] + offset, r["ln_bayes_factor"], yerr=r.get("ln_bayes_factor_error"),
+                    fmt="o", ms=4, color=COMPONENT_COLOURS["gwb"], mfc=COMPONENT_COLOURS["gwb"] if reliable else "white",
+                    lw=0.8, alpha=0.8)
+    if rule.column == "ln_bayes_factor":
+        ax.axhline(rule.threshold, color="#c1121f", ls="--", lw=1, label=f"detection: {rule} ({rule.how})")
+    ax.axhline(0.0, color="0.5", lw=0.8)
+    ax.plot([], [], "o", color=COMPONENT_COLOURS["gwb"], mfc="white", label="unreliable reweighting")
+    ax.set_xticks(range(len(amplitudes)), [f"{a:.2g}" for a in amplitudes])
+    ax.set_xlabel("injected amplitude A")
+    ax.set_ylabel("ln B, Hellings–Downs against uncorrelated")
+    ax.set_title("Bayes factors by reweighting", fontsize=10)
+    ax.legend(fontsize=7)
+    ax.grid(alpha=0.3, axis="y")
+    fig.tight_layout()
+    return fig
 
 
 def interval_coverage(quantiles, widths):

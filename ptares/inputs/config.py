@@ -641,8 +641,11 @@ class SweepSection(_Section):
     to lists of values; ``grid = true`` runs every combination, ``false`` zips
     lists of equal length.  Each combination runs ``realisations`` times with
     seeds derived from ``seed`` and the task's index.  ``stages`` says what each
-    task runs; ``false_alarm`` is the false-alarm probability of the detection
-    threshold set from the tasks without a background.  ``base`` names another
+    task runs (``compare`` adds the Bayes factor of ``ptares compare``);
+    ``false_alarm`` is the false-alarm probability of the detection threshold set
+    from the tasks without a background; ``detection`` the statistic that detects,
+    the optimal statistic's ``"snr"`` or the ``"bayes_factor"`` (with fewer than
+    five no-signal tasks: ``ln B > ln_bayes_threshold``).  ``base`` names another
     config file whose tables this file's tables override.
     """
 
@@ -652,6 +655,8 @@ class SweepSection(_Section):
     stages: tuple[Literal["simulate", "correlate", "fit", "compare"], ...] = ("simulate", "correlate")
     seed: Count = Field(default=0, ge=0, le=2**63 - 1)
     false_alarm: Quantity(None, Positive, AfterValidator(_at_most(0.5))) = 0.05
+    detection: Literal["snr", "bayes_factor"] = "snr"
+    ln_bayes_threshold: float = Field(default=3.0, ge=-1e3, le=1e3)
     base: Optional[str] = None
     dask: Optional[SweepDask] = None
 
@@ -659,6 +664,9 @@ class SweepSection(_Section):
     def _shape(self):
         if "simulate" not in self.stages:
             raise ValueError("every task simulates its data: 'simulate' must be among the stages")
+        needed = {"snr": "correlate", "bayes_factor": "compare"}[self.detection]
+        if needed not in self.stages:
+            raise ValueError(f"detection = {self.detection!r} needs the {needed!r} stage")
         for key, values in self.axes.items():
             if not isinstance(values, list) or not values:
                 raise ValueError(f"axis {key!r} needs a non-empty list of values")
