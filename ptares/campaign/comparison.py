@@ -144,7 +144,8 @@ def _warning(result, min_effective: int, fit_summary: dict) -> str | None:
     if result.effective_samples < min_effective:
         reasons.append(f"only {result.effective_samples:.0f} effective samples of {result.draws} draws "
                        f"(fewer than {min_effective}): the correlated posterior lies where the uncorrelated one has few "
-                       "draws; fit the correlated model directly")
+                       "draws, and ln B is then most likely an underestimate (the rare large weights are missed); "
+                       "fit the correlated model directly")
     if not fit_summary.get("converged", False):
         reasons.append(f"the uncorrelated fit has not converged ({fit_summary.get('not_converged_because')})")
     return "; ".join(reasons) or None
