@@ -23,6 +23,13 @@ def small_config(**overrides) -> Config:
     return Config.model_validate(raw)
 
 
+def listed_pulsars(count: int, seed: int, prefix: str) -> list:
+    """``count`` pulsar entries named ``<prefix>00``... at isotropic random positions (degrees)."""
+    rng = np.random.default_rng(seed)
+    return [{"name": f"{prefix}{i:02d}", "ra": float(rng.uniform(0, 360)),
+             "dec": float(np.degrees(np.arcsin(rng.uniform(-1, 1))))} for i in range(count)]
+
+
 @pytest.fixture
 def config_factory():
     return small_config

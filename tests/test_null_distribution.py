@@ -8,7 +8,7 @@ binomial or batch-mean standard errors, seeds fixed.
 
 import numpy as np
 import pytest
-from conftest import small_config
+from conftest import listed_pulsars, small_config
 from scipy import stats
 
 from ptares.campaign.detection import (
@@ -33,11 +33,7 @@ from ptares.correlation.pairs import (
 from ptares.correlation.scatter import ensemble_draws
 from ptares.simulation.simulate import simulate
 
-RNG = np.random.default_rng(77)
-LISTED = [
-    {"name": f"N{i:02d}", "ra": float(RNG.uniform(0, 360)), "dec": float(np.degrees(np.arcsin(RNG.uniform(-1, 1))))}
-    for i in range(8)
-]
+LISTED = listed_pulsars(8, 77, "N")
 HARMONICS = 6
 
 

@@ -8,7 +8,7 @@ practice, Gaussian approximation); checks allow 3 of those.  Seeds are fixed.
 
 import numpy as np
 import pytest
-from conftest import small_config
+from conftest import listed_pulsars, small_config
 
 from ptares.correlation.analysis import correlate
 from ptares.correlation.fourier import FourierProducts, fourier_products
@@ -31,11 +31,7 @@ from ptares.inputs.config import CorrelateSection
 from ptares.physics.patterns import correlation_matrix
 from ptares.simulation.simulate import simulate
 
-RNG = np.random.default_rng(91)
-LISTED = [
-    {"name": f"S{i:02d}", "ra": float(RNG.uniform(0, 360)), "dec": float(np.degrees(np.arcsin(RNG.uniform(-1, 1))))}
-    for i in range(10)
-]
+LISTED = listed_pulsars(10, 91, "S")
 HARMONICS = 6
 AMPLITUDE = 2e-15  # S/N about 5 for this array: the background's own scatter dominates
 DRAWS = 4000
