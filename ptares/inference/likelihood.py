@@ -40,7 +40,6 @@ from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
-import scipy.linalg
 from scipy.linalg import lapack as _lapack
 
 from ptares.errors import InputError
