@@ -612,20 +612,29 @@ def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None
                           default=config.compare if config is not None else None)
     if out is not None:
         out = check_output_directory(out, True)
-    if dataset is None:
-        dataset = simulate_config(config, progress=verbose)
-        if out is not None:
+    client = None
+    if scheduler is not None:  # an unreachable scheduler is refused before hours of fitting
+        from ptares.campaign.engines import dask_client
+
+        client = dask_client(scheduler)
+    try:
+        if dataset is None:
+            dataset = simulate_config(config, progress=verbose)
+        model = FitModel(dataset, fit_section)  # the [fit] settings are checked before anything is written
+        if config is not None and out is not None:
             try:
                 out.mkdir(parents=True, exist_ok=True)
                 _keep_dataset(dataset, out, overwrite)
             except OSError as exc:
                 raise _cannot_write(exc, out) from None
-    fitted = fit(dataset, None if out is None else out / "uncorrelated", settings=fit_section, overwrite=overwrite,
-                 figures=figures, verbose=verbose, threads=threads)
-    model = FitModel(dataset, fit_section)
-    _say(verbose, f"reweighting the uncorrelated posterior by the {', '.join(section.patterns)} likelihood")
-    comparison = compare_models(model, fitted.chain(), fitted.summary, section, seed=fit_section.seed,
-                                scheduler=scheduler, progress=verbose)
+        fitted = fit(dataset, None if out is None else out / "uncorrelated", settings=fit_section, overwrite=overwrite,
+                     figures=figures, verbose=verbose, threads=threads)
+        _say(verbose, f"reweighting the uncorrelated posterior by the {', '.join(section.patterns)} likelihood")
+        comparison = compare_models(model, fitted.chain(), fitted.summary, section, seed=fit_section.seed,
+                                    scheduler=client, progress=verbose)
+    finally:
+        if client is not None and client is not scheduler:
+            client.close()
     if out is not None:
         try:
             write_json(out / "comparison.json", comparison.content)

@@ -191,9 +191,11 @@ THREADS_HELP = (f"BLAS and numba threads per process, workers included (default 
                 "more only pays on cores nothing else uses)")
 
 
-def _engine_options(command) -> None:
-    """Where the tasks of a resumable many-task command run, and whether to start afresh."""
-    command.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
+def _engine_options(command, workers: str = "1") -> None:
+    """Where the tasks of a resumable many-task command run, and whether to start afresh; ``workers`` names
+    the default of ``--workers`` in its help (None where a config key gives it)."""
+    command.add_argument("--workers", type=int, default=1 if workers == "1" else None,
+                         help=f"local worker processes (default {workers})")
     command.add_argument("--scheduler", help="address of a Dask scheduler (instead of local workers)")
     command.add_argument("--overwrite", action="store_true", help="discard earlier results of this directory")
 
@@ -266,7 +268,7 @@ def build_parser() -> argparse.ArgumentParser:
     cmp.add_argument("--max-steps", type=int, help="most steps of the uncorrelated fit (rerun with more to extend)")
     cmp.add_argument("--sampler", choices=["auto", "ensemble", "gibbs"], help="sampler of the uncorrelated fit")
     cmp.add_argument("--seed", type=int, help="seed of the sampler and of the draws' selection")
-    _engine_options(cmp)
+    _engine_options(cmp, workers="[compare] workers, 1")
     cmp.set_defaults(run=_compare)
 
     noise = commands.add_parser("noise", parents=[common],

@@ -52,7 +52,7 @@ def test_reweighted_bayes_factor_agrees_with_quadrature_and_rises_with_the_signa
         dataset = _array(amplitude)
         exact = _evidence(dataset, "hellings-downs") - _evidence(dataset, "uncorrelated")
         result = ptares.compare(dataset, fit_options={**ONE_PARAMETER, "seed": 3}, samples=1000)
-        assert result.content["draws"] >= 200
+        assert result.content["draws"] >= 100
         assert result.reliable, result.content["warning"]
         assert abs(result.ln_bayes_factor - exact) < 4.0 * result.ln_bayes_factor_error + 1e-3, (amplitude, exact)
         snr = correlate(dataset, noise_from_dataset(dataset), CorrelateSection(scrambles=0, phase_shifts=0, fit_trials=0))
@@ -178,7 +178,7 @@ def test_likelihood_ratios_on_a_dask_cluster_match_this_process():
     model = FitModel(dataset, FitSection(red="none", harmonics=3, fixed={"common_spectral_index": 13.0 / 3.0}))
     chain = np.random.default_rng(1).normal(-14.5, 0.1, (40, 4, 1))
     summary = {"burn": 0, "converged": True, "parameters": {"common_lg_amplitude": {"autocorr_time": 1.0}}}
-    settings = CompareSection(samples=60, patterns=("hellings-downs", "monopole"), workers=2)
+    settings = CompareSection(samples=60, min_effective_samples=20, patterns=("hellings-downs", "monopole"), workers=2)
     here = compare_models(model, chain, summary, settings.model_copy(update={"workers": 1}))
     with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) as cluster:
         with distributed.Client(cluster) as client:
@@ -186,3 +186,24 @@ def test_likelihood_ratios_on_a_dask_cluster_match_this_process():
     for pattern in ("hellings-downs", "monopole"):
         np.testing.assert_allclose(remote.weights[pattern], here.weights[pattern], rtol=1e-12)
     assert remote.content["ln_bayes_factor"] == pytest.approx(here.content["ln_bayes_factor"], rel=1e-12)
+
+
+def test_compare_checks_fit_settings_before_writing(tmp_path, capsys):
+    """A [fit] the model refuses (a pulsar not in the array) is one line, and nothing is written."""
+    config = tmp_path / "compare.toml"
+    config.write_text(COMPARE_TOML.replace('red = "none"', 'red = "none"\npulsars = ["Nowhere"]'))
+    assert main(["compare", str(config), "--out", str(tmp_path / "out")]) == 2
+    error = capsys.readouterr().err.strip()
+    assert "fit.pulsars" in error and "Nowhere" in error and len(error.splitlines()) == 1
+    assert not (tmp_path / "out").exists()
+
+
+def test_compare_settings_are_consistent_and_workers_come_from_the_config(tmp_path, capsys):
+    from ptares.cli import build_parser
+
+    assert build_parser().parse_args(["compare", "c.toml", "--out", "o"]).workers is None  # [compare] workers rules
+    config = tmp_path / "compare.toml"
+    config.write_text(COMPARE_TOML.replace("samples = 300", "samples = 50"))
+    assert main(["compare", str(config), "--out", str(tmp_path / "out")]) == 2
+    error = capsys.readouterr().err.strip()
+    assert "compare" in error and "min_effective_samples" in error and len(error.splitlines()) == 1

@@ -89,12 +89,14 @@ def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: Compar
     tau = float(np.nanmax(taus)) if taus and np.any(np.isfinite(taus)) else 1.0
     # one early straggler outside the posterior's bulk can carry all the weight: burn a quarter of the chain at least
     burn = max(int(fit_summary["burn"]), chain.shape[0] // 4)
-    draws = independent_draws(chain, burn, tau, settings.samples, np.random.default_rng(seed))
+    # one draw per two integrated autocorrelation times: successive draws then correlate by about e^-4,
+    # so the error of the mean weight, which treats them as independent, holds
+    draws = independent_draws(chain, burn, 2.0 * tau, settings.samples, np.random.default_rng(seed))
     chunks = _chunks(model, draws, patterns, settings.workers)
     if scheduler is not None:
         rows = run_on_dask(chunks, scheduler, function=likelihood_ratios)
     elif settings.workers > 1:
-        rows = run_locally(chunks, settings.workers, function=likelihood_ratios)
+        rows = run_locally(chunks, settings.workers, function=likelihood_ratios, where="compare")
     else:
         rows = map(likelihood_ratios, chunks)
     parts = {}
@@ -127,7 +129,7 @@ def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: Compar
         "warning": hd["warning"],
         "draws": int(len(draws)),
         "burn": burn,
-        "thinned_by": int(max(np.ceil(tau), 1)),
+        "thinned_by": int(max(np.ceil(2.0 * tau), 1)),
         "posterior": hd["posterior"],
         "patterns": {p: {k: v for k, v in c.items() if k != "weights"} for p, c in comparisons.items()},
         "uncorrelated_fit": {k: fit_summary[k] for k in ("sampler", "converged", "not_converged_because", "steps",
@@ -141,7 +143,10 @@ def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: Compar
 def _warning(result, min_effective: int, fit_summary: dict) -> str | None:
     """Why the reweighted Bayes factor should not be trusted, or None."""
     reasons = []
-    if result.effective_samples < min_effective:
+    if result.draws < min_effective:
+        reasons.append(f"only {result.draws} independent draws of the uncorrelated posterior (fewer than {min_effective}): "
+                       "run its fit longer (max_steps, effective_samples)")
+    elif result.effective_samples < min_effective:
         reasons.append(f"only {result.effective_samples:.0f} effective samples of {result.draws} draws "
                        f"(fewer than {min_effective}): the correlated posterior lies where the uncorrelated one has few "
                        "draws, and ln B is then most likely an underestimate (the rare large weights are missed); "

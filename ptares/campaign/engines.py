@@ -17,7 +17,8 @@ from ptares.campaign.tasks import run_task
 from ptares.errors import InputError
 from ptares.threads import current_threads, pin_process, thread_count, thread_environment, thread_limits
 
-__all__ = ["SINGLE_THREAD", "threaded_children", "single_threaded_children", "run_locally", "run_on_dask"]
+__all__ = ["SINGLE_THREAD", "threaded_children", "single_threaded_children", "run_locally", "run_on_dask",
+           "dask_client"]
 
 
 #: Threading variables that give a worker process one thread per pool (for cluster job scripts).
@@ -45,10 +46,10 @@ def single_threaded_children():
     return threaded_children(1)
 
 
-def run_locally(tasks, workers, threads: int | None = None, function=run_task):
+def run_locally(tasks, workers, threads: int | None = None, function=run_task, where: str = "sweep"):
     """Rows of ``function(task)`` (a campaign task by default) as ``workers`` local processes finish them,
     each process with ``threads`` threads (None: the count in effect here, see
-    :func:`~ptares.threads.current_threads`)."""
+    :func:`~ptares.threads.current_threads`); ``where`` names the command in messages."""
     import multiprocessing
 
     threads = current_threads() if threads is None else thread_count(threads)
@@ -64,7 +65,7 @@ def run_locally(tasks, workers, threads: int | None = None, function=run_task):
                         yield future.result()
                     except BrokenProcessPool:
                         raise InputError("a worker process died (out of memory?); finished tasks are kept, "
-                                         "rerun the same command to continue", "sweep") from None
+                                         "rerun the same command to continue", where) from None
             except BaseException:
                 for future in futures:
                     future.cancel()
@@ -77,19 +78,25 @@ def _run_with_threads(task, threads: int, function=run_task) -> dict:
         return function(task)
 
 
+def dask_client(scheduler):
+    """A client of the Dask ``scheduler`` (an address, or a client, returned as it is); an address that
+    cannot be reached is an :class:`~ptares.errors.InputError` naming it."""
+    from distributed import Client
+
+    if not isinstance(scheduler, str):
+        return scheduler
+    try:
+        return Client(scheduler, timeout="20s")
+    except OSError as exc:
+        raise InputError(f"cannot reach the Dask scheduler ({exc})", scheduler) from None
+
+
 def run_on_dask(tasks, scheduler, threads: int | None = None, function=run_task):
     """Rows of ``function(task)`` (a campaign task by default) as the Dask ``scheduler`` (address or client)
     finishes them, each task run with ``threads`` threads (None: the count in effect here)."""
-    from distributed import Client
     from distributed import as_completed as dask_completed
 
-    if isinstance(scheduler, str):
-        try:
-            client = Client(scheduler, timeout="20s")
-        except OSError as exc:
-            raise InputError(f"cannot reach the Dask scheduler ({exc})", scheduler) from None
-    else:
-        client = scheduler
+    client = dask_client(scheduler)
     threads = current_threads() if threads is None else thread_count(threads)
     try:
         futures = client.map(functools.partial(_run_with_threads, threads=threads, function=function), tasks, pure=False)

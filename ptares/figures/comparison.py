@@ -6,7 +6,8 @@ One panel per common-process parameter: the uncorrelated model's marginal densit
 panel shows each pattern's ln Bayes factor against the uncorrelated model with its
 standard error, and its effective sample size (on a symmetric log scale when the values
 differ by more than 50); unreliable ones are drawn hollow and the title says so.  A
-reweighted density with fewer than :data:`MIN_SHOWN` effective samples is not drawn.
+reweighted density with fewer than :data:`MIN_SHOWN` effective samples is not drawn, an
+unreliable one is dashed.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ matplotlib.use("Agg")
 
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
+from matplotlib.ticker import MaxNLocator  # noqa: E402
 
 from ptares.inference import parameters  # noqa: E402
 
@@ -55,7 +57,10 @@ def comparison_figure(draws: np.ndarray, names, weights: dict, content: dict, in
                 ax.plot([], [], color=_PATTERN_COLOURS[pattern], lw=1.8, ls=":",
                         label=f"{pattern} (not drawn: {effective:.0f} effective samples)")
                 continue
-            ax.plot(grid, _density(values, w, grid), color=_PATTERN_COLOURS[pattern], lw=1.8, label=pattern)
+            reliable = content["patterns"][pattern]["reliable"]
+            ax.plot(grid, _density(values, w, grid), color=_PATTERN_COLOURS[pattern], lw=1.8,
+                    ls="-" if reliable else "--", label=pattern if reliable else f"{pattern} (unreliable)")
+        ax.xaxis.set_major_locator(MaxNLocator(4))
         if names[i] in injected:
             ax.axvline(injected[names[i]], color=_INJECTED, lw=1.2, label="injected")
         ax.set_xlabel(names[i])
@@ -81,8 +86,9 @@ def comparison_figure(draws: np.ndarray, names, weights: dict, content: dict, in
     ax.set_xlim(-0.6, len(patterns) - 0.4)
     ax.set_ylabel("ln Bayes factor against uncorrelated")
     hd = patterns["hellings-downs"]
-    title = f"ln B = {hd['ln_bayes_factor']:.2f} ± {hd['ln_bayes_factor_error']:.2f} ({content['draws']} draws)"
+    title = (f"Hellings\u2013Downs against uncorrelated: ln B = {hd['ln_bayes_factor']:.2f} \u00b1 "
+             f"{hd['ln_bayes_factor_error']:.2f} ({hd['effective_samples']:.0f} effective of {content['draws']} draws)")
     if not content["reliable"]:
-        title += "\nUNRELIABLE: see comparison.json"
+        title += "\nUNRELIABLE: see the warning in comparison.json"
     fig.suptitle(title, fontsize=10, color="black" if content["reliable"] else "#c1121f")
     return fig

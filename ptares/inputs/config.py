@@ -627,6 +627,13 @@ class CompareSection(_Section):
             raise ValueError("name at least one pattern")
         return patterns
 
+    @model_validator(mode="after")
+    def _enough_draws(self):
+        if self.samples < self.min_effective_samples:
+            raise ValueError(f"samples ({self.samples}) must be at least min_effective_samples "
+                             f"({self.min_effective_samples}): fewer draws can never be reliable")
+        return self
+
 
 class SweepDask(_Section):
     """``[sweep.dask]``: run on a Dask cluster at ``scheduler`` (an address such as ``tcp://host:8786``)."""
