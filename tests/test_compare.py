@@ -105,6 +105,7 @@ harmonics = 3
 fixed = { common_spectral_index = 4.3333333333 }
 effective_samples = 100
 autocorr_factor = 20
+max_steps = 500
 [compare]
 patterns = ["hellings-downs", "dipole"]
 samples = 300
@@ -115,7 +116,7 @@ def test_compare_command_writes_its_outputs_and_resumes(tmp_path, capsys):
     config = tmp_path / "compare.toml"
     config.write_text(COMPARE_TOML)
     out = tmp_path / "out"
-    assert main(["compare", str(config), "--out", str(out), "--workers", "2"]) == 0
+    assert main(["compare", str(config), "--out", str(out)]) == 0
     printed = capsys.readouterr().out
     assert "hellings-downs  ln B =" in printed and "dipole" in printed
     content = json.loads((out / "comparison.json").read_text())
@@ -127,7 +128,7 @@ def test_compare_command_writes_its_outputs_and_resumes(tmp_path, capsys):
     assert (out / "comparison.png").stat().st_size > 10_000
     assert (out / "uncorrelated" / "chains.h5").exists() and (out / "dataset.h5").exists()
     steps = json.loads((out / "uncorrelated" / "posterior.json").read_text())["steps"]
-    # run again: the converged fit is resumed, not redone, and the answer is the same
+    # run again: the fit, which has used its max_steps, is resumed, not redone, and the answer is the same
     assert main(["compare", str(config), "--out", str(out)]) == 0
     again = json.loads((out / "comparison.json").read_text())
     assert json.loads((out / "uncorrelated" / "posterior.json").read_text())["steps"] == steps
@@ -167,8 +168,9 @@ class _no_exit:
         return False
 
 
-def test_likelihood_ratios_on_a_dask_cluster_match_this_process():
-    """The chunks of likelihood ratios give the same weights on a dask.distributed LocalCluster as here."""
+def test_likelihood_ratios_on_a_dask_cluster_and_local_workers_match_this_process():
+    """The chunks of likelihood ratios give the same weights on a dask.distributed LocalCluster and in two local
+    worker processes as here."""
     import distributed
 
     from ptares.campaign.comparison import compare_models
@@ -183,8 +185,10 @@ def test_likelihood_ratios_on_a_dask_cluster_match_this_process():
     with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) as cluster:
         with distributed.Client(cluster) as client:
             remote = compare_models(model, chain, summary, settings, scheduler=client)
+    local = compare_models(model, chain, summary, settings)  # two local worker processes
     for pattern in ("hellings-downs", "monopole"):
         np.testing.assert_allclose(remote.weights[pattern], here.weights[pattern], rtol=1e-12)
+        np.testing.assert_allclose(local.weights[pattern], here.weights[pattern], rtol=1e-12)
     assert remote.content["ln_bayes_factor"] == pytest.approx(here.content["ln_bayes_factor"], rel=1e-12)
 
 
