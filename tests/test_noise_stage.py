@@ -26,6 +26,7 @@ def noisy_array(seed=2):
 
 
 SETTINGS = dict(white="free", red="free", red_harmonics=6, fixed={"white_lg_quadrature": -np.inf}, max_steps=6000,
+                autocorr_factor=20,
                 effective_samples=200, seed=1)
 
 
@@ -109,8 +110,8 @@ def test_command_line_noise_stage_then_array_fit(stage, tmp_path, capsys):
     data, out, _ = stage
     dataset = write_dataset(data, tmp_path / "d.h5")
     settings = tmp_path / "s.toml"
-    settings.write_text('[fit]\nwhite = "free"\nred = "free"\nred_harmonics = 6\nmax_steps = 6000\neffective_samples = 200\n'
-                        'seed = 1\nfixed = { white_lg_quadrature = -inf }\n')
+    settings.write_text('[fit]\nwhite = "free"\nred = "free"\nred_harmonics = 6\nmax_steps = 6000\nautocorr_factor = 20\n'
+                        'effective_samples = 200\nseed = 1\nfixed = { white_lg_quadrature = -inf }\n')
     assert main(["noise", str(dataset), "--config", str(settings), "--out", str(out)]) == 0
     assert "3 pulsars; wrote" in capsys.readouterr().out
     assert (out / "pulsar_noise.png").is_file()
