@@ -1,4 +1,5 @@
-"""The Python interface: :func:`simulate`, :func:`correlate`, :func:`fit` and :func:`sweep`.
+"""The Python interface: :func:`simulate`, :func:`correlate`, :func:`fit`, :func:`compare`, :func:`pulsar_noise`
+and :func:`sweep`.
 
 Each function does what the command of the same name does, and the commands are
 thin shells over them.  A config may be a :class:`~ptares.inputs.config.Config`, a
@@ -22,6 +23,7 @@ sets the BLAS and numba threads of the process and of each worker it starts (def
     result.estimates["hellings-downs"]["snr"]
     posterior = ptares.fit(data, max_steps=2000, out="fit-out")   # chains resume when run again
     posterior.samples(posterior.names[0])            # (n,) draws after burn-in
+    bayes = ptares.compare(data, fit_options={"max_steps": 2000})   # ln B, Hellings-Downs against uncorrelated
     campaign = ptares.sweep("campaign.toml", "campaign-out", workers=4)
 """
 

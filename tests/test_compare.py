@@ -19,7 +19,7 @@ from ptares.simulation.simulate import simulate
 
 #: Noise fixed at the truth, spectral index fixed, amplitude free: a one-dimensional evidence integral.
 ONE_PARAMETER = {"red": "none", "harmonics": 5, "fixed": {"common_spectral_index": 13.0 / 3.0},
-                 "effective_samples": 300, "autocorr_factor": 25}
+                 "effective_samples": 300, "autocorr_factor": 25, "walkers": 8}
 
 
 def _array(amplitude: float):

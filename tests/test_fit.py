@@ -86,7 +86,7 @@ def _amplitude_inside(job) -> bool:
     """Whether one realisation's 68% interval of lg A holds the injected -14 (a worker of the coverage test)."""
     seed, folder = job
     data = loud_background(100 + seed)
-    model = FitModel(data, FitSection(fixed={"common_spectral_index": 13 / 3}, max_steps=2500, seed=seed))
+    model = FitModel(data, FitSection(fixed={"common_spectral_index": 13 / 3}, max_steps=2500, walkers=8, seed=seed))
     summary = summarise(model, run_sampler(model, folder / f"c{seed}.h5"))
     low, high = summary["parameters"]["common_lg_amplitude"]["interval68"]
     return low < -14 < high

@@ -201,12 +201,12 @@ def _posterior_quantiles(job) -> dict:
 
 @pytest.mark.statistical
 def test_gibbs_posteriors_are_calibrated_over_injections(tmp_path):
-    """P-P test: 50 injections drawn from the fit's priors (3 pulsars; white scale, red noise and the common
+    """P-P test: 40 injections drawn from the fit's priors (3 pulsars; white scale, red noise and the common
     process free: 11 parameters).  The posterior quantile of each true value is uniform when the posterior is
     calibrated; a Kolmogorov-Smirnov test (scipy.stats.kstest) of each quantity's pooled quantiles must not
     reject uniformity at 0.2% (5 quantities: a 1% family-wise false-alarm rate, Bonferroni)."""
     quantiles = {key: [] for key in PP_PRIORS}
-    for result in parallel_map(_posterior_quantiles, [(i, tmp_path) for i in range(50)]):
+    for result in parallel_map(_posterior_quantiles, [(i, tmp_path) for i in range(40)]):
         for key, values in result.items():
             quantiles[key] += values
     for key, values in quantiles.items():
