@@ -87,7 +87,7 @@ def comparison_figure(draws: np.ndarray, names, weights: dict, content: dict, in
     ax.set_ylabel("ln Bayes factor against uncorrelated")
     hd = patterns["hellings-downs"]
     title = (f"Hellings\u2013Downs against uncorrelated: ln B = {hd['ln_bayes_factor']:.2f} \u00b1 "
-             f"{hd['ln_bayes_factor_error']:.2f} ({hd['effective_samples']:.0f} effective of {content['draws']} draws)")
+             f"{hd['ln_bayes_factor_error']:.2g} ({hd['effective_samples']:.0f} effective of {content['draws']} draws)")
     if not content["reliable"]:
         title += "\nUNRELIABLE: see the warning in comparison.json"
     fig.suptitle(title, fontsize=10, color="black" if content["reliable"] else "#c1121f")
