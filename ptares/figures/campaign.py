@@ -123,6 +123,7 @@ def bayes_figure(rows, rule):
     ax.axhline(0.0, color="0.5", lw=0.8)
     ax.plot([], [], "o", color=COMPONENT_COLOURS["gwb"], mfc="white", label="unreliable reweighting")
     ax.set_xticks(range(len(amplitudes)), [f"{a:.2g}" for a in amplitudes])
+    ax.set_xlim(-0.6, len(amplitudes) - 0.4)
     ax.set_xlabel("injected amplitude A")
     ax.set_ylabel("ln B, Hellings–Downs against uncorrelated")
     ax.set_title("Bayes factors by reweighting", fontsize=10)
