@@ -25,10 +25,10 @@ import time
 from pathlib import Path
 
 import numpy as np
+from common import best_of, gibbs_iteration_seconds
 
 import ptares
 from ptares.inference.model import FitModel
-from ptares.inference.samplers.gibbs import GibbsSampler
 from ptares.inputs.config import Config, FitSection
 from ptares.threads import thread_limits
 
@@ -50,28 +50,19 @@ FIT = {"harmonics": 14, "red": "free", "red_harmonics": 30, "white": "injected",
        "workers": 2, "seed": 1, "max_steps": 100_000}
 
 
-def likelihood_seconds(data, repeats: int = 3) -> float:
-    model = FitModel(data, FitSection(**{**FIT, "common": "hellings-downs"}))
+def hellings_downs_model(data) -> FitModel:
+    return FitModel(data, FitSection(**{**FIT, "common": "hellings-downs"}))
+
+
+def likelihood_seconds(data) -> float:
+    model = hellings_downs_model(data)
     values = model.parameters(model.sample_prior(np.random.default_rng(0), 1)[0])
-    model.log_likelihood_at(values)
-    start = time.perf_counter()
-    for _ in range(repeats):
-        model.log_likelihood_at(values)
-    return (time.perf_counter() - start) / repeats
+    return best_of(lambda: model.log_likelihood_at(values), repeats=3)
 
 
 def iteration_seconds(data, repeats: int = 3) -> float:
-    model = FitModel(data, FitSection(**{**FIT, "common": "hellings-downs"}))
-    sampler = GibbsSampler(model)
-    rng = np.random.default_rng(0)
-    x = model.parameters(model.sample_prior(rng, 1)[0])
-    x = np.array([x[n] for n in model.names])
-    proposals = sampler.proposals()
-    sampler.iterate(x, rng, proposals)
-    start = time.perf_counter()
-    for _ in range(repeats):
-        sampler.iterate(x, rng, proposals)
-    return (time.perf_counter() - start) / repeats
+    model = hellings_downs_model(data)
+    return gibbs_iteration_seconds(model, model.sample_prior(np.random.default_rng(0), 1)[0], repeats)
 
 
 def main():

@@ -25,10 +25,10 @@ import time
 from pathlib import Path
 
 import numpy as np
+from common import gibbs_iteration_seconds
 
 import ptares
 from ptares.inference.model import FitModel
-from ptares.inference.samplers.gibbs import GibbsSampler
 from ptares.inputs.config import Config, FitSection
 from ptares.threads import thread_limits
 
@@ -55,16 +55,9 @@ def section(common: str, **extra) -> FitSection:
 
 def iteration_seconds(data, common: str, repeats: int = 20) -> float:
     model = FitModel(data, section(common))
-    sampler = GibbsSampler(model)
-    rng = np.random.default_rng(0)
-    x = model.sample_prior(rng, 1)[0]
+    x = model.sample_prior(np.random.default_rng(0), 1)[0]
     x[[model.names.index(n) for n in model.names if n.startswith("white_scale")]] = 1.0
-    proposals = sampler.proposals()
-    sampler.iterate(x, rng, proposals)  # compile and fill caches
-    start = time.perf_counter()
-    for _ in range(repeats):
-        sampler.iterate(x, rng, proposals)
-    return (time.perf_counter() - start) / repeats
+    return gibbs_iteration_seconds(model, x, repeats)
 
 
 def scaling():

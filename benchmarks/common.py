@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import time
 
+import numpy as np
+
 from ptares.inputs.config import Config
 
 
@@ -29,3 +31,19 @@ def regular_array(pulsars: int, toas: int, frequencies: int, seed: int, toa_erro
             "gwb": {"amplitude": 2.4e-15, "harmonics": frequencies},
         }
     )
+
+
+def gibbs_iteration_seconds(model, x, repeats: int) -> float:
+    """Mean wall-clock time (s) of one Gibbs iteration of ``model`` from the free parameters ``x``, after one
+    untimed iteration (numba compilation, caches)."""
+    from ptares.inference.samplers.gibbs import GibbsSampler
+
+    sampler = GibbsSampler(model)
+    rng = np.random.default_rng(0)
+    x = np.array(x, dtype=float)
+    proposals = sampler.proposals()
+    sampler.iterate(x, rng, proposals)
+    start = time.perf_counter()
+    for _ in range(repeats):
+        sampler.iterate(x, rng, proposals)
+    return (time.perf_counter() - start) / repeats

@@ -575,15 +575,19 @@ class ComparisonResult:
     def reliable(self) -> bool:
         return bool(self.content["reliable"])
 
-    def __repr__(self) -> str:
-        lines = [f"ComparisonResult: {self.content['draws']} draws of the uncorrelated posterior reweighted"]
-        for pattern, entry in self.content["patterns"].items():
-            state = "" if entry["reliable"] else "  UNRELIABLE"
-            lines.append(f"  {pattern:15s} ln B = {entry['ln_bayes_factor']:+.2f} +/- {entry['ln_bayes_factor_error']:.2f}, "
-                         f"{entry['effective_samples']:.0f} effective samples{state}")
+    def pattern_lines(self) -> list:
+        """One line per pattern (ln B, its error, effective samples, reliability) and the warning, if any."""
+        lines = [f"  {pattern:15s} ln B = {entry['ln_bayes_factor']:+.3g} +/- {entry['ln_bayes_factor_error']:.2g} "
+                 f"against uncorrelated, {entry['effective_samples']:.0f} effective samples"
+                 + ("" if entry["reliable"] else "  UNRELIABLE")
+                 for pattern, entry in self.content["patterns"].items()]
         if self.content["warning"]:
             lines.append(f"  warning: {self.content['warning']}")
-        return "\n".join(lines)
+        return lines
+
+    def __repr__(self) -> str:
+        return "\n".join([f"ComparisonResult: {self.content['draws']} draws of the uncorrelated posterior reweighted",
+                          *self.pattern_lines()])
 
 
 @_threaded
@@ -600,7 +604,7 @@ def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None
     ``out/dataset.h5`` when the source is a config, the fit in ``out/uncorrelated/`` (resumed when run
     again), ``out/comparison.json`` and, unless ``figures=False``, ``out/comparison.png``.
     """
-    from ptares.campaign.comparison import compare_models
+    from ptares.campaign.comparison import compare_models, patterns_of
     from ptares.dataset import write_json
     from ptares.inference.model import FitModel
     from ptares.inputs.config import CompareSection
@@ -631,7 +635,7 @@ def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None
                 raise _cannot_write(exc, out) from None
         fitted = fit(dataset, None if out is None else out / "uncorrelated", settings=fit_section, overwrite=overwrite,
                      figures=figures, verbose=verbose, threads=threads)
-        _say(verbose, f"reweighting the uncorrelated posterior by the {', '.join(section.patterns)} likelihood")
+        _say(verbose, f"reweighting the uncorrelated posterior by the {', '.join(patterns_of(section))} likelihood")
         comparison = compare_models(model, fitted.chain(), fitted.summary, section, seed=fit_section.seed,
                                     scheduler=client, progress=verbose)
     finally:

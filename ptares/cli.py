@@ -107,12 +107,7 @@ def _compare(args) -> int:
     print(f"uncorrelated fit: {fit['sampler']} sampler, {fit['steps']} steps, "
           f"{'converged' if fit['converged'] else 'NOT converged: ' + str(fit['not_converged_because'])}; "
           f"{content['draws']} draws reweighted")
-    for pattern, entry in content["patterns"].items():
-        print(f"  {pattern:15s} ln B = {entry['ln_bayes_factor']:+.3g} +/- {entry['ln_bayes_factor_error']:.2g} "
-              f"against uncorrelated, {entry['effective_samples']:.0f} effective samples"
-              + ("" if entry["reliable"] else "  UNRELIABLE"))
-    if content["warning"]:
-        print(f"warning: {content['warning']}")
+    print("\n".join(result.pattern_lines()))
     print(f"wrote {result.out / 'comparison.json'}, comparison.png and the fit in {result.out / 'uncorrelated'}")
     return 0
 
@@ -191,11 +186,11 @@ THREADS_HELP = (f"BLAS and numba threads per process, workers included (default 
                 "more only pays on cores nothing else uses)")
 
 
-def _engine_options(command, workers: str = "1") -> None:
-    """Where the tasks of a resumable many-task command run, and whether to start afresh; ``workers`` names
-    the default of ``--workers`` in its help (None where a config key gives it)."""
-    command.add_argument("--workers", type=int, default=1 if workers == "1" else None,
-                         help=f"local worker processes (default {workers})")
+def _engine_options(command, workers_key: str | None = None) -> None:
+    """Where the tasks of a resumable many-task command run, and whether to start afresh; with ``workers_key``
+    (a config key) ``--workers`` defaults to that key's value, else to 1."""
+    command.add_argument("--workers", type=int, default=None if workers_key else 1,
+                         help=f"local worker processes (default {workers_key or 1})")
     command.add_argument("--scheduler", help="address of a Dask scheduler (instead of local workers)")
     command.add_argument("--overwrite", action="store_true", help="discard earlier results of this directory")
 
@@ -268,7 +263,7 @@ def build_parser() -> argparse.ArgumentParser:
     cmp.add_argument("--max-steps", type=int, help="most steps of the uncorrelated fit (rerun with more to extend)")
     cmp.add_argument("--sampler", choices=["auto", "ensemble", "gibbs"], help="sampler of the uncorrelated fit")
     cmp.add_argument("--seed", type=int, help="seed of the sampler and of the draws' selection")
-    _engine_options(cmp, workers="[compare] workers, 1")
+    _engine_options(cmp, workers_key="[compare] workers")
     cmp.set_defaults(run=_compare)
 
     noise = commands.add_parser("noise", parents=[common],

@@ -91,7 +91,8 @@ def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: Compar
     burn = max(int(fit_summary["burn"]), chain.shape[0] // 4)
     # one draw per two integrated autocorrelation times: successive draws then correlate by about e^-4,
     # so the error of the mean weight, which treats them as independent, holds
-    draws = independent_draws(chain, burn, 2.0 * tau, settings.samples, np.random.default_rng(seed))
+    step = max(int(np.ceil(2.0 * tau)), 1)
+    draws = independent_draws(chain, burn, step, settings.samples, np.random.default_rng(seed))
     chunks = _chunks(model, draws, patterns, settings.workers)
     if scheduler is not None:
         rows = run_on_dask(chunks, scheduler, function=likelihood_ratios)
@@ -104,11 +105,11 @@ def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: Compar
         for row in rows:
             parts[row["index"]] = row["log_weights"]
             bar.update(len(chunks[row["index"]].points))
-    comparisons = {}
-    for pattern in patterns:
-        result = reweight(np.concatenate([parts[c.index][pattern] for c in chunks]))
+    results = {p: reweight(np.concatenate([parts[c.index][p] for c in chunks])) for p in patterns}
+    entries = {}
+    for pattern, result in results.items():
         warning = _warning(result, settings.min_effective_samples, fit_summary)
-        comparisons[pattern] = {
+        entries[pattern] = {
             "ln_bayes_factor": result.ln_bayes_factor,
             "ln_bayes_factor_error": result.ln_bayes_factor_error,
             "effective_samples": result.effective_samples,
@@ -116,28 +117,24 @@ def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: Compar
             "reliable": warning is None,
             "warning": warning,
             "posterior": weighted_summary(draws, model.names, result.weights, result.effective_samples, model.injected),
-            "weights": result.weights,
         }
-    hd = comparisons["hellings-downs"]
+    hd = entries["hellings-downs"]
     content = {
         "ptares_version": __version__,
         "against": "uncorrelated common process (same parameters and priors)",
-        "ln_bayes_factor": hd["ln_bayes_factor"],
-        "ln_bayes_factor_error": hd["ln_bayes_factor_error"],
-        "effective_samples": hd["effective_samples"],
-        "reliable": hd["reliable"],
-        "warning": hd["warning"],
+        **{key: hd[key] for key in ("ln_bayes_factor", "ln_bayes_factor_error", "effective_samples", "reliable",
+                                    "warning")},
         "draws": int(len(draws)),
         "burn": burn,
-        "thinned_by": int(max(np.ceil(2.0 * tau), 1)),
+        "thinned_by": step,
         "posterior": hd["posterior"],
-        "patterns": {p: {k: v for k, v in c.items() if k != "weights"} for p, c in comparisons.items()},
+        "patterns": entries,
         "uncorrelated_fit": {k: fit_summary[k] for k in ("sampler", "converged", "not_converged_because", "steps",
                                                           "effective_samples", "max_rhat") if k in fit_summary},
         "settings": {"patterns": list(patterns), "samples": settings.samples,
                      "min_effective_samples": settings.min_effective_samples, "seed": seed},
     }
-    return Comparison(content, draws, {p: c["weights"] for p, c in comparisons.items()})
+    return Comparison(content, draws, {p: r.weights for p, r in results.items()})
 
 
 def _warning(result, min_effective: int, fit_summary: dict) -> str | None:

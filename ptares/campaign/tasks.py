@@ -151,20 +151,24 @@ def _summary_of_fit(model, run, summary) -> dict:
     return row
 
 
-def _bayes_factor(data, config: Config, fitted=None) -> dict:
-    """The compare stage's columns: the uncorrelated fit (``fitted``, when the fit stage ran one) reweighted
-    by the Hellings–Downs likelihood in this process."""
-    from ptares.campaign.comparison import compare_models
+def _fitted(data, section) -> tuple:
+    """``(model, run, summary)`` of a fit of ``data`` with ``section``, its chains in a scratch file."""
     from ptares.inference.model import FitModel
     from ptares.inference.samplers import run_sampler
     from ptares.inference.samplers.chains import summarise
 
-    if fitted is None:
-        model = FitModel(data, config.fit.model_copy(update={"common": "uncorrelated"}))
-        with tempfile.TemporaryDirectory() as scratch:
-            run = run_sampler(model, Path(scratch) / "chains.h5")
-        fitted = (model, run, summarise(model, run))
-    model, run, summary = fitted
+    model = FitModel(data, section)
+    with tempfile.TemporaryDirectory() as scratch:
+        run = run_sampler(model, Path(scratch) / "chains.h5")
+    return model, run, summarise(model, run)
+
+
+def _bayes_factor(data, config: Config, fitted=None) -> dict:
+    """The compare stage's columns: the uncorrelated fit (``fitted``, when the fit stage ran one) reweighted
+    by the Hellings–Downs likelihood in this process."""
+    from ptares.campaign.comparison import compare_models
+
+    model, run, summary = fitted or _fitted(data, config.fit.model_copy(update={"common": "uncorrelated"}))
     content = compare_models(model, run.chain, summary, config.compare.model_copy(update={"workers": 1}),
                              seed=config.fit.seed).content
     return {"ln_bayes_factor": content["ln_bayes_factor"], "ln_bayes_factor_error": content["ln_bayes_factor_error"],
@@ -175,9 +179,6 @@ def run_task(task: Task) -> dict:
     """Run one task and return its row; never raises (a failure is a row with its error)."""
     from ptares.correlation.analysis import correlate
     from ptares.correlation.noise import noise_from_dataset
-    from ptares.inference.model import FitModel
-    from ptares.inference.samplers import run_sampler
-    from ptares.inference.samplers.chains import summarise
     from ptares.simulation.simulate import simulate
 
     started = time.perf_counter()
@@ -199,12 +200,10 @@ def run_task(task: Task) -> dict:
                        hd_curve_p_calibrated=result.fit.get("p_calibrated"))
         fitted = None
         if "fit" in task.stages:
-            model = FitModel(data, config.fit)
-            with tempfile.TemporaryDirectory() as scratch:
-                run = run_sampler(model, Path(scratch) / "chains.h5")
-            summary = summarise(model, run)
-            row.update(_summary_of_fit(model, run, summary))
-            fitted = (model, run, summary) if config.fit.common == "uncorrelated" else None
+            fitted = _fitted(data, config.fit)
+            row.update(_summary_of_fit(*fitted))
+            if config.fit.common != "uncorrelated":  # the compare stage needs the uncorrelated model's chains
+                fitted = None
         if "compare" in task.stages:
             row.update(_bayes_factor(data, config, fitted))
         row["status"] = "ok"

@@ -29,6 +29,7 @@ from scipy import integrate
 
 from ptares.correlation.fourier import FourierProducts
 from ptares.correlation.pairs import PairCorrelations, pair_matrices
+from ptares.correlation.scatter import scaled_products
 from ptares.limits import MEMORY_LIMIT
 
 __all__ = ["EIGEN_LIMIT", "NULL_DESCRIPTION", "null_density", "null_eigenvalues", "null_skewness", "tail_probability"]
@@ -52,8 +53,7 @@ def null_eigenvalues(products: FourierProducts, pairs: PairCorrelations, weights
     H = np.zeros((count, count))
     H[pairs.a, pairs.b] = weights / (denominator[pairs.a, pairs.b] * sigma)
     H = H + H.T
-    root = np.sqrt(products.phi)
-    Y = root[None, :, None] * products.Z * root[None, None, :]
+    Y = scaled_products(products)
     if count * size <= EIGEN_LIMIT:
         values, vectors = np.linalg.eigh(Y)
         R = vectors * np.sqrt(np.clip(values, 0.0, None))[:, None, :]  # Y_a = R_a R_a^T

@@ -85,11 +85,10 @@ def overlap(pairs: PairCorrelations, pattern: str) -> np.ndarray:
 
 def optimal_statistic(pairs: PairCorrelations, gamma_ab: np.ndarray) -> dict:
     """Amplitude estimate for one pattern with values ``gamma_ab`` per pair (weak-signal weights)."""
-    weights = 1.0 / pairs.sigma**2
-    norm = np.sum(gamma_ab**2 * weights)
-    amplitude2 = np.sum(pairs.rho * gamma_ab * weights) / norm
-    sigma = norm**-0.5
-    return {"amplitude2": float(amplitude2), "sigma": float(sigma), "snr": float(amplitude2 / sigma)}
+    weights = weak_signal_weights(pairs, gamma_ab)
+    amplitude2 = float(weights @ pairs.rho)
+    sigma = float(np.sqrt(np.sum((weights * pairs.sigma) ** 2)))  # = (sum Gamma^2 / sigma^2)^(-1/2)
+    return {"amplitude2": amplitude2, "sigma": sigma, "snr": amplitude2 / sigma}
 
 
 def weak_signal_weights(pairs: PairCorrelations, gamma_ab: np.ndarray) -> np.ndarray:

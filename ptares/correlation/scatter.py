@@ -38,6 +38,7 @@ __all__ = [
     "ensemble_draws",
     "fit_quality",
     "pair_covariance",
+    "scaled_products",
     "weighted_covariance",
 ]
 
@@ -79,10 +80,15 @@ def bin_pairs(pairs: PairCorrelations, bins: int = 8) -> BinnedCorrelations:
     return BinnedCorrelations(edges, np.array(centres), np.array(rho), np.array(error), members, normalised)
 
 
-def _scaled_blocks(products: FourierProducts, amplitude2: float, model_amplitude2: float):
-    """``Y_x = Phi^(1/2) Z_x Phi^(1/2)`` and the diagonal blocks ``Y_xx`` of the ensemble covariance."""
+def scaled_products(products: FourierProducts) -> np.ndarray:
+    """``Y_x = Phi^(1/2) Z_x Phi^(1/2)`` of every pulsar, (P, 2K, 2K)."""
     root = np.sqrt(products.phi)
-    Y = root[None, :, None] * products.Z * root[None, None, :]
+    return root[None, :, None] * products.Z * root[None, None, :]
+
+
+def _scaled_blocks(products: FourierProducts, amplitude2: float, model_amplitude2: float):
+    """``Y_x`` (:func:`scaled_products`) and the diagonal blocks ``Y_xx`` of the ensemble covariance."""
+    Y = scaled_products(products)
     auto = Y + (amplitude2 - model_amplitude2) * Y @ Y
     return Y, auto
 

@@ -44,9 +44,10 @@ def sweep_figures(rows, false_alarm: float = 0.05, statistic: str = "snr", ln_ba
     every_row = rows
     rule = detection_rule(every_row, false_alarm, statistic, ln_bayes_threshold)
     rows = finished(rows, "hd_snr")
-    if finished(every_row, rule.column):
+    counted = finished(every_row, rule.column)
+    if counted:
         fig, ax = plt.subplots(figsize=(7.0, 4.5))
-        for label, members in _groups(finished(every_row, rule.column)).items():
+        for label, members in _groups(counted).items():
             detections = detection_probability(members, rule)
             amplitudes = list(detections)
             fractions = [d.fraction for d in detections.values()]
@@ -85,10 +86,7 @@ def sweep_figures(rows, false_alarm: float = 0.05, statistic: str = "snr", ln_ba
         amplitudes = sorted({r["injected_amplitude"] for r in rows})
         data = [[r["hd_snr"] for r in rows if r["injected_amplitude"] == a] for a in amplitudes]
         ax.boxplot(data, tick_labels=[f"{a:.2g}" for a in amplitudes])
-        if rule.column == "hd_snr":
-            ax.axhline(rule.threshold, color="#c1121f", ls="--", lw=1, label=f"detection threshold {rule.threshold:.2f}")
-        else:
-            ax.plot([], [], " ", label=f"detection: {rule}")
+        _mark_rule(ax, rule, "hd_snr")
         ax.set_xlabel("injected amplitude A")
         ax.set_ylabel("Hellings\u2013Downs S/N")
         ax.set_title("S/N distributions", fontsize=10)
@@ -106,6 +104,15 @@ def sweep_figures(rows, false_alarm: float = 0.05, statistic: str = "snr", ln_ba
     return figures
 
 
+def _mark_rule(ax, rule, column: str) -> None:
+    """The detection threshold as a dashed line where ``rule`` reads ``column`` (the figure's statistic),
+    else the rule in the legend."""
+    if rule.column == column:
+        ax.axhline(rule.threshold, color="#c1121f", ls="--", lw=1, label=f"detection: {rule} ({rule.how})")
+    else:
+        ax.plot([], [], " ", label=f"detection: {rule}")
+
+
 def bayes_figure(rows, rule):
     """ln Bayes factor (Hellings–Downs against uncorrelated) of every task against its injected amplitude, with
     its standard error; unreliable reweightings hollow; the detection threshold when the rule uses ln B."""
@@ -118,8 +125,7 @@ def bayes_figure(rows, rule):
         ax.errorbar(position[r["injected_amplitude"]] + offset, r["ln_bayes_factor"], yerr=r.get("ln_bayes_factor_error"),
                     fmt="o", ms=4, color=COMPONENT_COLOURS["gwb"], mfc=COMPONENT_COLOURS["gwb"] if reliable else "white",
                     lw=0.8, alpha=0.8)
-    if rule.column == "ln_bayes_factor":
-        ax.axhline(rule.threshold, color="#c1121f", ls="--", lw=1, label=f"detection: {rule} ({rule.how})")
+    _mark_rule(ax, rule, "ln_bayes_factor")
     ax.axhline(0.0, color="0.5", lw=0.8)
     ax.plot([], [], "o", color=COMPONENT_COLOURS["gwb"], mfc="white", label="unreliable reweighting")
     ax.set_xticks(range(len(amplitudes)), [f"{a:.2g}" for a in amplitudes])

@@ -2,7 +2,8 @@
 
 One panel per common-process parameter: the uncorrelated model's marginal density
 (its draws, equally weighted) as a grey filled curve and each correlated model's
-(the same draws, reweighted) as a line; injected values as an orange rule.  The last
+(the same draws, reweighted) as a line, both Gaussian kernel densities (scipy's, which
+takes the weights and sets the bandwidth from their effective sample size); injected values as an orange rule.  The last
 panel shows each pattern's ln Bayes factor against the uncorrelated model with its
 standard error, and its effective sample size (on a symmetric log scale when the values
 differ by more than 50); unreliable ones are drawn hollow and the title says so.  A
@@ -19,6 +20,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 from matplotlib.ticker import MaxNLocator  # noqa: E402
+from scipy.stats import gaussian_kde  # noqa: E402
 
 from ptares.inference import parameters  # noqa: E402
 
@@ -32,33 +34,22 @@ _INJECTED = "#e36414"
 MIN_SHOWN = 10
 
 
-def _density(values, weights, grid):
-    """Gaussian kernel density of weighted ``values`` on ``grid`` (bandwidth from the effective sample size)."""
-    effective = 1.0 / np.sum(weights**2)
-    mean = np.sum(weights * values)
-    spread = np.sqrt(np.sum(weights * (values - mean) ** 2)) or (grid[-1] - grid[0]) / 50.0
-    width = 1.06 * spread * effective**-0.2
-    kernel = np.exp(-0.5 * ((grid[:, None] - values[None, :]) / width) ** 2) / (width * np.sqrt(2.0 * np.pi))
-    return kernel @ weights
-
-
 def comparison_figure(draws: np.ndarray, names, weights: dict, content: dict, injected: dict):
     """Posteriors of the common-process parameters under each model, and the Bayes factors."""
     shown = [i for i, n in enumerate(names) if n in (parameters.COMMON_AMPLITUDE, parameters.COMMON_INDEX)] or [0]
     fig, axes = plt.subplots(1, len(shown) + 1, figsize=(4.2 * (len(shown) + 1), 3.6), constrained_layout=True)
-    equal = np.full(len(draws), 1.0 / len(draws))
     for ax, i in zip(axes, shown):
         values = draws[:, i]
         grid = np.linspace(values.min(), values.max(), 300)
-        ax.fill_between(grid, _density(values, equal, grid), color=_UNCORRELATED, alpha=0.45, lw=0, label="uncorrelated")
+        ax.fill_between(grid, gaussian_kde(values)(grid), color=_UNCORRELATED, alpha=0.45, lw=0, label="uncorrelated")
         for pattern, w in weights.items():
-            effective = 1.0 / np.sum(w**2)
+            effective = content["patterns"][pattern]["effective_samples"]
             if effective < MIN_SHOWN:  # a density of a few draws is a spike, not a posterior
                 ax.plot([], [], color=_PATTERN_COLOURS[pattern], lw=1.8, ls=":",
                         label=f"{pattern} (not drawn: {effective:.0f} effective samples)")
                 continue
             reliable = content["patterns"][pattern]["reliable"]
-            ax.plot(grid, _density(values, w, grid), color=_PATTERN_COLOURS[pattern], lw=1.8,
+            ax.plot(grid, gaussian_kde(values, weights=w)(grid), color=_PATTERN_COLOURS[pattern], lw=1.8,
                     ls="-" if reliable else "--", label=pattern if reliable else f"{pattern} (unreliable)")
         ax.xaxis.set_major_locator(MaxNLocator(4))
         if names[i] in injected:

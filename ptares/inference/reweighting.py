@@ -25,16 +25,34 @@ __all__ = ["Reweighting", "reweight", "independent_draws", "weighted_quantiles",
 
 @dataclass(frozen=True)
 class Reweighting:
-    """The Bayes factor of one pattern against the uncorrelated model, from ``log_weights`` of ``draws``."""
+    """The Bayes factor of one pattern against the uncorrelated model, from the ``log_weights``
+    (ln L_pattern - ln L_U) of independent draws; everything else follows from them."""
 
-    log_weights: np.ndarray  #: ln L_pattern - ln L_U per draw
-    ln_bayes_factor: float
-    ln_bayes_factor_error: float
-    effective_samples: float
+    log_weights: np.ndarray
 
     @property
     def draws(self) -> int:
         return int(self.log_weights.size)
+
+    @property
+    def _scaled(self) -> np.ndarray:
+        """``w / max w``: no overflow."""
+        return np.exp(self.log_weights - self.log_weights.max())
+
+    @property
+    def ln_bayes_factor(self) -> float:
+        return float(np.log(self._scaled.mean()) + self.log_weights.max())
+
+    @property
+    def ln_bayes_factor_error(self) -> float:
+        """Standard error of ln mean(w): ``sd(w) / (sqrt(n) mean(w))`` (delta method)."""
+        scaled = self._scaled
+        return float(scaled.std(ddof=1) / (np.sqrt(scaled.size) * scaled.mean()))
+
+    @property
+    def effective_samples(self) -> float:
+        scaled = self._scaled
+        return float(scaled.sum() ** 2 / np.sum(scaled**2))
 
     @property
     def efficiency(self) -> float:
@@ -52,20 +70,12 @@ def reweight(log_weights) -> Reweighting:
     log_weights = np.asarray(log_weights, dtype=float)
     if log_weights.ndim != 1 or log_weights.size < 2 or not np.all(np.isfinite(log_weights)):
         raise ValueError("reweighting needs at least two finite log weights")
-    n = log_weights.size
-    scaled = np.exp(log_weights - log_weights.max())  # w / max w: no overflow
-    mean = scaled.mean()
-    ln_b = float(np.log(mean) + log_weights.max())
-    error = float(scaled.std(ddof=1) / (np.sqrt(n) * mean))
-    effective = float(scaled.sum() ** 2 / np.sum(scaled**2))
-    return Reweighting(log_weights, ln_b, error, effective)
+    return Reweighting(log_weights)
 
 
-def independent_draws(chain: np.ndarray, burn: int, autocorr_time: float, count: int,
-                      rng: np.random.Generator) -> np.ndarray:
-    """At most ``count`` nearly independent draws (draws, parameters) from ``chain`` (steps, chains, parameters):
-    after ``burn``, one step per ``ceil(autocorr_time)`` of every chain, then an even random subset."""
-    step = max(int(np.ceil(autocorr_time)), 1)
+def independent_draws(chain: np.ndarray, burn: int, step: int, count: int, rng: np.random.Generator) -> np.ndarray:
+    """At most ``count`` draws (draws, parameters) from ``chain`` (steps, chains, parameters): after ``burn``,
+    every ``step``-th step of every chain, then an even random subset."""
     draws = chain[burn::step].reshape(-1, chain.shape[-1])
     if draws.shape[0] > count:
         draws = draws[np.sort(rng.choice(draws.shape[0], count, replace=False))]
