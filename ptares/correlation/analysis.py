@@ -31,6 +31,7 @@ from ptares.correlation.pairs import (
     overlap,
     pair_correlations,
     pair_covariant_statistic,
+    pair_matrices,
     per_frequency_statistics,
     weak_signal_weights,
 )
@@ -39,8 +40,10 @@ from ptares.correlation.scatter import (
     bin_pairs,
     binned_covariance,
     covariance_method,
+    ensemble_draws,
     fit_quality,
     pair_covariance,
+    refitted_chi2,
     weighted_covariance,
 )
 from ptares.dataset import Dataset, write_json
@@ -143,9 +146,6 @@ def _calibrated_p(products, pairs, binned, shape, gamma_matrix, covariance_at, f
     each simulated data set goes through the same refit, and the share of simulated chi-squared
     values at or above the observed one is the tail probability.
     """
-    from ptares.correlation.pairs import pair_matrices
-    from ptares.correlation.scatter import ensemble_draws, fit_quality
-
     size = products.Z.shape[0] * products.Z.shape[1]
     if size**2 * 8 > MEMORY_LIMIT:
         return {"p_calibrated": None}
@@ -155,7 +155,7 @@ def _calibrated_p(products, pairs, binned, shape, gamma_matrix, covariance_at, f
     rho = numerator / denominator[pairs.a, pairs.b]
     simulated = np.column_stack([rho[:, m] @ w for m, w in zip(binned.members, binned.weights)])
     start = float(fit["amplitude2"])
-    values = np.array([fit_quality(row, shape, covariance_at, start)["chi2"] for row in simulated])
+    values, _ = refitted_chi2(simulated, shape, covariance_at, start)
     return {"p_calibrated": float((1 + np.sum(values >= fit["chi2"])) / (1 + trials)), "trials": int(trials)}
 
 

@@ -38,6 +38,7 @@ __all__ = [
     "ensemble_draws",
     "fit_quality",
     "pair_covariance",
+    "refitted_chi2",
     "scaled_products",
     "weighted_covariance",
 ]
@@ -202,22 +203,32 @@ def ensemble_draws(products: FourierProducts, gamma_matrix: np.ndarray, amplitud
     return (rng.standard_normal((count, P * size)) @ root.T).reshape(count, P, size)
 
 
-def fit_quality(rho: np.ndarray, shape: np.ndarray, covariance_at, start: float, iterations: int = 5) -> dict:
-    """Goodness of fit of ``A^2 * shape`` to the binned correlations ``rho``.
+def refitted_chi2(rows: np.ndarray, shape: np.ndarray, covariance_at, start: float, iterations: int = 5) -> tuple:
+    """``(chi2, amplitude2)``, arrays (n,): the fit of ``A^2 * shape`` to each row of ``rows`` (n, bins), all at once.
 
     The amplitude is refitted by generalised least squares with the binned
-    covariance evaluated at the current amplitude (``covariance_at(A2)``),
-    iterated from ``start`` (negative values are held at zero for the
-    covariance, which needs a non-negative power).  ``p`` is the chi-squared
-    tail probability with (bins - 1) degrees of freedom: approximate, since
-    binned correlations are not exactly Gaussian.
+    covariance evaluated at the current amplitude (``covariance_at(A2)``, which
+    takes an array of amplitudes shaped (n, 1, 1)), iterated from ``start``
+    (negative values are held at zero for the covariance, which needs a
+    non-negative power).
     """
-    amplitude2 = start
+    rows = np.atleast_2d(rows)
+    amplitude2 = np.full(len(rows), float(start))
+    shapes = np.broadcast_to(shape, rows.shape)[..., None]
     for _ in range(iterations):
-        covariance = covariance_at(max(amplitude2, 0.0))
-        weighted = np.linalg.solve(covariance, shape)
-        amplitude2 = float(weighted @ rho / (weighted @ shape))
-    residual = rho - amplitude2 * shape
-    chi2 = float(residual @ np.linalg.solve(covariance_at(max(amplitude2, 0.0)), residual))
-    dof = max(len(residual) - 1, 1)
-    return {"chi2": chi2, "dof": dof, "p": float(stats.chi2.sf(chi2, dof)), "amplitude2": amplitude2}
+        weighted = np.linalg.solve(covariance_at(np.maximum(amplitude2, 0.0)[:, None, None]), shapes)[..., 0]
+        amplitude2 = np.sum(weighted * rows, axis=1) / (weighted @ shape)
+    residual = rows - amplitude2[:, None] * shape
+    solved = np.linalg.solve(covariance_at(np.maximum(amplitude2, 0.0)[:, None, None]), residual[..., None])[..., 0]
+    return np.sum(residual * solved, axis=1), amplitude2
+
+
+def fit_quality(rho: np.ndarray, shape: np.ndarray, covariance_at, start: float, iterations: int = 5) -> dict:
+    """Goodness of fit of ``A^2 * shape`` to the binned correlations ``rho`` (:func:`refitted_chi2`).
+
+    ``p`` is the chi-squared tail probability with (bins - 1) degrees of freedom:
+    approximate, since binned correlations are not exactly Gaussian.
+    """
+    (chi2,), (amplitude2,) = refitted_chi2(rho, shape, covariance_at, start, iterations)
+    dof = max(len(rho) - 1, 1)
+    return {"chi2": float(chi2), "dof": dof, "p": float(stats.chi2.sf(chi2, dof)), "amplitude2": float(amplitude2)}
