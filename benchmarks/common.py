@@ -33,9 +33,9 @@ def regular_array(pulsars: int, toas: int, frequencies: int, seed: int, toa_erro
     )
 
 
-def gibbs_iteration_seconds(model, x, repeats: int) -> float:
+def gibbs_iteration_seconds(model, x, repeats: int, keep_factors: bool = True) -> float:
     """Mean wall-clock time (s) of one Gibbs iteration of ``model`` from the free parameters ``x``, after one
-    untimed iteration (numba compilation, caches)."""
+    untimed iteration (numba compilation, caches); ``keep_factors=False`` refactorises for each coefficient draw."""
     from ptares.inference.samplers.gibbs import GibbsSampler
 
     sampler = GibbsSampler(model)
@@ -45,5 +45,7 @@ def gibbs_iteration_seconds(model, x, repeats: int) -> float:
     sampler.iterate(x, rng, proposals)
     start = time.perf_counter()
     for _ in range(repeats):
+        if not keep_factors:
+            sampler._kept = None
         sampler.iterate(x, rng, proposals)
     return (time.perf_counter() - start) / repeats

@@ -578,7 +578,7 @@ class ComparisonResult:
     def pattern_lines(self) -> list:
         """One line per pattern (ln B, its error, effective samples, reliability) and the warning, if any."""
         lines = [f"  {pattern:15s} ln B = {entry['ln_bayes_factor']:+.3g} +/- {entry['ln_bayes_factor_error']:.2g} "
-                 f"against uncorrelated, {entry['effective_samples']:.0f} effective samples"
+                 f"against uncorrelated ({entry['method']}), {entry['effective_samples']:.0f} effective samples"
                  + ("" if entry["reliable"] else "  UNRELIABLE")
                  for pattern, entry in self.content["patterns"].items()]
         if self.content["warning"]:
@@ -586,7 +586,7 @@ class ComparisonResult:
         return lines
 
     def __repr__(self) -> str:
-        return "\n".join([f"ComparisonResult: {self.content['draws']} draws of the uncorrelated posterior reweighted",
+        return "\n".join([f"ComparisonResult: {self.content['draws']} draws of the uncorrelated posterior",
                           *self.pattern_lines()])
 
 
@@ -594,17 +594,19 @@ class ComparisonResult:
 def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None, overwrite: bool = False,
             figures: bool = True, verbose: bool = False, threads: int | None = None, **options) -> ComparisonResult:
     """Bayes factors of correlated common processes (Hellings–Downs; monopole, dipole) against an
-    uncorrelated one, by reweighting the uncorrelated posterior; returns a :class:`ComparisonResult`.
+    uncorrelated one, by reweighting the uncorrelated posterior or, where that is unreliable, by bridge
+    sampling between it and a direct fit of the pattern; returns a :class:`ComparisonResult`.
 
     ``source`` as for :func:`fit`.  ``settings`` (a dict or TOML file) gives the ``[fit]`` table of the
     uncorrelated fit (its ``common`` is set to ``"uncorrelated"``) and the ``[compare]`` table;
     ``fit_options`` is a dict of ``[fit]`` keys over it, keyword ``options`` are ``[compare]`` keys
     (``samples=1000``, ``patterns=["hellings-downs", "monopole"]``, ``workers=2``).  The likelihood
     evaluations run in ``workers`` local processes or on a Dask ``scheduler``.  With ``out``:
-    ``out/dataset.h5`` when the source is a config, the fit in ``out/uncorrelated/`` (resumed when run
-    again), ``out/comparison.json`` and, unless ``figures=False``, ``out/comparison.png``.
+    ``out/dataset.h5`` when the source is a config, the fit in ``out/uncorrelated/`` and any direct fit in
+    ``out/<pattern>/`` (resumed when run again), ``out/comparison.json`` and, unless ``figures=False``,
+    ``out/comparison.png``.
     """
-    from ptares.campaign.comparison import compare_models, patterns_of
+    from ptares.campaign.comparison import add_direct_fit, compare_models, direct_patterns, patterns_of
     from ptares.dataset import write_json
     from ptares.inference.model import FitModel
     from ptares.inputs.config import CompareSection
@@ -638,6 +640,14 @@ def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None
         _say(verbose, f"reweighting the uncorrelated posterior by the {', '.join(patterns_of(section))} likelihood")
         comparison = compare_models(model, fitted.chain(), fitted.summary, section, seed=fit_section.seed,
                                     scheduler=client, progress=verbose)
+        for pattern in direct_patterns(comparison, section):
+            effective = comparison.content["patterns"][pattern]["effective_samples"]
+            _say(verbose, f"fitting the {pattern} model directly (reweighting left {effective:.0f} effective samples); "
+                          "the Bayes factor then bridges both posteriors")
+            direct = fit(dataset, None if out is None else out / pattern, settings=fit_section.model_copy(
+                update={"common": pattern}), overwrite=overwrite, figures=figures, verbose=verbose, threads=threads)
+            add_direct_fit(comparison, model, pattern, direct.chain(), direct.summary, section, seed=fit_section.seed,
+                           scheduler=client, progress=verbose)
     finally:
         if client is not None and client is not scheduler:
             client.close()
@@ -648,8 +658,7 @@ def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None
                 from ptares.figures.common import save_figure
                 from ptares.figures.comparison import comparison_figure
 
-                save_figure(comparison_figure(comparison.draws, model.names, comparison.weights, comparison.content,
-                                              model.injected), out / "comparison.png")
+                save_figure(comparison_figure(comparison, model.names, model.injected), out / "comparison.png")
         except OSError as exc:
             raise _cannot_write(exc, out) from None
     return ComparisonResult(comparison.content, fitted, out)

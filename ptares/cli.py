@@ -93,13 +93,13 @@ def _compare(args) -> int:
     from ptares import api
 
     fit_options = {k: getattr(args, k) for k in ("max_steps", "seed", "sampler") if getattr(args, k) is not None}
-    options = {k: getattr(args, k) for k in ("samples", "patterns", "workers") if getattr(args, k) is not None}
+    options = {k: getattr(args, k) for k in ("samples", "patterns", "workers", "direct_fit") if getattr(args, k) is not None}
     try:
         result = api.compare(args.source, args.out, settings=args.config, fit_options=fit_options,
                              scheduler=args.scheduler, overwrite=args.overwrite, verbose=True, threads=args.threads,
                              **options)
     except api.Interrupted as exc:
-        print(f"ptares: interrupted; the uncorrelated chains so far are in {exc.kept}; run the same command to resume",
+        print(f"ptares: interrupted; the chains so far are in {exc.kept}; run the same command to resume",
               file=sys.stderr)
         return 130
     content = result.content
@@ -252,16 +252,20 @@ def build_parser() -> argparse.ArgumentParser:
 
     cmp = commands.add_parser("compare", parents=[common],
                               help="Bayes factor of Hellings-Downs (and monopole, dipole) against an uncorrelated "
-                                   "common process, by reweighting")
+                                   "common process, by reweighting or bridge sampling")
     cmp.add_argument("source", help="a TOML config (simulated, then fitted) or an HDF5 dataset")
     cmp.add_argument("--out", required=True,
-                     help="output directory (comparison.json, comparison.png, the uncorrelated fit in uncorrelated/)")
+                     help="output directory (comparison.json, comparison.png, the uncorrelated fit in uncorrelated/, "
+                          "any direct fit in hellings-downs/, monopole/, dipole/)")
     cmp.add_argument("--config", help="TOML file whose [fit] and [compare] tables hold the settings")
     cmp.add_argument("--patterns", nargs="+", choices=["hellings-downs", "monopole", "dipole"],
                      help="correlation patterns to weigh against the uncorrelated model (hellings-downs always)")
     cmp.add_argument("--samples", type=int, help="most posterior draws to reweight (default 2000)")
-    cmp.add_argument("--max-steps", type=int, help="most steps of the uncorrelated fit (rerun with more to extend)")
-    cmp.add_argument("--sampler", choices=["auto", "ensemble", "gibbs"], help="sampler of the uncorrelated fit")
+    cmp.add_argument("--direct-fit", choices=["auto", "always", "never"],
+                     help="fit a pattern directly and bridge both posteriors: when reweighting is unreliable (auto, the "
+                          "default), always, or never")
+    cmp.add_argument("--max-steps", type=int, help="most steps of each fit (rerun with more to extend)")
+    cmp.add_argument("--sampler", choices=["auto", "ensemble", "gibbs"], help="sampler of the fits")
     cmp.add_argument("--seed", type=int, help="seed of the sampler and of the draws' selection")
     _engine_options(cmp, workers_key="[compare] workers")
     cmp.set_defaults(run=_compare)

@@ -133,7 +133,8 @@ def _run(job):
 
 @pytest.mark.statistical
 def test_gibbs_posterior_of_the_common_process_agrees_with_emcee(tmp_path):
-    """6 pulsars, each pulsar's red noise and the common process free (14 parameters): the Gibbs posterior mean
+    """6 pulsars, each pulsar's red noise and a Hellings–Downs common process free (14 parameters; the
+    uncorrelated model is the P-P test's): the Gibbs posterior mean
     and standard deviation of the common amplitude and index agree with a long emcee run's within Monte-Carlo
     error (4 combined standard errors, each from its chain's effective sample size of that parameter).
 
@@ -149,7 +150,7 @@ def test_gibbs_posterior_of_the_common_process_agrees_with_emcee(tmp_path):
     )
     data = simulate(config, seed=4)
     priors = {"red_lg_amplitude": {"uniform": [-14.6, -13.4]}, "red_spectral_index": {"uniform": [2.0, 4.0]}}
-    common = dict(red="free", red_harmonics=6, effective_samples=1500, seed=3, priors=priors)
+    common = dict(common="hellings-downs", red="free", red_harmonics=6, effective_samples=1500, seed=3, priors=priors)
     gibbs = FitModel(data, FitSection(sampler="gibbs", gibbs_chains=2, max_steps=6000, **common))
     ensemble = FitModel(data, FitSection(sampler="ensemble", start="map", walkers=32, max_steps=7000, **common))
     g_run, e_run = parallel_map(_run, [(gibbs, tmp_path / "g.h5"), (ensemble, tmp_path / "e.h5")])

@@ -1,27 +1,34 @@
-"""``ptares compare``: correlated against uncorrelated common process, by likelihood reweighting.
+"""``ptares compare``: correlated against uncorrelated common process.
 
 The uncorrelated model's posterior draws (thinned to about one per autocorrelation
 time) are reweighted by the likelihood ratio of each correlation pattern
-(:mod:`ptares.inference.reweighting`).  The likelihood evaluations are split into
-chunks that run on the campaign engines (local processes or a Dask cluster); every
-chunk rebuilds both models from the dataset, so a worker needs nothing but its task.
+(:mod:`ptares.inference.reweighting`).  Where that leaves too few effective samples (the
+correlated posterior lies where the uncorrelated one has few draws: a loud signal, a large
+array), the pattern's model is fitted directly and the Bayes factor comes from draws of both
+posteriors by bridge sampling (:func:`~ptares.inference.reweighting.bridge`); its posterior is
+then the direct fit's.  The likelihood evaluations are split into chunks that run on the
+campaign engines (local processes or a Dask cluster); every chunk rebuilds both models from
+the dataset, so a worker needs nothing but its task.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from ptares.dataset import Dataset
-from ptares.inference.reweighting import independent_draws, reweight, weighted_summary
+from ptares.inference.reweighting import bridge, independent_draws, reweight, weighted_summary
 from ptares.inputs.config import CompareSection, FitSection
 from ptares.version import __version__
 
-__all__ = ["Comparison", "LikelihoodChunk", "likelihood_ratios", "compare_models", "patterns_of"]
+__all__ = ["Comparison", "LikelihoodChunk", "likelihood_ratios", "compare_models", "patterns_of", "direct_patterns",
+           "add_direct_fit", "BRIDGE_MIN_EFFECTIVE"]
 
 #: Chunks per worker: enough to keep every worker busy to the end and the progress bar moving.
 CHUNKS_PER_WORKER = 4
+#: Fewest effective draws on each side of a bridge for its Bayes factor and error to be trusted.
+BRIDGE_MIN_EFFECTIVE = 20
 
 
 @dataclass
@@ -67,11 +74,55 @@ def _chunks(model, draws: np.ndarray, patterns, workers: int) -> list:
 
 @dataclass
 class Comparison:
-    """``content`` of ``comparison.json``; the reweighted ``draws`` (n, parameters) and each pattern's normalised ``weights``."""
+    """``content`` of ``comparison.json``; the uncorrelated posterior's ``draws`` (n, parameters), each pattern's
+    ``log_weights`` (ln L_pattern - ln L_U) at them and normalised ``weights``, and ``direct``: the draws of each
+    pattern fitted directly."""
 
     content: dict
     draws: np.ndarray
     weights: dict
+    log_weights: dict
+    direct: dict = field(default_factory=dict)
+
+    def posterior_draws(self, pattern: str):
+        """``(draws, normalised weights)`` of the pattern's posterior: its direct fit's, else the reweighted ones."""
+        if pattern in self.direct:
+            draws = self.direct[pattern]
+            return draws, np.full(len(draws), 1.0 / len(draws))
+        return self.draws, self.weights[pattern]
+
+
+def _thinned(chain: np.ndarray, fit_summary: dict, count: int, seed: int) -> tuple:
+    """``(draws, burn, step)``: up to ``count`` draws of a posterior ``chain``, about independent."""
+    taus = [entry["autocorr_time"] for entry in fit_summary["parameters"].values()]
+    tau = float(np.nanmax(taus)) if taus and np.any(np.isfinite(taus)) else 1.0
+    # one early straggler outside the posterior's bulk can carry all the weight: burn a quarter of the chain at least
+    burn = max(int(fit_summary["burn"]), chain.shape[0] // 4)
+    # one draw per two integrated autocorrelation times: successive draws then correlate by about e^-4,
+    # so the errors, which treat them as independent, hold
+    step = max(int(np.ceil(2.0 * tau)), 1)
+    return independent_draws(chain, burn, step, count, np.random.default_rng(seed)), burn, step
+
+
+def _log_ratios(model, draws: np.ndarray, patterns, workers: int, scheduler, progress: bool, label: str) -> dict:
+    """``{pattern: ln L_pattern - ln L_U at each draw}``, computed on the campaign engines."""
+    from tqdm.auto import tqdm
+
+    from ptares.campaign.engines import run_locally, run_on_dask
+
+    chunks = _chunks(model, draws, patterns, workers)
+    if scheduler is not None:
+        rows = run_on_dask(chunks, scheduler, function=likelihood_ratios)
+    elif workers > 1:
+        rows = run_locally(chunks, workers, function=likelihood_ratios, where="compare")
+    else:
+        rows = map(likelihood_ratios, chunks)
+    parts = {}
+    with tqdm(total=len(draws), desc=label, unit="draw", disable=None if progress else True) as bar:
+        for row in rows:
+            parts[row["index"]] = row["log_weights"]
+            bar.update(len(chunks[row["index"]].points))
+    return {p: np.concatenate([parts[c.index][p] for c in chunks]) for p in patterns}
 
 
 def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: CompareSection, *, seed: int = 0,
@@ -80,36 +131,15 @@ def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: Compar
 
     ``fit_summary`` is the uncorrelated fit's ``posterior.json`` (burn-in, autocorrelation times, verdict).
     """
-    from tqdm.auto import tqdm
-
-    from ptares.campaign.engines import run_locally, run_on_dask
-
     patterns = patterns_of(settings)
-    taus = [entry["autocorr_time"] for entry in fit_summary["parameters"].values()]
-    tau = float(np.nanmax(taus)) if taus and np.any(np.isfinite(taus)) else 1.0
-    # one early straggler outside the posterior's bulk can carry all the weight: burn a quarter of the chain at least
-    burn = max(int(fit_summary["burn"]), chain.shape[0] // 4)
-    # one draw per two integrated autocorrelation times: successive draws then correlate by about e^-4,
-    # so the error of the mean weight, which treats them as independent, holds
-    step = max(int(np.ceil(2.0 * tau)), 1)
-    draws = independent_draws(chain, burn, step, settings.samples, np.random.default_rng(seed))
-    chunks = _chunks(model, draws, patterns, settings.workers)
-    if scheduler is not None:
-        rows = run_on_dask(chunks, scheduler, function=likelihood_ratios)
-    elif settings.workers > 1:
-        rows = run_locally(chunks, settings.workers, function=likelihood_ratios, where="compare")
-    else:
-        rows = map(likelihood_ratios, chunks)
-    parts = {}
-    with tqdm(total=len(draws), desc="likelihood ratios", unit="draw", disable=None if progress else True) as bar:
-        for row in rows:
-            parts[row["index"]] = row["log_weights"]
-            bar.update(len(chunks[row["index"]].points))
-    results = {p: reweight(np.concatenate([parts[c.index][p] for c in chunks])) for p in patterns}
+    draws, burn, step = _thinned(chain, fit_summary, settings.samples, seed)
+    log_weights = _log_ratios(model, draws, patterns, settings.workers, scheduler, progress, "likelihood ratios")
+    results = {p: reweight(log_weights[p]) for p in patterns}
     entries = {}
     for pattern, result in results.items():
         warning = _warning(result, settings.min_effective_samples, fit_summary)
         entries[pattern] = {
+            "method": "reweighting",
             "ln_bayes_factor": result.ln_bayes_factor,
             "ln_bayes_factor_error": result.ln_bayes_factor_error,
             "effective_samples": result.effective_samples,
@@ -118,23 +148,79 @@ def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: Compar
             "warning": warning,
             "posterior": weighted_summary(draws, model.names, result.weights, result.effective_samples, model.injected),
         }
-    hd = entries["hellings-downs"]
     content = {
         "ptares_version": __version__,
         "against": "uncorrelated common process (same parameters and priors)",
-        **{key: hd[key] for key in ("ln_bayes_factor", "ln_bayes_factor_error", "effective_samples", "reliable",
-                                    "warning")},
         "draws": int(len(draws)),
         "burn": burn,
         "thinned_by": step,
-        "posterior": hd["posterior"],
         "patterns": entries,
         "uncorrelated_fit": {k: fit_summary[k] for k in ("sampler", "converged", "not_converged_because", "steps",
                                                           "effective_samples", "max_rhat") if k in fit_summary},
         "settings": {"patterns": list(patterns), "samples": settings.samples,
-                     "min_effective_samples": settings.min_effective_samples, "seed": seed},
+                     "min_effective_samples": settings.min_effective_samples, "direct_fit": settings.direct_fit,
+                     "seed": seed},
     }
-    return Comparison(content, draws, {p: r.weights for p, r in results.items()})
+    _lead_with_hellings_downs(content)
+    return Comparison(content, draws, {p: r.weights for p, r in results.items()}, log_weights)
+
+
+def _lead_with_hellings_downs(content: dict) -> None:
+    """The top-level keys of ``comparison.json`` repeat the Hellings–Downs entry."""
+    hd = content["patterns"]["hellings-downs"]
+    content.update({key: hd[key] for key in ("method", "ln_bayes_factor", "ln_bayes_factor_error", "effective_samples",
+                                             "reliable", "warning", "posterior")})
+
+
+def direct_patterns(comparison: Comparison, settings: CompareSection) -> list:
+    """The patterns to fit directly: all (``direct_fit = "always"``), none (``"never"``), or those whose
+    reweighting left fewer than ``min_effective_samples`` effective samples (``"auto"``)."""
+    entries = comparison.content["patterns"]
+    if settings.direct_fit == "never":
+        return []
+    if settings.direct_fit == "always":
+        return list(entries)
+    return [p for p, e in entries.items() if e["effective_samples"] < settings.min_effective_samples]
+
+
+def add_direct_fit(comparison: Comparison, model, pattern: str, chain: np.ndarray, fit_summary: dict,
+                   settings: CompareSection, *, seed: int = 0, scheduler=None, progress: bool = False) -> None:
+    """Replace ``pattern``'s reweighted entry by the bridge between both posteriors: the uncorrelated
+    ``model``'s draws (already weighed) and draws of the pattern's own fit (``chain``, ``fit_summary``);
+    the posterior becomes the direct fit's summary.  Changes ``comparison`` in place."""
+    draws, burn, step = _thinned(chain, fit_summary, settings.samples, seed + 1)
+    log_ratios = _log_ratios(model, draws, (pattern,), settings.workers, scheduler, progress,
+                             f"{pattern} likelihood ratios")[pattern]
+    entry = comparison.content["patterns"][pattern]
+    result = bridge(log_ratios, comparison.log_weights[pattern], start=entry["ln_bayes_factor"])
+    reasons = []
+    for side, effective in (("correlated", result.effective_correlated), ("uncorrelated", result.effective_uncorrelated)):
+        if effective < BRIDGE_MIN_EFFECTIVE:
+            reasons.append(f"the bridge rests on {effective:.0f} effective draws of the {side} posterior (fewer than "
+                           f"{BRIDGE_MIN_EFFECTIVE}): the posteriors barely overlap, so ln B and its error are rough; "
+                           "more draws of both fits (samples, effective_samples) help")
+    for name, summary in (("correlated", fit_summary), ("uncorrelated", comparison.content["uncorrelated_fit"])):
+        if not summary.get("converged", False):
+            reasons.append(f"the {name} fit has not converged ({summary.get('not_converged_because')})")
+    comparison.content["patterns"][pattern] = {
+        "method": "bridge",
+        "ln_bayes_factor": result.ln_bayes_factor,
+        "ln_bayes_factor_error": result.ln_bayes_factor_error,
+        "effective_samples": result.effective_samples,
+        "reliable": not reasons,
+        "warning": "; ".join(reasons) or None,
+        "bridge": {"effective_correlated": result.effective_correlated,
+                   "effective_uncorrelated": result.effective_uncorrelated,
+                   "draws_correlated": result.draws_correlated, "draws_uncorrelated": result.draws_uncorrelated,
+                   "burn": burn, "thinned_by": step, "iterations": result.iterations},
+        "reweighting": {key: entry[key] for key in ("ln_bayes_factor", "ln_bayes_factor_error", "effective_samples",
+                                                    "efficiency", "warning")},
+        "direct_fit": {k: fit_summary[k] for k in ("sampler", "converged", "not_converged_because", "steps",
+                                                   "effective_samples", "max_rhat") if k in fit_summary},
+        "posterior": fit_summary["parameters"],
+    }
+    comparison.direct[pattern] = draws
+    _lead_with_hellings_downs(comparison.content)
 
 
 def _warning(result, min_effective: int, fit_summary: dict) -> str | None:

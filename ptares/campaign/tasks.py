@@ -163,14 +163,22 @@ def _fitted(data, section) -> tuple:
     return model, run, summarise(model, run)
 
 
-def _bayes_factor(data, config: Config, fitted=None) -> dict:
-    """The compare stage's columns: the uncorrelated fit (``fitted``, when the fit stage ran one) reweighted
-    by the Hellings–Downs likelihood in this process."""
-    from ptares.campaign.comparison import compare_models
+def _bayes_factor(data, config: Config, fitted: dict) -> dict:
+    """The compare stage's columns: the uncorrelated fit reweighted by the Hellings–Downs likelihood in this
+    process, and a direct fit bridged to it where ``[compare] direct_fit`` asks for one; ``fitted`` holds
+    the fit stage's ``_fitted`` result under its ``common``, reused when it is one of these."""
+    from ptares.campaign.comparison import add_direct_fit, compare_models, direct_patterns
 
-    model, run, summary = fitted or _fitted(data, config.fit.model_copy(update={"common": "uncorrelated"}))
-    content = compare_models(model, run.chain, summary, config.compare.model_copy(update={"workers": 1}),
-                             seed=config.fit.seed).content
+    def fitted_as(common):
+        return fitted.get(common) or _fitted(data, config.fit.model_copy(update={"common": common}))
+
+    model, run, summary = fitted_as("uncorrelated")
+    settings = config.compare.model_copy(update={"workers": 1})
+    comparison = compare_models(model, run.chain, summary, settings, seed=config.fit.seed)
+    for pattern in direct_patterns(comparison, settings):
+        _, direct, direct_summary = fitted_as(pattern)
+        add_direct_fit(comparison, model, pattern, direct.chain, direct_summary, settings, seed=config.fit.seed)
+    content = comparison.content
     return {"ln_bayes_factor": content["ln_bayes_factor"], "ln_bayes_factor_error": content["ln_bayes_factor_error"],
             "bayes_effective_samples": content["effective_samples"], "bayes_reliable": content["reliable"]}
 
@@ -198,12 +206,10 @@ def run_task(task: Task) -> dict:
                        monopole_snr=result.estimates["monopole"]["snr"],
                        dipole_snr=result.estimates["dipole"]["snr"], hd_curve_chi2=result.fit["chi2"],
                        hd_curve_p_calibrated=result.fit.get("p_calibrated"))
-        fitted = None
+        fitted = {}
         if "fit" in task.stages:
-            fitted = _fitted(data, config.fit)
-            row.update(_summary_of_fit(*fitted))
-            if config.fit.common != "uncorrelated":  # the compare stage needs the uncorrelated model's chains
-                fitted = None
+            fitted[config.fit.common] = _fitted(data, config.fit)
+            row.update(_summary_of_fit(*fitted[config.fit.common]))
         if "compare" in task.stages:
             row.update(_bayes_factor(data, config, fitted))
         row["status"] = "ok"

@@ -2,7 +2,7 @@
 
 One panel per common-process parameter: the uncorrelated model's marginal density
 (its draws, equally weighted) as a grey filled curve and each correlated model's
-(the same draws, reweighted) as a line, both Gaussian kernel densities (scipy's, which
+(the same draws reweighted, or its direct fit's draws) as a line, both Gaussian kernel densities (scipy's, which
 takes the weights and sets the bandwidth from their effective sample size); injected values as an orange rule.  The last
 panel shows each pattern's ln Bayes factor against the uncorrelated model with its
 standard error, and its effective sample size (on a symmetric log scale when the values
@@ -34,23 +34,31 @@ _INJECTED = "#e36414"
 MIN_SHOWN = 10
 
 
-def comparison_figure(draws: np.ndarray, names, weights: dict, content: dict, injected: dict):
-    """Posteriors of the common-process parameters under each model, and the Bayes factors."""
+def comparison_figure(comparison, names, injected: dict):
+    """Posteriors of the common-process parameters under each model, and the Bayes factors
+    (``comparison``: a :class:`ptares.campaign.comparison.Comparison`)."""
+    content, draws = comparison.content, comparison.draws
     shown = [i for i, n in enumerate(names) if n in (parameters.COMMON_AMPLITUDE, parameters.COMMON_INDEX)] or [0]
     fig, axes = plt.subplots(1, len(shown) + 1, figsize=(4.2 * (len(shown) + 1), 3.6), constrained_layout=True)
     for ax, i in zip(axes, shown):
         values = draws[:, i]
-        grid = np.linspace(values.min(), values.max(), 300)
+        low, high = values.min(), values.max()
+        for own in comparison.direct.values():
+            low, high = min(low, own[:, i].min()), max(high, own[:, i].max())
+        grid = np.linspace(low, high, 300)
         ax.fill_between(grid, gaussian_kde(values)(grid), color=_UNCORRELATED, alpha=0.45, lw=0, label="uncorrelated")
-        for pattern, w in weights.items():
-            effective = content["patterns"][pattern]["effective_samples"]
+        for pattern, entry in content["patterns"].items():
+            direct = entry["method"] == "bridge"
+            effective = len(comparison.direct[pattern]) if direct else entry["effective_samples"]
             if effective < MIN_SHOWN:  # a density of a few draws is a spike, not a posterior
                 ax.plot([], [], color=_PATTERN_COLOURS[pattern], lw=1.8, ls=":",
                         label=f"{pattern} (not drawn: {effective:.0f} effective samples)")
                 continue
-            reliable = content["patterns"][pattern]["reliable"]
-            ax.plot(grid, gaussian_kde(values, weights=w)(grid), color=_PATTERN_COLOURS[pattern], lw=1.8,
-                    ls="-" if reliable else "--", label=pattern if reliable else f"{pattern} (unreliable)")
+            own, weights = comparison.posterior_draws(pattern)
+            how = "fitted" if direct else "reweighted"
+            label = f"{pattern}, {how}" if entry["reliable"] else f"{pattern}, {how} (unreliable)"
+            ax.plot(grid, gaussian_kde(own[:, i], weights=weights)(grid), color=_PATTERN_COLOURS[pattern], lw=1.8,
+                    ls="-" if entry["reliable"] else "--", label=label)
         ax.xaxis.set_major_locator(MaxNLocator(4))
         if names[i] in injected:
             ax.axvline(injected[names[i]], color=_INJECTED, lw=1.2, label="injected")
@@ -77,8 +85,10 @@ def comparison_figure(draws: np.ndarray, names, weights: dict, content: dict, in
     ax.set_xlim(-0.6, len(patterns) - 0.4)
     ax.set_ylabel("ln Bayes factor against uncorrelated")
     hd = patterns["hellings-downs"]
+    how = (f"bridge sampling, {hd['effective_samples']:.0f} effective draws on its thinner side"
+           if hd["method"] == "bridge" else f"reweighting, {hd['effective_samples']:.0f} effective of {content['draws']} draws")
     title = (f"Hellings\u2013Downs against uncorrelated: ln B = {hd['ln_bayes_factor']:.2f} \u00b1 "
-             f"{hd['ln_bayes_factor_error']:.2g} ({hd['effective_samples']:.0f} effective of {content['draws']} draws)")
+             f"{hd['ln_bayes_factor_error']:.2g} ({how})")
     if not content["reliable"]:
         title += "\nUNRELIABLE: see the warning in comparison.json"
     fig.suptitle(title, fontsize=10, color="black" if content["reliable"] else "#c1121f")

@@ -262,25 +262,33 @@ class Likelihood:
     # --- the likelihood -------------------------------------------------------
     def __call__(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
                  signal=None) -> float:
+        return self.evaluate(white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude, gamma, signal)[0]
+
+    def evaluate(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
+                 signal=None):
+        """``(log likelihood, factors)``: the factors let :meth:`draw_coefficients` draw at the same
+        parameters without factorising again."""
         pieces = self._pieces(white_scale, white_quadrature, signal)
         red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
         constant = sum(-0.5 * (piece.log_det + piece.dof * _LOG_2PI) - 0.5 * piece.rNr for piece in pieces)
         factors = self._factorise(pieces, red, common)
-        return constant + 0.5 * factors.quadratic - 0.5 * factors.log_det
+        return constant + 0.5 * factors.quadratic - 0.5 * factors.log_det, factors
 
     def draw_coefficients(self, rng, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0,
-                          gamma=13.0 / 3.0, signal=None) -> np.ndarray:
+                          gamma=13.0 / 3.0, signal=None, factors=None) -> np.ndarray:
         """One draw of every pulsar's Fourier coefficients (P, size) in s from ``p(a | parameters, residuals)``.
 
         The timing model is marginalised: ``a ~ N(Sigma^-1 d, Sigma^-1)`` with
         ``Sigma = F^T N'^-1 F + Phi^-1`` and ``d = F^T N'^-1 r`` (PHYSICS.md, "Gibbs sampling").
         Columns are those of the basis (sine and cosine of k/T interleaved, k = 1..size/2);
         those with zero prior variance are 0.  ``rng`` is a :class:`numpy.random.Generator`;
-        the other arguments are those of :meth:`__call__`.
+        the other arguments are those of :meth:`__call__`, and ``factors`` those :meth:`evaluate`
+        returned at the same parameters (else they are computed).
         """
-        pieces = self._pieces(white_scale, white_quadrature, signal)
-        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
-        factors = self._factorise(pieces, red, common)
+        if factors is None:
+            pieces = self._pieces(white_scale, white_quadrature, signal)
+            red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
+            factors = self._factorise(pieces, red, common)
         coefficients = np.zeros((len(self.pulsars), self.size))
         shared = None
         if factors.core is not None:  # the common columns from their marginal N(S^-1 d', S^-1): L_S^-T (L_S^-1 d' + z)

@@ -611,13 +611,17 @@ class CompareSection(_Section):
     ``"uncorrelated"``); up to ``samples`` of its posterior draws, thinned to one per
     autocorrelation time, are reweighted by the likelihood of each of ``patterns``.
     Fewer than ``min_effective_samples`` effective samples after reweighting is
-    reported as unreliable.  ``workers`` local processes evaluate the likelihoods.
+    reported as unreliable.  ``direct_fit``: fit a pattern's model directly and take the
+    Bayes factor by bridge sampling between both posteriors, when its reweighting is
+    unreliable (``"auto"``), for every pattern (``"always"``) or never (``"never"``).
+    ``workers`` local processes evaluate the likelihoods.
     """
 
     patterns: Annotated[tuple[Literal["hellings-downs", "monopole", "dipole"], ...], _listed_once("a pattern")] = (
         "hellings-downs",)
     samples: Count = Field(default=2000, ge=10, le=1_000_000)
     min_effective_samples: Count = Field(default=100, ge=1, le=1_000_000)
+    direct_fit: Literal["auto", "always", "never"] = "auto"
     workers: Count = Field(default=1, ge=1, le=256)
 
     @field_validator("patterns")

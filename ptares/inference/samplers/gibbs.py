@@ -18,7 +18,9 @@ parameters split into small blocks.  One iteration of each chain:
    c. ``a_p | everything`` exactly;
 
 3. the common process's parameters with all coefficients integrated out
-   (Metropolis steps on the full marginalised likelihood).
+   (Metropolis steps on the full marginalised likelihood).  With correlations each
+   step factorises the whole array; the factors at the chain's new point are kept,
+   and step 1 of the next iteration draws the coefficients from them.
 
 Steps 2b and 3 integrate coefficients out and draw them afresh right after
 (a partially collapsed Gibbs sampler, van Dyk & Park 2008, JASA 103, 790): the
@@ -68,6 +70,11 @@ SEGMENT = 100
 #: white-noise steps cost one pass over a pulsar's TOAs, red-noise steps a small
 #: factorisation, common-process steps the whole array's likelihood.
 MOVES = {"white": 10, "red": 5, "common": 5}
+#: Common-process steps with correlations, each a factorisation of the whole array (the last point's factors
+#: are kept for the next coefficient draw).  Measured at 20 pulsars (benchmarks/bench_compare.py's array):
+#: three give the most effective samples per second; steps given the coefficients (centred, or non-centred
+#: with whitened coefficients held) mixed several times slower per second.
+CORRELATED_MOVES = 3
 
 _LOG_2PI = np.log(2.0 * np.pi)
 #: Smallest |1 + change H_pp| a Sherman–Morrison update of the Hellings–Downs inverse may divide by; below it,
@@ -157,6 +164,8 @@ class GibbsSampler:
         self._names = names
         self._correlated = model.likelihood.correlated
         lk = model.likelihood
+        # (point, likelihood factors) of the latest correlated likelihood evaluation and of the chain's point
+        self._latest = self._kept = None
         self._red_unit, self._red_log_ratio = _unit_power_law(lk.span, lk.red_harmonics, lk.size)
         self._common_unit, self._common_log_ratio = _unit_power_law(lk.span, lk.harmonics, lk.size)
 
@@ -243,17 +252,19 @@ class GibbsSampler:
 
     # --- Metropolis ----------------------------------------------------------
     @staticmethod
-    def _metropolis(block, x, log_density, current, proposal, rng):
-        """``block.moves`` Metropolis steps of ``block`` on ``x`` (in place); returns (value, accepted).
+    def _metropolis(block, x, log_density, current, proposal, rng, moves=None, on_accept=None):
+        """``moves`` (default ``block.moves``) Metropolis steps of ``block`` on ``x`` (in place); returns
+        (value, accepted); ``on_accept()`` is called after each accepted step.
 
         All but the last are Gaussian random-walk steps; the last proposes a fresh draw from the block's
         prior (an independence proposal, accepted with the likelihood ratio), which crosses the long
         flat tails that posteriors of noise amplitudes have towards "no such noise" in a single step.
         """
         accepted = 0
-        walks = block.moves - 1
+        moves = block.moves if moves is None else moves
+        walks = moves - 1
         steps = rng.standard_normal((walks, block.indices.size)) @ np.linalg.cholesky(proposal).T
-        thresholds = np.log(rng.uniform(size=block.moves))
+        thresholds = np.log(rng.uniform(size=moves))
         here = x[block.indices].copy()
         here_prior = block.log_prior(here)
         for move, threshold in enumerate(thresholds):
@@ -267,6 +278,8 @@ class GibbsSampler:
             ratio = value - current if independent else (value + prior) - (current + here_prior)
             if threshold < ratio:
                 current, here, here_prior, accepted = value, trial, prior, accepted + 1
+                if on_accept is not None:
+                    on_accept()
         x[block.indices] = here
         return current, accepted
 
@@ -277,7 +290,8 @@ class GibbsSampler:
         theta = self.model.physical(x)
         red = np.stack([self._red_variance(a, i) for a, i in zip(theta["red_amplitude"], theta["red_spectral_index"])])
         common = self._common_variance(x)
-        coefficients = lk.draw_coefficients(rng, **theta)
+        coefficients = lk.draw_coefficients(rng, **theta, factors=self._factors_at(x))
+        self._kept = None
         correlated = self._correlated and theta["amplitude"] > 0
         inverse = self._common_inverse(red, common) if correlated else None
         accepted, proposed = 0, 0
@@ -316,19 +330,44 @@ class GibbsSampler:
             if draw is None:
                 raise NotPositiveDefinite(f"the coefficients of pulsar {self._names[p]} have no valid conditional")
             coefficients[p] = draw
-        log_likelihood = self._full_log_likelihood if self._correlated else self._uncorrelated(red, x)
-        current = log_likelihood(x)
-        if self.common_block is not None:
-            current, hits = self._metropolis(self.common_block, x, log_likelihood, current,
-                                             proposals[self.common_block.number], rng)
-            accepted, proposed = accepted + hits, proposed + self.common_block.moves
+        block = self.common_block
+        if not self._correlated:
+            log_likelihood = self._uncorrelated(red, x)
+            current = log_likelihood(x)
+            if block is not None:
+                current, hits = self._metropolis(block, x, log_likelihood, current, proposals[block.number], rng)
+                accepted, proposed = accepted + hits, proposed + block.moves
+            return current + self.model.log_prior(x), accepted / max(proposed, 1)
+        current = self._correlated_log_likelihood(x)
+        self._keep_latest()
+        if block is not None:  # coefficients integrated out: a factorisation of the whole array per step
+            current, hits = self._metropolis(block, x, self._correlated_log_likelihood, current, proposals[block.number],
+                                             rng, moves=CORRELATED_MOVES, on_accept=self._keep_latest)
+            accepted, proposed = accepted + hits, proposed + CORRELATED_MOVES
+        self._latest = None
         return current + self.model.log_prior(x), accepted / max(proposed, 1)
 
-    def _full_log_likelihood(self, x) -> float:
+    def _correlated_log_likelihood(self, x) -> float:
+        """The full likelihood at ``x``; ``(x, its factors)`` are held as the latest evaluation."""
+        self._latest = None
         try:
-            return self.model.log_likelihood(x)
+            value, factors = self.likelihood.evaluate(**self.model.physical(x))
         except NotPositiveDefinite:
             return -np.inf
+        if np.isnan(value):
+            raise ArithmeticError(f"the likelihood is NaN at {dict(zip(self.model.names, x))}")
+        self._latest = (x.copy(), factors)
+        return value
+
+    def _keep_latest(self) -> None:
+        """The latest evaluation is the chain's point: keep its factors for the next coefficient draw."""
+        self._kept = self._latest
+
+    def _factors_at(self, x):
+        """Factors of the likelihood kept from an evaluation at exactly ``x``, or None."""
+        if self._kept is not None and np.array_equal(self._kept[0], x):
+            return self._kept[1]
+        return None
 
     def _uncorrelated(self, red, x):
         """The uncorrelated model's likelihood as a function of the common process alone (noise held)."""
