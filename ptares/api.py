@@ -32,6 +32,7 @@ from __future__ import annotations
 import contextvars
 import copy
 import functools
+import inspect
 import json
 import os
 import sys
@@ -58,6 +59,7 @@ from ptares.inputs.config import (
     validation_error,
     with_overrides,
 )
+from ptares.locking import folder_lock
 from ptares.threads import thread_count, thread_limits
 
 if TYPE_CHECKING:  # imported when first used: it pulls in scipy.stats
@@ -97,12 +99,18 @@ def _option(name: str) -> str:
 
 
 def _threaded(function):
-    """Run ``function`` under :func:`~ptares.threads.thread_limits` of its ``threads`` keyword (None: the default)."""
+    """Run ``function`` under :func:`~ptares.threads.thread_limits` of its ``threads`` keyword (None: the default),
+    holding its output folder ``out`` (when given) against other runs: :func:`~ptares.locking.folder_lock`."""
+    signature = inspect.signature(function)
 
     @functools.wraps(function)
     def run(*args, **kwargs):
         with thread_limits(thread_count(kwargs.get("threads"), _option("threads"))):
-            return function(*args, **kwargs)
+            out = signature.bind(*args, **kwargs).arguments.get("out")
+            if out is None or not isinstance(out, (str, os.PathLike)):
+                return function(*args, **kwargs)
+            with folder_lock(out):
+                return function(*args, **kwargs)
 
     return run
 
@@ -461,6 +469,25 @@ def _fit_section(source, config, settings, options) -> FitSection:
     return section
 
 
+def _simulated(config: Config, out: Path | None, overwrite: bool, verbose: bool) -> Dataset:
+    """The config's dataset for a run into ``out``.  A config without ``[run] seed`` draws a fresh seed,
+    recorded in ``out/dataset.h5``; when that file holds a dataset of the same config, its seed is used
+    again, so that rerunning the same command resumes (unless ``overwrite``)."""
+    from ptares.simulation.simulate import simulate as simulate_config
+
+    seed = None
+    kept = None if out is None else out / "dataset.h5"
+    if config.run.seed is None and kept is not None and kept.is_file() and not overwrite:
+        previous = load_dataset(kept)
+        if previous.config == config.source_text:
+            seed = previous.seed
+            _say(verbose, f"[run] seed not set: using seed {seed} recorded in {kept}, so the run resumes")
+    dataset = simulate_config(config, seed=seed, progress=verbose)
+    if config.run.seed is None and seed is None and kept is not None:
+        _say(verbose, f"[run] seed not set: drew seed {dataset.seed} (recorded in {kept}; rerunning resumes)")
+    return dataset
+
+
 def _keep_dataset(dataset: Dataset, out: Path, overwrite: bool) -> None:
     """Write the simulated ``dataset`` to ``out/dataset.h5`` unless it is there; another dataset there is an error
     (its results would be mixed with this one's) unless ``overwrite``."""
@@ -500,7 +527,6 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
     from ptares.inference.model import FitModel
     from ptares.inference import samplers
     from ptares.inference.samplers.chains import posterior_draws, summarise
-    from ptares.simulation.simulate import simulate as simulate_config
 
     dataset, config = _fit_source(source)
     section = _fit_section(source, config, settings, options)
@@ -508,7 +534,7 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
         # chains.h5 is resumed, not overwritten; the other outputs are rewritten at the end of every run
         out = check_output_directory(out, True)
     if dataset is None:
-        dataset = simulate_config(config, progress=verbose)
+        dataset = _simulated(config, out, overwrite, verbose)
     model = FitModel(dataset, section)
 
     def announce(chains):
@@ -610,7 +636,6 @@ def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None
     from ptares.dataset import write_json
     from ptares.inference.model import FitModel
     from ptares.inputs.config import CompareSection
-    from ptares.simulation.simulate import simulate as simulate_config
 
     dataset, config = _fit_source(source)
     fit_settings, compare_settings = _tables(settings, ("fit", "compare"))
@@ -627,7 +652,7 @@ def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None
         client = dask_client(scheduler)
     try:
         if dataset is None:
-            dataset = simulate_config(config, progress=verbose)
+            dataset = _simulated(config, out, overwrite, verbose)
         model = FitModel(dataset, fit_section)  # the [fit] settings are checked before anything is written
         if config is not None and out is not None:
             try:
@@ -700,15 +725,17 @@ def pulsar_noise(source, out, *, settings=None, workers: int = 1, scheduler=None
     ``figures=False``, ``out/pulsar_noise.png``.  Finished pulsars are skipped when run again.
     """
     from ptares.campaign.noise_stage import run_noise_stage
-    from ptares.simulation.simulate import simulate as simulate_config
 
     dataset, config = _fit_source(source)
     section = _fit_section(source, config, settings, options)
     out = check_output_directory(out, True)
-    if dataset is None:
-        dataset = simulate_config(config, progress=verbose)
     try:
-        out.mkdir(parents=True, exist_ok=True)
+        if dataset is None:
+            dataset = _simulated(config, out, overwrite, verbose)
+            out.mkdir(parents=True, exist_ok=True)
+            _keep_dataset(dataset, out, overwrite)
+        else:
+            out.mkdir(parents=True, exist_ok=True)
         try:
             content = run_noise_stage(dataset, section, out, workers=workers, scheduler=scheduler, overwrite=overwrite,
                                       progress=verbose)

@@ -48,6 +48,22 @@ def test_bad_config_one_line_exit_2_nothing_written(tmp_path, capsys, old, new, 
     assert not out.exists()
 
 
+def test_a_second_run_into_a_folder_in_use_stops_in_one_line(small_toml, tmp_path):
+    """While one run holds an output folder, another process's run into it stops at once, writes nothing
+    and names the folder; once the first has finished (here: its lock released) the folder is free."""
+    from ptares.locking import LOCK_NAME, folder_lock
+
+    out = tmp_path / "out"
+    with folder_lock(out):
+        result = run_cli("simulate", small_toml, "--out", out)
+        assert result.returncode == 2 and result.stderr.count("\n") == 1, result.stderr
+        assert f"{out}: is in use by another ptares run" in result.stderr
+        assert [p.name for p in out.iterdir()] == [LOCK_NAME]
+    assert not out.exists()  # the folder the lock made is gone again, empty
+    assert run_cli("simulate", small_toml, "--out", out, "--no-figures").returncode == 0
+    assert not (out / LOCK_NAME).exists()
+
+
 def test_missing_config_file(tmp_path, capsys):
     assert main(["check", str(tmp_path / "nope.toml")]) == 2
     err = capsys.readouterr().err

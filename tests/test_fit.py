@@ -382,3 +382,35 @@ def test_no_injected_index_without_its_process():
     model = FitModel(data, FitSection(red="free"))
     assert not any(name.startswith("red_") for name in model.injected)
     assert "common_spectral_index" in model.injected
+
+
+SEEDLESS_TOML = """\
+[array.random]
+count = 3
+[observing]
+span = "5 yr"
+cadence = "60 d"
+[gwb]
+amplitude = 5e-15
+harmonics = 3
+[fit]
+red = "none"
+harmonics = 3
+fixed = { common_spectral_index = 4.3333333333 }
+walkers = 8
+"""
+
+
+def test_config_without_a_seed_records_it_and_a_rerun_resumes(tmp_path, capsys):
+    """No [run] seed: the first run draws one (said, and kept in dataset.h5); the same command again
+    reuses it, so the chains are continued rather than refused as another dataset's."""
+    config = tmp_path / "seedless.toml"
+    config.write_text(SEEDLESS_TOML)
+    out = tmp_path / "o"
+    assert main(["fit", str(config), "--out", str(out), "--max-steps", "60"]) == 0
+    assert "drew seed" in capsys.readouterr().out
+    first = json.loads((out / "posterior.json").read_text())
+    assert main(["fit", str(config), "--out", str(out), "--max-steps", "120"]) == 0
+    assert "so the run resumes" in capsys.readouterr().out
+    second = json.loads((out / "posterior.json").read_text())
+    assert (first["steps"], second["steps"]) == (60, 120)

@@ -12,7 +12,7 @@ import ptares
 
 #: Stages in pipeline order; a module of one stage imports only from the same or earlier ones.
 STAGES = [
-    ("errors", "limits", "rng", "threads", "version"),
+    ("errors", "limits", "locking", "rng", "threads", "version"),
     ("physics",),
     ("dataset",),
     ("inputs",),
