@@ -158,11 +158,11 @@ def test_invalid_toml_names_the_file():
 def test_missing_and_unreadable_files(tmp_path):
     with pytest.raises(InputError, match="file not found"):
         load_config(tmp_path / "absent.toml")
-    with pytest.raises(InputError, match="cannot read file"):
-        load_config(tmp_path)  # a directory
+    with pytest.raises(InputError, match="is a directory, not a file"):
+        load_config(tmp_path)
     binary = tmp_path / "binary.toml"
     binary.write_bytes(b"\xff\xfe\x00garbage")
-    with pytest.raises(InputError, match="cannot read file"):
+    with pytest.raises(InputError, match="not UTF-8 text"):
         load_config(binary)
 
 

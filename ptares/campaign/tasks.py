@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import copy
 import itertools
+import math
 import tempfile
 import time
 from dataclasses import dataclass
@@ -92,12 +93,21 @@ def derive_seed(seed: int, index: int) -> int:
     return int(np.random.SeedSequence(seed, spawn_key=(index,)).generate_state(1, np.uint64)[0] >> np.uint64(1))
 
 
+#: Most tasks of one campaign.
+MAX_TASKS = 1_000_000
+
+
 def expand(base: dict, section: SweepSection, where: str = "sweep") -> list:
     """Every task of the sweep, in index order.  Axis keys that do not exist in a config are errors."""
     keys = list(section.axes)
     if "run.seed" in keys:
         raise InputError("run.seed cannot be an axis: task seeds derive from [sweep] seed", f"{where}.axes")
     lists = [section.axes[k] for k in keys]
+    count = (math.prod(len(v) for v in lists) if section.grid else min((len(v) for v in lists), default=1))
+    if count * section.realisations > MAX_TASKS:  # counted, not expanded
+        raise InputError(f"{len(lists)} axes and {section.realisations} realisations make "
+                         f"{count * section.realisations} tasks, more than ptares runs in one campaign ({MAX_TASKS})",
+                         f"{where}.axes")
     combinations = list(itertools.product(*lists)) if section.grid else list(zip(*lists))
     if not keys:
         combinations = [()]

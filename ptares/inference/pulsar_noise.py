@@ -12,13 +12,13 @@ default prior's range (``"prior"``).
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import numpy as np
 
 from ptares.dataset import Dataset, fingerprint
 from ptares.errors import InputError
+from ptares.inputs.config import read_json
 
 __all__ = ["NOISE_FILE", "summary_of_draws", "pulsar_fingerprint", "read_pulsar_noise"]
 
@@ -45,11 +45,10 @@ def read_pulsar_noise(path, dataset: Dataset, where: str = "fit.pulsar_noise") -
     path = Path(path)
     if not path.is_file():
         raise InputError("no such noise-stage result (run 'ptares noise' first)", f"{where} = {path}")
-    try:
-        content = json.loads(path.read_text())
-        pulsars = content["pulsars"]
-    except (OSError, ValueError, KeyError, TypeError) as exc:
-        raise InputError(f"not a noise-stage result ({type(exc).__name__}: {exc})", str(path)) from None
+    content = read_json(path)
+    if not isinstance(content, dict) or not isinstance(content.get("pulsars"), dict):
+        raise InputError("not a noise-stage result (no table of pulsars)", str(path))
+    pulsars = content["pulsars"]
     result = {}
     for name in dataset.names:
         entry = pulsars.get(name)

@@ -12,6 +12,7 @@ fault into one :class:`~ptares.errors.InputError` naming the key.
 from __future__ import annotations
 
 import copy
+import difflib
 import math
 import re
 import sys
@@ -36,6 +37,7 @@ from pydantic import (
 )
 
 from ptares.errors import InputError, PhysicsWarning
+from ptares.limits import FILE_LIMIT, NESTING_LIMIT
 from ptares.inputs.units import parse_dec, parse_number, parse_ra, to_unit
 from ptares.version import renamed
 
@@ -171,6 +173,7 @@ NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9_+\-.]{0,63}")
 SafeName = Annotated[str, AfterValidator(_safe_name)]
 MAX_HARMONICS = 10_000
 MAX_TOAS = 1_000_000  #: per pulsar
+MAX_TOTAL_TOAS = 50_000_000  #: over all pulsars (about 0.4 GB per array of them)
 MJD_RANGE = (15_000.0, 100_000.0)  #: 1899 to 2132
 MaxAmplitude = AfterValidator(_at_most(1e-9))  # beyond this residuals exceed a second: surely a typo
 SpectralIndex = AfterValidator(lambda v: _at_least(-10.0)(_at_most(10.0)(v)))
@@ -802,7 +805,8 @@ def message_for(error: dict, loc: tuple = (), location: str = "") -> str:
             new, what = hit
             parent = re.sub(r" \([^)]*\)", "", location.rpartition(".")[0])
             return f"unknown key; {what} is now '{parent + '.' if parent else ''}{new}'"
-        return "unknown key"
+        close = difflib.get_close_matches(key, sorted(_keys_at(loc[:-1])), n=1, cutoff=0.75) if key else []
+        return f"unknown key; did you mean '{close[0]}'?" if close else "unknown key"
     if kind == "missing":
         return "required key is missing"
     message = error["msg"]
@@ -812,12 +816,13 @@ def message_for(error: dict, loc: tuple = (), location: str = "") -> str:
     return message
 
 
-def _nominal_epochs(obs: Observing) -> int:
-    """Epochs a schedule has before jitter, outside its gaps."""
+def _nominal_epochs(obs: Observing):
+    """Epochs a schedule has before jitter, outside its gaps (a float, maybe infinite, when beyond :data:`MAX_TOAS`)."""
     span_days = obs.span * 365.25
-    count = int(math.floor(span_days / obs.cadence)) + 1
-    if count > MAX_TOAS:
-        return count
+    ratio = span_days / obs.cadence
+    if not ratio < MAX_TOAS:  # too many (or infinitely many): counted without ever building the epochs
+        return ratio + 1.0
+    count = int(math.floor(ratio)) + 1
     epochs = obs.start + obs.cadence * np.arange(count)
     keep = np.ones(count, dtype=bool)
     for gap_start, gap_end in obs.gaps:
@@ -833,6 +838,7 @@ def _check_schedules(config: Config) -> None:
     if config.array.table is not None:
         return  # the tables are checked when they are read
     entries = config.array.pulsars or (None,)
+    total = 0
     for i, pulsar in enumerate(entries):
         obs = config.observing if pulsar is None else config.observing_for(pulsar)
 
@@ -845,7 +851,12 @@ def _check_schedules(config: Config) -> None:
             raise InputError(f"span ({obs.span} yr) is not longer than the cadence ({obs.cadence} d)", where("span"))
         count = _nominal_epochs(obs)
         if count > MAX_TOAS:
-            raise InputError(f"{count} TOAs per pulsar is more than ptares handles ({MAX_TOAS})", where("cadence"))
+            many = "an unbounded number of" if math.isinf(count) else f"{count:.4g}"
+            raise InputError(f"{many} TOAs per pulsar is more than ptares handles ({MAX_TOAS})", where("cadence"))
+        total += count * (config.array.random.count if pulsar is None and config.array.random else 1)
+        if total > MAX_TOTAL_TOAS:
+            raise InputError(f"the array would have {total:.4g} TOAs in all, more than ptares handles ({MAX_TOTAL_TOAS})",
+                             "array.random.count" if pulsar is None else where("cadence"))
         if obs.cadence_jitter > obs.cadence:
             raise InputError(
                 f"cadence_jitter ({obs.cadence_jitter} d) is larger than the cadence ({obs.cadence} d)", where("cadence_jitter")
@@ -897,8 +908,14 @@ def _check_sources(config: Config) -> None:
 
 
 def validation_error(exc: ValidationError, raw: dict, where: str, prefix: tuple = ()) -> InputError:
-    """The first fault of a validation as one line: ``where: key.path: what is wrong``."""
-    return error_line(exc.errors()[0], raw, where, prefix)
+    """The first fault of a validation as one line: ``where: key.path: what is wrong``.  A missing key
+    beside an unknown one in the same table is most likely misspelt: the unknown key is reported."""
+    errors = exc.errors()
+    first = errors[0]
+    if first["type"] == "missing":
+        table = tuple(first["loc"][:-1])
+        first = next((e for e in errors if e["type"] == "extra_forbidden" and tuple(e["loc"][:-1]) == table), first)
+    return error_line(first, raw, where, prefix)
 
 
 def error_line(first: dict, raw: dict, where: str, prefix: tuple = ()) -> InputError:
@@ -916,22 +933,135 @@ def load_correlate_section(path) -> CorrelateSection:
     return load_section(path, "correlate", CorrelateSection)
 
 
-def read_text(path, encoding: str = "utf-8") -> str:
-    """The text of the file at ``path``; a missing or unreadable file is an :class:`InputError` naming it."""
+def _kind_of(mode: int) -> str | None:
+    """What a file that is not a regular file is, in words (None for a regular file)."""
+    import stat
+
+    for test, words in ((stat.S_ISDIR, "a directory"), (stat.S_ISFIFO, "a pipe"), (stat.S_ISCHR, "a character device"),
+                        (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket")):
+        if test(mode):
+            return words
+    return None if stat.S_ISREG(mode) else "not a regular file"
+
+
+def read_bytes(path, limit: int = FILE_LIMIT) -> bytes:
+    """The bytes of the regular file at ``path``, at most ``limit``; a missing, special, unreadable or
+    too large file is an :class:`InputError` naming it (a stream such as /dev/zero is never read)."""
+    import os
+
     try:
-        return Path(path).read_text(encoding=encoding)
+        info = os.stat(path)
     except FileNotFoundError:
         raise InputError("file not found", str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read file ({exc.__class__.__name__}: {exc})", str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read file ({exc.strerror or exc})", str(path)) from None
+    kind = _kind_of(info.st_mode)
+    if kind is not None:
+        raise InputError(f"is {kind}, not a file", str(path))
+    if info.st_size > limit:
+        raise InputError(f"is {info.st_size / 2**20:.0f} MiB, more than ptares reads ({limit / 2**20:.0f} MiB)", str(path))
+    try:
+        with open(path, "rb") as handle:
+            data = handle.read(limit + 1)
+    except OSError as exc:
+        raise InputError(f"cannot read file ({exc.strerror or exc})", str(path)) from None
+    if len(data) > limit:  # grew while being read
+        raise InputError(f"is more than ptares reads ({limit / 2**20:.0f} MiB)", str(path))
+    return data
+
+
+def read_text(path, encoding: str = "utf-8") -> str:
+    """The text of the file at ``path`` (see :func:`read_bytes`); text that does not decode is an
+    :class:`InputError` naming the file and the byte."""
+    data = read_bytes(path)
+    try:
+        return data.decode(encoding)
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not UTF-8 text (byte {exc.start + 1} is 0x{data[exc.start]:02x})", str(path)) from None
+
+
+class _BadNumber(float):
+    """A TOML float literal that does not survive as a double: it overflowed to infinity or fell to zero."""
+
+    text: str
+
+
+def _checked_float(text: str) -> float:
+    """``tomllib``'s float parser, marking literals whose value overflows or underflows (see :func:`toml_data`)."""
+    value = float(text)
+    digits = text.lower().lstrip("+-").replace("_", "")
+    overflow = math.isinf(value) and digits != "inf"
+    underflow = value == 0.0 and any(c in "123456789" for c in digits.split("e")[0])
+    if overflow or underflow:
+        marked = _BadNumber(value)
+        marked.text = text
+        return marked
+    return value
+
+
+def _depth(value, level: int = 0) -> int:
+    """How deeply tables and arrays nest in ``value`` (stops counting past the limit)."""
+    if level > NESTING_LIMIT or not isinstance(value, (dict, list)):
+        return level
+    items = value.values() if isinstance(value, dict) else value
+    return max((_depth(v, level + 1) for v in items), default=level + 1)
+
+
+def _bad_number(value, path: tuple = ()):
+    """``(key path, the marked number)`` of the first overflowing or underflowing number in ``value``, or None."""
+    if isinstance(value, _BadNumber):
+        return path, value
+    if isinstance(value, (dict, list)):
+        items = value.items() if isinstance(value, dict) else enumerate(value)
+        for key, item in items:
+            found = _bad_number(item, path + (key,))
+            if found:
+                return found
+    return None
+
+
+def _dotted(path: tuple) -> str:
+    return "".join(f"[{p}]" if isinstance(p, int) else (f".{p}" if i else str(p)) for i, p in enumerate(path))
+
+
+def toml_data(text: str, where: str) -> dict:
+    """TOML ``text`` as data; invalid TOML, nesting deeper than :data:`NESTING_LIMIT` and a number that does not
+    fit a double (``1e400``, ``1e-400``) are :class:`InputError` s naming ``where`` (and the key)."""
+    try:
+        raw = tomllib.loads(text, parse_float=_checked_float)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML: {exc}", where) from None
+    except RecursionError:
+        raise InputError(f"nests tables or arrays more than {NESTING_LIMIT} deep", where) from None
+    if _depth(raw) > NESTING_LIMIT:
+        raise InputError(f"nests tables or arrays more than {NESTING_LIMIT} deep", where)
+    found = _bad_number(raw)
+    if found:
+        path, number = found
+        what = "overflows: it is beyond" if math.isinf(number) else "underflows: it is below"
+        raise InputError(f"{number.text} {what} the range of a double-precision number", f"{where}: {_dotted(path)}")
+    return raw
+
+
+def read_json(path):
+    """The JSON file at ``path`` as data, read like :func:`read_text`; invalid JSON and nesting deeper
+    than :data:`NESTING_LIMIT` are :class:`InputError` s naming the file."""
+    import json
+
+    try:
+        data = json.loads(read_text(path))
+    except json.JSONDecodeError as exc:
+        raise InputError(f"not valid JSON: {exc}", str(path)) from None
+    except RecursionError:
+        raise InputError(f"nests objects or arrays more than {NESTING_LIMIT} deep", str(path)) from None
+    if _depth(data) > NESTING_LIMIT:
+        raise InputError(f"nests objects or arrays more than {NESTING_LIMIT} deep", str(path))
+    return data
 
 
 def read_toml(path) -> dict:
     """The TOML file at ``path`` as data; every reading fault is an :class:`InputError` naming the file."""
-    try:
-        return tomllib.loads(read_text(path))
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML: {exc}", str(path)) from None
+    return toml_data(read_text(path), str(path))
 
 
 def with_overrides(section, overrides: dict, option_prefix: str = "--"):
@@ -1015,11 +1145,7 @@ def config_from_data(raw: dict, where: str, path: Optional[Path] = None, text: s
 
 def parse_config(text: str, where: str = "<config>", path: Optional[Path] = None) -> Config:
     """Validate TOML ``text``; ``where`` names it in error messages."""
-    try:
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML: {exc}", where) from None
-    return config_from_data(raw, where, path, text)
+    return config_from_data(toml_data(text, where), where, path, text)
 
 
 def load_config(path) -> Config:
