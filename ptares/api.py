@@ -894,7 +894,25 @@ def describe(config) -> str:
     red = sum(p.red_amplitude > 0 for p in pulsars)
     for component in build_components(config, pulsars):
         lines.append(f"signal     {describe_signal(component.name, component.describe(context), red)}")
+    if config.sweep is not None:
+        lines.append(_describe_sweep(config))
     return "\n".join(lines)
+
+
+def _describe_sweep(config: Config) -> str:
+    """One line on a sweep file's campaign; from a file, every task config is validated as ``sweep`` would."""
+    from ptares.campaign.tasks import expand, load_sweep
+
+    section = config.sweep
+    axes = ", ".join(f"{key} ({len(values)} values)" for key, values in section.axes.items()) or "no axes"
+    if config.source_path is not None:
+        base, section = load_sweep(config.source_path)
+        count = len(expand(base, section, f"{config.source_path}: sweep"))
+    else:
+        sizes = [len(v) for v in section.axes.values()]
+        count = (int(np.prod(sizes)) if section.grid else min(sizes, default=1)) * section.realisations
+    return (f"sweep      a campaign file: {count} tasks over {axes}, {section.realisations} realisations each; "
+            f"stages {', '.join(section.stages)}; run it with 'ptares sweep'")
 
 
 @_threaded
@@ -924,7 +942,7 @@ def export_tables(dataset, out, *, overwrite: bool = False, threads: int | None 
     from ptares.inputs.tables import export_tables as write_tables
 
     dataset = _dataset(dataset)
-    out = check_output_directory(out, overwrite, ("toas.csv", "pulsars.csv", "import.toml"))
+    out = check_output_directory(out, overwrite, ("toas.csv", "pulsars.csv", "signals.json", "import.toml"))
     try:
         return write_tables(dataset, out)
     except OSError as exc:

@@ -121,3 +121,31 @@ def test_a_noise_stage_file_that_is_not_one_is_refused_in_one_line(tmp_path, cap
     config.write_text(SMALL_TOML + f'\n[fit]\nred = "none"\npulsar_noise = "{record}"\n')
     out = tmp_path / "out"
     _refused(capsys, ["fit", config, "--out", out], str(record), "not a noise-stage result", out=out)
+
+
+CAMPAIGN = SMALL_TOML + """
+[sweep]
+realisations = 2
+[sweep.axes]
+"gwb.amplitude" = [1e-15, BAD]
+"""
+
+
+@pytest.mark.parametrize("bad, words", [
+    ('"x"', "sweep.axes.gwb.amplitude: value 'x': 'x' is not a number"),
+    ("-2e-15", "sweep.axes.gwb.amplitude: value -2e-15: must be non-negative"),
+])
+def test_a_campaign_with_one_bad_task_config_is_refused_before_any_task_runs(tmp_path, capsys, bad, words):
+    """Every task's config is validated first: the fault names the axis and its value; nothing is written."""
+    sweep = tmp_path / "sweep.toml"
+    sweep.write_text(CAMPAIGN.replace("BAD", bad))
+    out = tmp_path / "out"
+    _refused(capsys, ["sweep", sweep, "--out", out], str(sweep), words, out=out)
+    _refused(capsys, ["check", sweep], words)  # check validates the tasks too
+
+
+def test_check_says_a_sweep_file_is_a_campaign(tmp_path, capsys):
+    sweep = tmp_path / "sweep.toml"
+    sweep.write_text(CAMPAIGN.replace("BAD", "2e-15"))
+    assert main(["check", str(sweep)]) == 0
+    assert "sweep      a campaign file: 4 tasks over gwb.amplitude (2 values), 2 realisations each" in capsys.readouterr().out

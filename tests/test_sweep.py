@@ -92,18 +92,23 @@ def test_killed_campaign_resumes_with_every_task_once(tmp_path):
     assert sorted(r["index"] for r in rows) == list(range(12))
 
 
-def test_failing_task_is_recorded_and_the_rest_complete(tmp_path, capsys):
+def test_a_task_that_fails_while_running_is_one_line_in_its_row():
+    """A task config that cannot be used (here one that skipped the campaign's up-front validation) becomes a
+    failed row whose error is the same one line a user would see, not a library's report; nothing is raised."""
+    from ptares.campaign.tasks import Task, run_task
+
+    raw = {"array": {"random": {"count": 3}}, "observing": {"span": 6.0, "cadence": "30 d"}, "gwb": {"amplitude": "x"}}
+    row = run_task(Task(0, 0, 1, (("gwb.amplitude", "x"),), raw, ("simulate", "correlate")))
+    assert row["status"] == "failed"
+    assert row["error"] == "config: gwb.amplitude: 'x' is not a number"
+
+
+def test_an_invalid_task_config_stops_the_campaign_before_any_task(tmp_path, capsys):
     config = write(tmp_path, extra='"observing.span" = [6.0, 0.01]')
-    assert main(["sweep", str(config), "--out", str(tmp_path / "o")]) == 0
-    rows = read_results(tmp_path / "o" / "results.csv")
-    assert len(rows) == 8
-    failed = [r for r in rows if r["status"] == "failed"]
-    assert len(failed) == 4 and all(r["axis:observing.span"] == 0.01 for r in failed)
-    assert all("span" in r["error"] for r in failed)
-    assert all(r["status"] == "ok" for r in rows if r["axis:observing.span"] == 6.0)
-    assert "4 failed" in capsys.readouterr().out
-    for name in ("detection.png", "recovery.png", "snr.png"):
-        assert (tmp_path / "o" / name).exists()
+    assert main(["sweep", str(config), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "span" in err and "observing.span = 0.01" in err, err
+    assert not (tmp_path / "o").exists()
 
 
 def test_bad_sweeps_are_one_line(tmp_path, capsys):

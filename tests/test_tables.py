@@ -238,3 +238,151 @@ def test_files_with_earlier_names_are_refused_with_the_new_name(tmp_path, capsys
         del attrs["red_spectral_index"]
     with pytest.raises(InputError, match=r"earlier ptares \('red_gamma' is now 'red_spectral_index'\); simulate or import it again"):
         load_dataset(dataset)
+
+
+# ---------------------------------------------------------------- signals.json: every signal kind, and its faults
+
+SHORT = {"start": 53000.0, "span": 3.0, "cadence": 30.0, "toa_error": 0.5}
+#: One config per kind of injected signal; white noise is in every one.
+SIGNAL_KINDS = {
+    "red noise": {"gwb": None, "noise": {"red": {"amplitude": 2e-15, "harmonics": 6}}},
+    "gaussian background": {"gwb": {"amplitude": 2e-15, "harmonics": 6, "correlation": "monopole"}},
+    "background of binaries": {"gwb": {"amplitude": 2e-15, "harmonics": 4, "source": "binaries", "binaries": 12,
+                                       "loudness_spread": 0.3}},
+    "continuous waves": {"gwb": None, "binary": [
+        {"name": "Hawk", "chirp_mass": 1e9, "strain": 1e-14, "frequency": 20.0, "ra": 30.0, "dec": 20.0,
+         "inclination": 0.7, "polarization": 0.2, "phase": 1.1},
+        {"name": "Owl", "strain": 2e-14, "frequency": 35.0, "ra": 130.0, "dec": -40.0,
+         "frequency_evolution": False, "pulsar_term": False}]},
+}
+
+
+def assert_same_signals(expected: dict, actual: dict):
+    """Every component and parameter of two datasets' ``signals`` equal bit for bit, with its type
+    (arrays: same dtype and shape and the same bytes, which also holds for NaN)."""
+    assert set(actual) == set(expected)
+    for name, parameters in expected.items():
+        assert set(actual[name]) == set(parameters), name
+        for key, value in parameters.items():
+            other = actual[name][key]
+            if isinstance(value, np.ndarray):
+                assert isinstance(other, np.ndarray), (name, key)
+                assert (other.dtype, other.shape) == (value.dtype, value.shape), (name, key)
+                assert other.tobytes() == value.tobytes(), (name, key)
+            else:
+                assert type(other) is type(value) and repr(other) == repr(value), (name, key)
+
+
+@pytest.mark.parametrize("kind", SIGNAL_KINDS)
+def test_export_then_import_keeps_every_signal(tmp_path, kind):
+    """Through `ptares export` and `ptares import`, every recorded parameter of every injected signal
+    (tables of binaries included) and every residual array come back bit for bit."""
+    data = simulate(small_config(array={"random": {"count": 3}}, observing=SHORT, **SIGNAL_KINDS[kind]))
+    assert main(["export", str(write_dataset(data, tmp_path / "d.h5")), "--out", str(tmp_path / "tables")]) == 0
+    toml = tmp_path / "tables" / "import.toml"
+    assert main(["import", str(toml), "--out", str(tmp_path / "back")]) == 0
+    again = load_dataset(tmp_path / "back" / "dataset.h5")
+    assert_same_signals(data.signals, again.signals)
+    assert_same_signals(data.signals, import_tables(load_config(toml)).signals)  # the file itself, without HDF5
+    assert_same_pulsars(data, again)
+    for name, parameters in data.signals.items():
+        for key, value in parameters.items():
+            if isinstance(value, np.ndarray):
+                assert np.array_equal(again.signals[name][key], value)
+    if kind == "continuous waves":
+        table = again.signals["binary"]["sources"]
+        assert table["pulsar_term"].tolist() == [True, False] and table["frequency_evolution"].tolist() == [True, False]
+
+
+def test_an_imported_continuous_wave_can_be_fitted(tmp_path):
+    """A re-imported dataset keeps its table of binaries, so a continuous-wave fit takes the fixed
+    quantities (sky position, frequency) from it and evaluates its likelihood."""
+    from ptares.inference.model import FitModel
+    from ptares.inputs.config import FitSection
+
+    data = simulate(small_config(array={"random": {"count": 3}}, observing=SHORT, **SIGNAL_KINDS["continuous waves"]))
+    assert main(["export", str(write_dataset(data, tmp_path / "d.h5")), "--out", str(tmp_path / "tables")]) == 0
+    assert main(["import", str(tmp_path / "tables" / "import.toml"), "--out", str(tmp_path / "back")]) == 0
+    again = load_dataset(tmp_path / "back" / "dataset.h5")
+    model = FitModel(again, FitSection(common="none", binary=True))
+    source = data.signals["binary"]["sources"][0]
+    assert model.values["binary_lg_frequency"] == np.log10(source["frequency"])
+    assert model.values["binary_right_ascension"] == source["ra"]
+    assert np.isfinite(model.log_likelihood([model.values[name] for name in model.names]))
+
+
+def test_signals_file_keeps_every_type_and_non_finite_numbers(tmp_path):
+    """Scalars, lists, arrays of every supported type and shape, and NaN and infinities (written as
+    {"kind": "float", ...}, since JSON has none) survive signals.json and the dataset file."""
+    from ptares.dataset import Dataset
+    from ptares.inputs.tables import read_signals, signals_text
+
+    table = np.array([(b"a\xc3\xa9", -0.0, np.nan, 7, True)],
+                     dtype=[("name", "S8"), ("x", ">f8"), ("y", "<f4"), ("n", "<u8"), ("flag", "?")])
+    signals = {
+        "white": {},
+        "extra": {
+            "whole": -(2**63), "flag": False, "text": "é", "tiny": 5e-324, "minus_zero": -0.0, "missing": float("nan"),
+            "large": float("inf"), "grid": [[1, 2.5], [3, 4]], "words": ["a", "b"], "flags": [True], "none": [],
+            "table": table, "matrix": np.arange(6, dtype="<i4").reshape(2, 3), "half": np.array([1.5, -np.inf], "f2"),
+            "empty": np.zeros((0, 3)), "single": np.array(2.0), "texts": np.array([b"x", b""]),
+        },
+    }
+    path = tmp_path / "signals.json"
+    path.write_text(signals_text(signals))
+    assert_same_signals(signals, read_signals(path))
+    again = load_dataset(write_dataset(Dataset(pulsars=[], signals=read_signals(path)), tmp_path / "d.h5"))
+    assert again.signals["extra"]["table"].tobytes() == table.tobytes()
+    assert again.signals["extra"]["half"].dtype == np.float16 and again.signals["extra"]["grid"] == [[1, 2.5], [3, 4]]
+
+
+SIGNALS_CONFIG = 'mode = "schedule"\nsignals = "signals.json"\n'
+TABLE_OF_ONE = ('{"kind": "array", "dtype": [["name", "|S64"], ["frequency", "<f8"], ["pulsar_term", "|b1"]], '
+                '"shape": [1], "values": [["Hawk", %s, true]]}')
+
+
+@pytest.mark.parametrize(
+    "content, words",
+    [
+        (b'\xff{"gwb": {}}', "signals.json: not UTF-8 text"),
+        (b'{"gwb": {"amplitude": 2e-15,}}', "signals.json: not valid JSON"),
+        (b'{"gwb": {"harmonics": ' + b"1" * 5000 + b"}}", "signals.json: not valid JSON"),
+        (b"[1, 2]", "signals.json: signals: expected an object of signal components"),
+        (b'{"gwb": 3}', "signals.json: signals.gwb: expected an object of parameters"),
+        (b'{"gwb": {"amplitude": null}}', "signals.gwb.amplitude: expected a number, a string or true/false, not null"),
+        (b'{"gwb": {"amplitude": {"value": 1}}}', "signals.gwb.amplitude: an object here must be an array"),
+        (b'{"gwb": {"amplitude": NaN}}', "signals.gwb.amplitude: not a finite double-precision number"),
+        (b'{"gwb": {"amplitude": 1e400}}', "signals.gwb.amplitude: not a finite double-precision number"),
+        (b'{"gwb": {"weights": [1, "a"]}}', "signals.gwb.weights: expected a list of numbers, of strings or of true/false"),
+        (b'{"gwb": {"weights": [[1], [2, 3]]}}', "signals.gwb.weights: nested lists of unequal lengths"),
+        (b'{"gwb": {"weights": {"kind": "array", "dtype": "<f8", "shape": [2], "values": ["a", "b"]}}}',
+         "signals.gwb.weights.values[0]: expected a number"),
+        (b'{"gwb": {"weights": {"kind": "array", "dtype": "<c16", "shape": [1], "values": [1]}}}',
+         "signals.gwb.weights.dtype: \"<c16\" is not a supported type"),
+        (b'{"gwb": {"weights": {"kind": "array", "dtype": "<f8", "shape": [2], "values": [1.0]}}}',
+         "signals.gwb.weights.values: expected a list of 2 entries"),
+        (b'{"gwb": {"weights": {"kind": "array", "dtype": "<f8", "values": [1.0]}}}', "missing shape"),
+        (b'{"gwb": {"weights": {"kind": "array", "dtype": "<f8", "shape": [1000000000000], "values": []}}}',
+         "signals.gwb.weights.shape: an array of shape [1000000000000] of 8-byte entries is larger than ptares holds"),
+        (b'{"binary": {"sources": ' + (TABLE_OF_ONE % '"fast"').encode() + b"}}",
+         "signals.binary.sources.values[0].frequency: expected a number"),
+        (b'{"gwb": {"gamma": 4.3}}', "'gamma' is now 'spectral_index'"),
+    ],
+)
+def test_bad_signals_files_are_one_line_and_write_nothing(tmp_path, capsys, content, words):
+    config = write_tables(tmp_path)
+    config.write_text(config.read_text().replace('mode = "schedule"\n', SIGNALS_CONFIG))
+    (tmp_path / "signals.json").write_bytes(content)
+    assert main(["import", str(config), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "signals.json: " in err and words in err and "Traceback" not in err, err
+    assert not (tmp_path / "o").exists()
+
+
+def test_a_good_hand_written_signals_file_is_read(tmp_path):
+    config = write_tables(tmp_path)
+    config.write_text(config.read_text().replace('mode = "schedule"\n', SIGNALS_CONFIG))
+    (tmp_path / "signals.json").write_text('{"binary": {"count": 1, "sources": ' + TABLE_OF_ONE % "2e-08" + "}}")
+    sources = import_tables(load_config(config)).signals["binary"]["sources"]
+    assert sources.dtype.names == ("name", "frequency", "pulsar_term") and sources["name"][0] == b"Hawk"
+    assert sources["frequency"][0] == 2e-08 and sources["pulsar_term"][0]

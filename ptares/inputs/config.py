@@ -1052,6 +1052,8 @@ def read_json(path):
         data = json.loads(read_text(path))
     except json.JSONDecodeError as exc:
         raise InputError(f"not valid JSON: {exc}", str(path)) from None
+    except ValueError as exc:  # e.g. an integer of more digits than Python converts
+        raise InputError(f"not valid JSON: {exc}", str(path)) from None
     except RecursionError:
         raise InputError(f"nests objects or arrays more than {NESTING_LIMIT} deep", str(path)) from None
     if _depth(data) > NESTING_LIMIT:

@@ -14,12 +14,32 @@ sexagesimal, or ``ra_rad``/``dec_rad``), ``distance`` and ``distance_error``
 
 Files are read with Python's csv module; every fault names the file, the row
 (the header is row 1) and the column, and nothing is written.
+
+Signals file (``signals.json``, written by :func:`export_tables`, read by
+:func:`read_signals`): an object of component name -> object of parameters, as in a
+dataset's ``/signals``.  A parameter is a number, a string, ``true``/``false``, a
+list (nested lists of equal lengths) of numbers, of strings or of ``true``/``false``,
+or an array such as a table of binaries::
+
+    {"kind": "array", "dtype": [["name", "|S64"], ["ra", "<f8"], ...], "shape": [2],
+     "values": [["binary1", 0.61, ...], ["binary2", 2.3, ...]]}
+
+``dtype`` is a numpy type string (``<f8``, ``<i8``, ``|b1``, ``|S64``...) or, for a
+table, a list of ``[field, type]``; ``values`` nests lists to ``shape``, a table's
+rows being lists in field order; byte strings are written as UTF-8 text.  Floats are
+written as Python's shortest exact representation, so every value comes back bit for
+bit, with its type.  JSON has no NaN or infinity: such a float is written
+``{"kind": "float", "value": "NaN"}`` (or ``"Infinity"``, ``"-Infinity"``), and the
+bare tokens ``NaN``/``Infinity`` are refused.  Names (components, parameters, fields)
+are 1-64 letters, digits, ``_ + - .``; whole numbers outside arrays fit 64 bits, as
+in the dataset file.  Every fault names the file and the key.
 """
 
 from __future__ import annotations
 
 import csv
 import io
+import json
 import math
 import warnings
 from dataclasses import dataclass, field
@@ -29,11 +49,12 @@ import numpy as np
 
 from ptares.dataset import Dataset, atomic_path
 from ptares.errors import InputError, PhysicsWarning
-from ptares.inputs.config import read_text
+from ptares.inputs.config import NAME_PATTERN, read_json, read_text
 from ptares.inputs.units import parse_dec, parse_ra
+from ptares.limits import MEMORY_LIMIT, NESTING_LIMIT
 from ptares.version import earlier_names
 
-__all__ = ["PulsarRow", "TableArray", "read_tables", "export_tables"]
+__all__ = ["PulsarRow", "TableArray", "read_tables", "export_tables", "signals_text", "read_signals"]
 
 _UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "ns": 1e-9}
 _NOISE = {"white_scale": 1.0, "white_quadrature_s": 1.0, "red_amplitude": 1.0, "red_spectral_index": 1.0, "true_distance_kpc": 1.0}
@@ -224,10 +245,12 @@ def _csv_text(header, rows) -> str:
 
 
 def export_tables(dataset: Dataset, directory) -> list:
-    """Write ``toas.csv``, ``pulsars.csv`` and ``import.toml`` (to import them again) into ``directory``.
+    """Write ``toas.csv``, ``pulsars.csv``, ``signals.json`` (every injected-signal parameter, arrays
+    included) and ``import.toml`` (to import them again) into ``directory``.
 
     Numbers are written with Python's shortest exact representation, so an
-    import reproduces the arrays bit for bit.
+    import reproduces the arrays and the signals bit for bit.  Everything is
+    prepared before the first file is written.
     """
     directory = Path(directory)
     components = sorted({c for p in dataset.pulsars for c in p.injected})
@@ -255,19 +278,317 @@ def export_tables(dataset: Dataset, directory) -> list:
         if term not in terms:
             terms.append(term)
     end = dataset.start_mjd + dataset.span / 86400.0
-    signals = {name: {k: v for k, v in values.items() if not isinstance(v, np.ndarray)}
-               for name, values in dataset.signals.items()}
     importer = (
         "# Re-import these tables with: ptares import import.toml --out DIR\n"
         "[array]\ntable = \"toas.csv\"\ncatalogue = \"pulsars.csv\"\nsignals = \"signals.json\"\n"
         f"window = [{dataset.start_mjd!r}, {end!r}]\n\n[timing_model]\nfit = {terms!r}\n".replace("'", '"')
     )
+    texts = (("toas.csv", _csv_text(header, rows)), ("pulsars.csv", _csv_text(catalogue_header, catalogue_rows)),
+             ("signals.json", signals_text(dataset.signals)), ("import.toml", importer))
     paths = []
-    import json
-
-    for name, text in (("toas.csv", _csv_text(header, rows)), ("pulsars.csv", _csv_text(catalogue_header, catalogue_rows)),
-                       ("signals.json", json.dumps(signals, indent=1, default=str)), ("import.toml", importer)):
+    for name, text in texts:
         with atomic_path(directory / name) as temporary:
-            temporary.write_text(text)
+            temporary.write_text(text, encoding="utf-8")
         paths.append(directory / name)
     return paths
+
+
+# ---------------------------------------------------------------- the signals file
+
+_NON_FINITE = {"NaN": math.nan, "Infinity": math.inf, "-Infinity": -math.inf}
+#: Whole numbers outside arrays: what an HDF5 attribute holds without loss.
+_WHOLE_RANGE = (-(2**63), 2**63 - 1)
+_LONGEST_TEXT = 2**16  #: bytes of one byte-string entry
+_TYPES = f"whole numbers i1 to i8 or u1 to u8, floats f2, f4 or f8, b1, or byte strings S1 to S{_LONGEST_TEXT}"
+_MARKER = 'write NaN and infinities as {"kind": "float", "value": "NaN"}'
+
+
+def _non_finite_record(value: float) -> dict:
+    text = "NaN" if math.isnan(value) else ("Infinity" if value > 0 else "-Infinity")
+    return {"kind": "float", "value": text}
+
+
+def _type_text(dtype: np.dtype, where: str) -> str:
+    """The type string of one plain (not structured) array type; types the file cannot hold are refused."""
+    allowed = dtype.subdtype is None and dtype.names is None and (
+        dtype.kind in "biu" or (dtype.kind == "f" and dtype.itemsize in (2, 4, 8))
+        or (dtype.kind == "S" and 0 < dtype.itemsize <= _LONGEST_TEXT))
+    if not allowed:
+        raise InputError(f"an array of type {dtype} cannot be written to signals.json ({_TYPES})", where)
+    return dtype.str
+
+
+def _entries(value, where: str):
+    """Array entries from ``tolist()`` as JSON data: rows become lists, bytes UTF-8 text."""
+    if isinstance(value, (list, tuple)):
+        return [_entries(v, where) for v in value]
+    if isinstance(value, bytes):
+        try:
+            return value.decode("utf-8")
+        except UnicodeDecodeError:
+            raise InputError(f"holds bytes {value!r} that are not UTF-8 text", where) from None
+    if isinstance(value, float) and not math.isfinite(value):
+        return _non_finite_record(value)
+    return value
+
+
+def _encoded(value, where: str):
+    """One signal parameter as JSON data (see the module docstring)."""
+    if isinstance(value, np.ndarray):
+        if value.dtype.names is None:
+            dtype = _type_text(value.dtype, where)
+        else:
+            dtype = [[field, _type_text(value.dtype.fields[field][0], f"{where}.{field}")] for field in value.dtype.names]
+        return {"kind": "array", "dtype": dtype, "shape": list(value.shape), "values": _entries(value.tolist(), where)}
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, bytes):  # as the dataset file reads an attribute back
+        value = _entries(value, where)
+    if isinstance(value, (list, tuple)):
+        return [_encoded(v, where) for v in value]
+    if isinstance(value, float) and not math.isfinite(value):
+        return _non_finite_record(value)
+    if isinstance(value, (bool, int, float, str)):
+        return value
+    raise TypeError(f"{where}: a {type(value).__name__} cannot be written to signals.json")
+
+
+def _value_text(encoded) -> str:
+    """JSON text of one encoded parameter; an array's outermost entries (a table's rows) one per line."""
+    if isinstance(encoded, dict) and encoded.get("kind") == "array" and encoded["values"] and encoded["shape"]:
+        head = json.dumps({k: v for k, v in encoded.items() if k != "values"}, allow_nan=False)[:-1]
+        rows = ",\n".join("   " + json.dumps(row, allow_nan=False) for row in encoded["values"])
+        return f'{head}, "values": [\n{rows}\n  ]}}'
+    return json.dumps(encoded, allow_nan=False)
+
+
+def signals_text(signals: dict) -> str:
+    """The text of ``signals.json`` for a dataset's ``signals`` (component -> parameters), arrays included."""
+    blocks = []
+    for name, parameters in signals.items():
+        lines = [f"  {json.dumps(key)}: {_value_text(_encoded(value, f'signals.{name}.{key}'))}"
+                 for key, value in parameters.items()]
+        blocks.append(f" {json.dumps(name)}: {{" + ("\n" + ",\n".join(lines) + "\n }" if lines else "}"))
+    return "{" + ("\n" + ",\n".join(blocks) + "\n" if blocks else "") + "}\n"
+
+
+def _float_value(value, where: str, path: str) -> float:
+    """A JSON number, or the record of a non-finite float, as a float."""
+    if isinstance(value, dict):
+        if set(value) != {"kind", "value"} or value["kind"] != "float" or value["value"] not in _NON_FINITE:
+            raise InputError(f'{where}: expected a number or {{"kind": "float", "value": "NaN"}} '
+                             '(or "Infinity", "-Infinity")', path)
+        return _NON_FINITE[value["value"]]
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(f"{where}: expected a number", path)
+    try:
+        number = float(value)
+    except OverflowError:
+        raise InputError(f"{where}: {value} is beyond the range of a double-precision number", path) from None
+    if not math.isfinite(number):
+        raise InputError(f"{where}: not a finite double-precision number ({_MARKER})", path)
+    return number
+
+
+def _whole_value(value: int, where: str, path: str) -> int:
+    if not _WHOLE_RANGE[0] <= value <= _WHOLE_RANGE[1]:
+        raise InputError(f"{where}: {value} is outside the range of a 64-bit whole number", path)
+    return value
+
+
+def _text_value(value: str, where: str, path: str) -> str:
+    """A string an HDF5 attribute can hold: UTF-8, without NUL characters."""
+    try:
+        value.encode("utf-8")
+    except UnicodeEncodeError:
+        raise InputError(f"{where}: the text is not valid Unicode (a lone surrogate)", path) from None
+    if "\x00" in value:
+        raise InputError(f"{where}: the text holds a NUL character", path)
+    return value
+
+
+def _scalar(value, where: str, path: str):
+    """``(kind, value)`` of a plain value: kind is "number", "bool" or "string"."""
+    if isinstance(value, bool):
+        return "bool", value
+    if isinstance(value, int):
+        return "number", _whole_value(value, where, path)
+    if isinstance(value, (float, dict)):
+        return "number", _float_value(value, where, path)
+    if isinstance(value, str):
+        return "string", _text_value(value, where, path)
+    what = "null" if value is None else "a list"
+    raise InputError(f"{where}: expected a number, a string or true/false, not {what}", path)
+
+
+def _plain_list(items: list, where: str, path: str) -> list:
+    """A list of numbers, of strings or of true/false, possibly nested, with equal lengths at each level."""
+    kinds = set()
+
+    def walk(node, at):
+        if node and all(isinstance(item, list) for item in node):
+            parts = [walk(item, f"{at}[{i}]") for i, item in enumerate(node)]
+            if len({shape for shape, _ in parts}) > 1:
+                raise InputError(f"{at}: nested lists of unequal lengths", path)
+            return (len(node),) + parts[0][0], [value for _, value in parts]
+        values = []
+        for i, item in enumerate(node):
+            if isinstance(item, list):
+                raise InputError(f"{at}[{i}]: a list among single values", path)
+            kind, value = _scalar(item, f"{at}[{i}]", path)
+            kinds.add(kind)
+            values.append(value)
+        return (len(node),), values
+
+    _, values = walk(items, where)
+    if len(kinds) > 1:
+        raise InputError(f"{where}: expected a list of numbers, of strings or of true/false, not a mix", path)
+    return values
+
+
+def _plain_type(text, where: str, path: str) -> np.dtype:
+    dtype = None
+    if isinstance(text, str):
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", DeprecationWarning)  # an outdated alias is refused like an unknown type
+            try:
+                dtype = np.dtype(text)
+            except (TypeError, ValueError, DeprecationWarning):
+                pass
+    if dtype is None or dtype.names is not None:
+        raise InputError(f"{where}: {json.dumps(text)} is not a supported type ({_TYPES})", path)
+    try:
+        _type_text(dtype, where)
+    except InputError:
+        raise InputError(f"{where}: {json.dumps(text)} is not a supported type ({_TYPES})", path) from None
+    return dtype
+
+
+def _array_type(description, where: str, path: str) -> np.dtype:
+    """The numpy type of an array record's ``dtype``: a type string or a list of ``[field, type]``."""
+    if isinstance(description, str):
+        return _plain_type(description, where, path)
+    if not isinstance(description, list) or not description:
+        raise InputError(f'{where}: expected a type such as "<f8", or a list of [field, type] pairs', path)
+    fields = []
+    for i, pair in enumerate(description):
+        if not (isinstance(pair, list) and len(pair) == 2 and isinstance(pair[0], str)):
+            raise InputError(f"{where}[{i}]: expected a pair [field, type]", path)
+        if not NAME_PATTERN.fullmatch(pair[0]):
+            raise InputError(f"{where}[{i}]: field name {pair[0]!r} is not 1-64 letters, digits, '_', '+', '-', '.'", path)
+        fields.append((pair[0], _plain_type(pair[1], f"{where}[{i}]", path)))
+    repeated = sorted({name for name, _ in fields if [n for n, _ in fields].count(name) > 1})
+    if repeated:
+        raise InputError(f"{where}: field(s) {', '.join(repeated)} appear more than once", path)
+    return np.dtype(fields)
+
+
+def _array_entry(value, dtype: np.dtype, where: str, path: str):
+    """One entry of an array record as the Python value numpy stores exactly; a table's row as a tuple."""
+    if dtype.names is not None:
+        if not isinstance(value, list) or len(value) != len(dtype.names):
+            raise InputError(f"{where}: expected a row of {len(dtype.names)} values ({', '.join(dtype.names)})", path)
+        return tuple(_array_entry(v, dtype.fields[field][0], f"{where}.{field}", path) for v, field in zip(value, dtype.names))
+    kind = dtype.kind
+    if kind == "f":
+        number = _float_value(value, where, path)
+        if dtype.itemsize < 8 and math.isfinite(number) and abs(number) > float(np.finfo(dtype).max):
+            raise InputError(f"{where}: {number!r} is beyond the range of {dtype.name}", path)
+        return number
+    if kind == "b":
+        if not isinstance(value, bool):
+            raise InputError(f"{where}: expected true or false", path)
+        return value
+    if kind in "iu":
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise InputError(f"{where}: expected a whole number", path)
+        limits = np.iinfo(dtype)
+        if not limits.min <= value <= limits.max:
+            raise InputError(f"{where}: {value} is outside the range of {dtype.name}", path)
+        return value
+    if not isinstance(value, str):  # byte strings, the only other kind _plain_type lets through
+        raise InputError(f"{where}: expected a string", path)
+    try:
+        encoded = value.encode("utf-8")
+    except UnicodeEncodeError:
+        raise InputError(f"{where}: the text is not valid Unicode (a lone surrogate)", path) from None
+    if len(encoded) > dtype.itemsize:
+        raise InputError(f"{where}: {len(encoded)} bytes of UTF-8, more than the {dtype.itemsize} of its type {dtype.str}",
+                         path)
+    return encoded
+
+
+def _array(record: dict, where: str, path: str) -> np.ndarray:
+    """The numpy array of an array record ``{"kind": "array", "dtype", "shape", "values"}``."""
+    keys = {"kind", "dtype", "shape", "values"}
+    if set(record) != keys:
+        missing, extra = sorted(keys - set(record)), sorted(set(record) - keys)
+        words = "; ".join(w for w in (f"missing {', '.join(missing)}" if missing else "",
+                                      f"unknown {', '.join(extra)}" if extra else "") if w)
+        raise InputError(f"{where}: an array needs exactly kind, dtype, shape and values ({words})", path)
+    dtype = _array_type(record["dtype"], f"{where}.dtype", path)
+    shape = record["shape"]
+    if (not isinstance(shape, list) or len(shape) > NESTING_LIMIT
+            or not all(isinstance(n, int) and not isinstance(n, bool) and n >= 0 for n in shape)):
+        raise InputError(f"{where}.shape: expected a list of whole numbers, at least 0", path)
+    if math.prod(shape) * dtype.itemsize > MEMORY_LIMIT:
+        raise InputError(f"{where}.shape: an array of shape {shape} of {dtype.itemsize}-byte entries is larger than "
+                         f"ptares holds ({MEMORY_LIMIT / 1e9:.0f} GB)", path)
+    entries = []
+
+    def walk(node, dimensions, at):
+        if not dimensions:
+            entries.append(_array_entry(node, dtype, at, path))
+            return
+        if not isinstance(node, list) or len(node) != dimensions[0]:
+            raise InputError(f"{at}: expected a list of {dimensions[0]} entries (shape {shape})", path)
+        for i, item in enumerate(node):
+            walk(item, dimensions[1:], f"{at}[{i}]")
+
+    walk(record["values"], tuple(shape), f"{where}.values")
+    return np.array(entries, dtype=dtype).reshape(shape)
+
+
+def _parameter(value, where: str, path: str):
+    """One checked parameter of the signals file, as the dataset holds it."""
+    if isinstance(value, dict) and value.get("kind") == "array":
+        return _array(value, where, path)
+    if isinstance(value, dict) and value.get("kind") != "float":
+        raise InputError(f'{where}: an object here must be an array ("kind": "array") or a non-finite float '
+                         '("kind": "float")', path)
+    if isinstance(value, list):
+        return _plain_list(value, where, path)
+    return _scalar(value, where, path)[1]
+
+
+def read_signals(path) -> dict:
+    """The injected-signal parameters of a signals file (see the module docstring), checked.
+
+    Every fault, from bytes that are not UTF-8 to an array entry of the wrong type, is an
+    :class:`InputError` naming the file and the key.
+    """
+    path = Path(path)
+    where = str(path)
+    try:
+        content = read_json(path)
+    except ValueError as exc:  # not a JSON syntax error, e.g. an integer of more digits than Python converts
+        raise InputError(f"not valid JSON: {exc}", where) from None
+    if not isinstance(content, dict):
+        raise InputError("signals: expected an object of signal components (name -> parameters)", where)
+    signals = {}
+    for name, parameters in content.items():
+        if not NAME_PATTERN.fullmatch(name):
+            raise InputError(f"signals.{name}: a component name is 1-64 letters, digits, '_', '+', '-', '.'", where)
+        if not isinstance(parameters, dict):
+            raise InputError(f"signals.{name}: expected an object of parameters (name -> value)", where)
+        signals[name] = {}
+        for key, value in parameters.items():
+            if not NAME_PATTERN.fullmatch(key):
+                raise InputError(f"signals.{name}.{key}: a parameter name is 1-64 letters, digits, '_', '+', '-', '.'", where)
+            signals[name][key] = _parameter(value, f"signals.{name}.{key}", where)
+    stored = list(signals) + [k for entry in signals.values() for k in entry]
+    stored += [f for entry in signals.values() for v in entry.values() if isinstance(v, np.ndarray) for f in v.dtype.names or ()]
+    note = earlier_names(stored)
+    if note:
+        raise InputError(f"written by an earlier ptares ({note}); export the dataset again", where)
+    return signals

@@ -21,7 +21,7 @@ from ptares.rng import fresh_seed
 from ptares.simulation.array import build_array, observe
 from ptares.simulation.signals import Context, build_components
 from ptares.simulation.signals.white import effective_uncertainties
-from ptares.version import __version__, earlier_names
+from ptares.version import __version__
 
 __all__ = ["simulate", "run_seed", "import_tables", "config_tables"]
 
@@ -57,19 +57,9 @@ def import_tables(config: Config) -> Dataset:
         )
     signals = {}
     if config.array.signals:
-        import json
+        from ptares.inputs.tables import read_signals
 
-        path = config.resolve(config.array.signals)
-        try:
-            signals = json.loads(path.read_text())
-        except FileNotFoundError:
-            raise InputError("file not found", str(path)) from None
-        except (OSError, ValueError) as exc:
-            raise InputError(f"not a readable JSON file of signal parameters ({exc})", str(path)) from None
-        note = earlier_names([k for entry in signals.values() if isinstance(entry, dict) for k in entry]) \
-            if isinstance(signals, dict) else ""
-        if note:
-            raise InputError(f"written by an earlier ptares ({note}); export the dataset again", str(path))
+        signals = read_signals(config.resolve(config.array.signals))
     return Dataset(
         pulsars=pulsars, config=config.source_text, seed=0, ptares_version=__version__,
         created=datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
