@@ -33,6 +33,7 @@ import h5py
 import numpy as np
 
 from ptares.errors import InputError
+from ptares.limits import MAX_TOAS, MAX_TOTAL_TOAS, MEMORY_LIMIT, NAME_PATTERN
 from ptares.physics.sky import unit_vector
 from ptares.version import earlier_names
 
@@ -285,52 +286,302 @@ def _plain(value):
     return value
 
 
-def load_dataset(path) -> Dataset:
-    """Read a dataset written by :func:`write_dataset`."""
-    path = Path(path)
-    if not path.is_file():
-        raise InputError("dataset file not found", str(path))
+#: The arrays every pulsar group holds, with their number of dimensions.
+PULSAR_ARRAYS = (("mjd", 1), ("residuals", 1), ("errors", 1), ("design_matrix", 2))
+#: Attributes of the file and of every pulsar group that the loader reads as numbers.
+FILE_NUMBERS = ("start_mjd", "span")
+PULSAR_NUMBERS = ("ra", "dec", "distance", "distance_error")
+
+
+def _check_file(path: Path) -> None:
+    """Refuse, naming ``path``, a file that is missing, not a regular file, unreadable or empty,
+    before HDF5 opens it (HDF5 would wait forever on a pipe)."""
+    import stat
+
     try:
-        with h5py.File(path, "r") as f:
-            pulsars = []
-            for name, g in f["pulsars"].items():
-                injected = g.get("injected")
-                pulsars.append(
-                    PulsarData(
-                        name=name,
-                        ra=float(g.attrs["ra"]),
-                        dec=float(g.attrs["dec"]),
-                        distance=float(g.attrs["distance"]),
-                        distance_error=float(g.attrs["distance_error"]),
-                        mjd=g["mjd"][()],
-                        residuals=g["residuals"][()],
-                        errors=g["errors"][()],
-                        design_matrix=g["design_matrix"][()],
-                        design_columns=_plain(g["design_matrix"].attrs.get("columns", [])),
-                        injected={k: v[()] for k, v in injected.items()} if injected else {},
-                        noise={k: _plain(v) for k, v in injected.attrs.items()} if injected else {},
-                        measured=g["measured"][()] if "measured" in g else None,
-                    )
-                )
-            signals = {
-                name: {**{k: _plain(v) for k, v in s.attrs.items()}, **{k: v[()] for k, v in s.items()}}
-                for name, s in f.get("signals", {}).items()
-            }
-            stored = [k for p in pulsars for k in (*p.noise, *p.injected)] + [k for s in signals.values() for k in s]
-            stored += list(signals)
-            stored += [k for s in signals.values() if "sources" in s for k in (s["sources"].dtype.names or ())]
-            note = earlier_names(stored)
-            if note:
-                raise InputError(f"written by an earlier ptares ({note}); simulate or import it again", str(path))
-            return Dataset(
-                pulsars=pulsars,
-                config=_plain(f.attrs.get("config", "")),
-                seed=int(f.attrs.get("seed", 0)),
-                ptares_version=_plain(f.attrs.get("ptares_version", "")),
-                created=_plain(f.attrs.get("created", "")),
-                start_mjd=float(f.attrs.get("start_mjd", 0.0)),
-                span=float(f.attrs.get("span", 0.0)),
-                signals=signals,
-            )
-    except (OSError, KeyError) as exc:
-        raise InputError(f"not a readable ptares dataset ({exc})", str(path)) from None
+        info = os.stat(path)
+    except FileNotFoundError:
+        raise InputError("file not found", str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read file ({exc.strerror or exc})", str(path)) from None
+    if stat.S_ISDIR(info.st_mode):
+        raise InputError("is a directory, not a file", str(path))
+    if not stat.S_ISREG(info.st_mode):
+        raise InputError("is not a regular file (a pipe, device or socket)", str(path))
+    try:
+        with open(path, "rb"):
+            pass
+    except OSError as exc:
+        raise InputError(f"cannot read file ({exc.strerror or exc})", str(path)) from None
+    if info.st_size == 0:
+        raise InputError("not a ptares dataset (an empty file)", str(path))
+
+
+def _open(path: Path) -> h5py.File:
+    """``path`` opened read-only; HDF5's own errors become one line saying what the file is."""
+    try:
+        return h5py.File(path, "r")
+    except OSError:
+        if not h5py.is_hdf5(path):
+            raise InputError("not a ptares dataset (not an HDF5 file)", str(path)) from None
+        raise InputError("truncated or damaged HDF5 file", str(path)) from None
+
+
+def _member(group: h5py.Group, key: str, path: str):
+    """The object ``key`` of ``group`` (None if absent).  A link into another file, or an array whose
+    values are kept in other files, is refused: a dataset never makes ptares read files it was not given."""
+    link = group.get(key, getlink=True)
+    if link is None:
+        return None
+    place = f"{group.name.rstrip('/')}/{_shown(key)}"
+    if isinstance(link, h5py.ExternalLink):
+        raise InputError(f"{place} is a link to another file ({_shown(link.filename)}); ptares reads one file", path)
+    member = group[key]
+    if isinstance(member, h5py.Dataset) and (member.is_virtual or member.external):
+        raise InputError(f"{place} keeps its values in other files; ptares reads one file", path)
+    return member
+
+
+def _shown(name: str) -> str:
+    """A name from the file as a message shows it: quoted where it holds characters that are not printable."""
+    return name if name.isprintable() else repr(name)
+
+
+def _words(value) -> str:
+    """A number as a message shows it: NaN spelt the usual way."""
+    return "NaN" if np.isnan(value) else repr(float(value))
+
+
+def _number(attrs, key: str, owner: str, path: str) -> float:
+    """The attribute ``key`` as a float; missing, not a single real number, or not finite is an
+    :class:`InputError` (``owner`` starts the message: ``"pulsar Aa: "`` or ``""``)."""
+    if key not in attrs:
+        raise InputError(f"{owner}no '{key}' attribute", path)
+    try:
+        value = attrs[key]
+    except (OSError, TypeError):  # a type HDF5 stores but numpy has no equivalent for
+        raise InputError(f"{owner}attribute '{key}' cannot be read", path) from None
+    if isinstance(value, np.ndarray) and value.shape == ():
+        value = value[()]
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise InputError(f"{owner}attribute '{key}' is not a number", path)
+    value = float(value)
+    if not np.isfinite(value):
+        raise InputError(f"{owner}attribute '{key}' is {_words(value)}; it must be finite", path)
+    return value
+
+
+def _seed(attrs, path: str) -> int:
+    """The file's ``seed`` attribute, a whole number kept exactly (seeds may exceed a double's 53 bits)."""
+    if "seed" not in attrs:
+        raise InputError("not a ptares dataset (no 'seed' attribute)", path)
+    try:
+        value = attrs["seed"]
+    except (OSError, TypeError):
+        raise InputError("attribute 'seed' cannot be read", path) from None
+    if isinstance(value, np.ndarray) and value.shape == ():
+        value = value[()]
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)):
+        raise InputError("attribute 'seed' is not a whole number", path)
+    return int(value)
+
+
+def _what_it_holds(dtype) -> str:
+    """A dataset's element type in words, for a message refusing it."""
+    if h5py.check_string_dtype(dtype) is not None or dtype.kind in "SU":
+        return "text"
+    return {"i": "integers", "u": "integers", "b": "true/false values", "c": "complex numbers", "O": "objects",
+            "V": "records"}.get(dtype.kind, f"values of type {dtype}")
+
+
+def _checked_array(group: h5py.Group, key: str, dimensions: int, owner: str, path: str) -> h5py.Dataset:
+    """The array ``key`` of ``group``, refused unless it is a float array of ``dimensions`` dimensions."""
+    array = _member(group, key, path)
+    if array is None:
+        raise InputError(f"{owner}no '{key}' array", path)
+    if not isinstance(array, h5py.Dataset):
+        raise InputError(f"{owner}'{key}' is a group, not an array", path)
+    if array.shape is None:
+        raise InputError(f"{owner}{key} holds no data", path)
+    try:
+        dtype = array.dtype
+    except TypeError:  # an HDF5 type numpy cannot represent
+        raise InputError(f"{owner}{key} holds values of a type ptares cannot read", path) from None
+    if not np.issubdtype(dtype, np.floating):
+        raise InputError(f"{owner}{key} holds {_what_it_holds(dtype)}, not floating-point numbers", path)
+    if array.ndim != dimensions:
+        raise InputError(f"{owner}{key} has shape {array.shape}; expected {dimensions}-D", path)
+    return array
+
+
+def _pulsar_arrays(name: str, group, path: str) -> dict:
+    """``{key: h5py.Dataset}`` of one pulsar group (``injected/<component>`` keyed by that path),
+    each checked for type, dimensions and length before any is read."""
+    owner = f"pulsar {_shown(name)}: "
+    if not NAME_PATTERN.fullmatch(name):
+        raise InputError(f"pulsar name {name!r} is not 1-64 letters, digits, '_', '+', '-', '.' starting with a "
+                         "letter or digit", path)
+    if not isinstance(group, h5py.Group):
+        raise InputError(f"{owner}is an array, not a group", path)
+    arrays = {key: _checked_array(group, key, dimensions, owner, path) for key, dimensions in PULSAR_ARRAYS}
+    if _member(group, "measured", path) is not None:
+        arrays["measured"] = _checked_array(group, "measured", 1, owner, path)
+    injected = _member(group, "injected", path)
+    if injected is not None:
+        if not isinstance(injected, h5py.Group):
+            raise InputError(f"{owner}'injected' is an array, not a group", path)
+        for component in injected:
+            arrays[f"injected/{component}"] = _checked_array(injected, component, 1, owner, path)
+    count = arrays["mjd"].shape[0]
+    if count == 0:
+        raise InputError(f"{owner}has no TOAs (mjd is empty)", path)
+    if count > MAX_TOAS:
+        raise InputError(f"{owner}{count} TOAs, more than ptares handles per pulsar ({MAX_TOAS})", path)
+    for key, array in arrays.items():
+        if key != "mjd" and array.shape[0] != count:
+            values = "rows" if array.ndim == 2 else "values"
+            raise InputError(f"{owner}{key} has {array.shape[0]} {values} but mjd {count}", path)
+    return arrays
+
+
+def _check_values(name: str, key: str, values: np.ndarray, path: str) -> None:
+    """Refuse NaN or infinite values, TOA errors that are not positive and MJDs out of time order."""
+    owner = f"pulsar {_shown(name)}: "
+    finite = np.isfinite(values)
+    if not finite.all():
+        index = tuple(int(i) for i in np.argwhere(~finite)[0])
+        raise InputError(f"{owner}{key}[{', '.join(map(str, index))}] is {_words(values[index])}; values must be finite",
+                         path)
+    if key == "errors" and np.any(values <= 0):
+        index = int(np.flatnonzero(values <= 0)[0])
+        raise InputError(f"{owner}errors[{index}] is {float(values[index])}; TOA errors must be positive", path)
+    if key == "mjd" and np.any(np.diff(values) < 0):
+        index = int(np.flatnonzero(np.diff(values) < 0)[0]) + 1
+        raise InputError(f"{owner}mjd is not in time order (mjd[{index}] = {float(values[index])!r} comes after "
+                         f"mjd[{index - 1}] = {float(values[index - 1])!r})", path)
+
+
+def _read_pulsar(name: str, group: h5py.Group, arrays: dict, path: str) -> PulsarData:
+    """One pulsar's data, every value checked (its arrays' layout already is, by :func:`_pulsar_arrays`)."""
+    owner = f"pulsar {_shown(name)}: "
+    place = {key: _number(group.attrs, key, owner, path) for key in PULSAR_NUMBERS}
+    if abs(place["dec"]) > np.pi / 2:
+        raise InputError(f"{owner}dec is {place['dec']} rad, outside [-pi/2, pi/2]", path)
+    if place["distance"] <= 0:
+        raise InputError(f"{owner}distance is {place['distance']} kpc; it must be positive", path)
+    if place["distance_error"] < 0:
+        raise InputError(f"{owner}distance_error is {place['distance_error']} kpc; it must not be negative", path)
+    values = {}
+    for key, array in arrays.items():
+        values[key] = np.asarray(array[()], dtype=float)
+        _check_values(name, key, values[key], path)
+    columns = _plain(arrays["design_matrix"].attrs.get("columns", []))
+    columns = columns if isinstance(columns, list) else [columns]
+    if columns and len(columns) != values["design_matrix"].shape[1]:
+        raise InputError(f"{owner}design_matrix has {values['design_matrix'].shape[1]} columns but "
+                         f"{len(columns)} column names", path)
+    injected = group.get("injected")
+    noise = {k: _plain(v) for k, v in injected.attrs.items()} if injected is not None else {}
+    for key, value in noise.items():
+        if isinstance(value, float) and not np.isfinite(value):
+            raise InputError(f"{owner}injected noise parameter {key} is {_words(value)}; it must be finite", path)
+    return PulsarData(
+        name=name, **place,
+        mjd=values["mjd"], residuals=values["residuals"], errors=values["errors"],
+        design_matrix=values["design_matrix"], design_columns=columns,
+        injected={key.split("/", 1)[1]: v for key, v in values.items() if key.startswith("injected/")},
+        noise=noise, measured=values.get("measured"),
+    )
+
+
+def _signal_arrays(f: h5py.File, path: str) -> dict:
+    """``{component: group}`` of ``/signals``, each a group of attributes and arrays."""
+    signals = _member(f, "signals", path)
+    if signals is None:
+        return {}
+    if not isinstance(signals, h5py.Group):
+        raise InputError("not a ptares dataset ('signals' is an array, not a group)", path)
+    groups = {}
+    for name in signals:
+        group = _member(signals, name, path)
+        if not isinstance(group, h5py.Group) or any(not isinstance(_member(group, k, path), h5py.Dataset) for k in group):
+            raise InputError(f"signal {_shown(name)}: expected a group of parameters and arrays", path)
+        groups[name] = group
+    return groups
+
+
+def _stored_bytes(arrays) -> int:
+    """Bytes the ``arrays`` (h5py Datasets) take once read, from their shapes alone."""
+    return sum(int(a.size or 0) * a.dtype.itemsize for a in arrays)  # size is None for an empty dataspace
+
+
+def _read(f: h5py.File, path: str) -> Dataset:
+    """The dataset in the open file ``f`` (named ``path`` in messages): layout and sizes checked from the
+    metadata first, so a malformed or oversized file is refused before any array is read."""
+    pulsars_group = _member(f, "pulsars", path)
+    if pulsars_group is None:
+        raise InputError("not a ptares dataset (no 'pulsars' group)", path)
+    if not isinstance(pulsars_group, h5py.Group):
+        raise InputError("not a ptares dataset ('pulsars' is an array, not a group)", path)
+    for key in FILE_NUMBERS:
+        if key not in f.attrs:
+            raise InputError(f"not a ptares dataset (no '{key}' attribute)", path)
+    numbers = {key: _number(f.attrs, key, "", path) for key in FILE_NUMBERS}
+    seed = _seed(f.attrs, path)
+    if numbers["span"] <= 0:
+        raise InputError(f"attribute 'span' is {numbers['span']} s; it must be positive", path)
+    names = list(pulsars_group)
+    if not names:
+        raise InputError("has no pulsars (the 'pulsars' group is empty)", path)
+    layouts = {name: _pulsar_arrays(name, _member(pulsars_group, name, path), path) for name in names}
+    total = sum(arrays["mjd"].shape[0] for arrays in layouts.values())
+    if total > MAX_TOTAL_TOAS:
+        raise InputError(f"{total} TOAs in all, more than ptares handles ({MAX_TOTAL_TOAS})", path)
+    signal_groups = _signal_arrays(f, path)
+    needed = _stored_bytes(a for arrays in layouts.values() for a in arrays.values())
+    needed += _stored_bytes(s[k] for s in signal_groups.values() for k in s)
+    if needed > MEMORY_LIMIT:
+        raise InputError(f"its arrays take {needed / 1e9:.3g} GB, more than ptares loads "
+                         f"({MEMORY_LIMIT / 1e9:.3g} GB)", path)
+    pulsars = [_read_pulsar(name, pulsars_group[name], layouts[name], path) for name in names]
+    signals = {name: {**{k: _plain(v) for k, v in s.attrs.items()}, **{k: v[()] for k, v in s.items()}}
+               for name, s in signal_groups.items()}
+    stored = [k for p in pulsars for k in (*p.noise, *p.injected)] + [k for s in signals.values() for k in s]
+    stored += list(signals)
+    stored += [k for s in signals.values() if "sources" in s for k in (s["sources"].dtype.names or ())]
+    note = earlier_names(stored)
+    if note:
+        raise InputError(f"written by an earlier ptares ({note}); simulate or import it again", path)
+    return Dataset(
+        pulsars=pulsars,
+        config=_plain(f.attrs.get("config", "")),
+        seed=seed,
+        ptares_version=_plain(f.attrs.get("ptares_version", "")),
+        created=_plain(f.attrs.get("created", "")),
+        start_mjd=numbers["start_mjd"],
+        span=numbers["span"],
+        signals=signals,
+    )
+
+
+def load_dataset(path) -> Dataset:
+    """Read a dataset written by :func:`write_dataset`, checked throughout.
+
+    Every fault is an :class:`InputError` naming the file: one that is missing, not a
+    regular file, not HDF5, truncated or damaged; a file without the layout in this
+    module's docstring (naming the group, array or attribute that is wrong, and the
+    pulsar); arrays that are not floating point, of the wrong shape or of lengths that
+    disagree; NaN or infinite values, TOA errors that are not positive, MJDs out of
+    time order; names breaking :data:`~ptares.limits.NAME_PATTERN`; more TOAs than
+    :data:`~ptares.limits.MAX_TOAS` in a pulsar or :data:`~ptares.limits.MAX_TOTAL_TOAS`
+    in all, or arrays needing more than :data:`~ptares.limits.MEMORY_LIMIT` bytes
+    (counted from the file's metadata, before any is read).
+    """
+    path = Path(path)
+    _check_file(path)
+    handle = _open(path)
+    try:
+        with handle as f:
+            return _read(f, str(path))
+    except (OSError, RuntimeError, KeyError):  # HDF5 failing to read what its metadata promised
+        raise InputError("truncated or damaged HDF5 file", str(path)) from None

@@ -1,5 +1,6 @@
 """Plain tables: import, export, injection into measured residuals, and every table fault."""
 
+import dataclasses
 
 import numpy as np
 import pytest
@@ -50,7 +51,8 @@ def test_export_then_import_reproduces_the_dataset(tmp_path):
 
 def test_schedule_mode_takes_epochs_and_errors(tmp_path):
     config = load_config(write_tables(tmp_path))
-    data = simulate(config)
+    with pytest.warns(PhysicsWarning, match=r"toas.csv: ignoring column\(s\) residual_us \(only epochs and errors are taken\)"):
+        data = simulate(config)
     kite = data.pulsar("Kite")
     table = np.loadtxt(tmp_path / "toas.csv", delimiter=",", skiprows=1, usecols=(1, 2), max_rows=40)
     np.testing.assert_array_equal(kite.mjd, table[:, 0])
@@ -208,7 +210,8 @@ def test_more_table_faults(tmp_path, capsys, toas, catalogue, words):
 
 def test_catalogue_noise_columns_apply_in_schedule_mode(tmp_path):
     catalogue = "name,ra,dec,distance,white_scale,red_amplitude,red_spectral_index\nKite,10,10,1,1.5,3e-15,4.0\nLark,20,20,1,,,\n"
-    data = simulate(load_config(write_tables(tmp_path, catalogue=catalogue)))
+    with pytest.warns(PhysicsWarning, match="residual_us"):
+        data = simulate(load_config(write_tables(tmp_path, catalogue=catalogue)))
     assert data.pulsar("Kite").noise["white_scale"] == 1.5 and data.pulsar("Kite").noise["red_amplitude"] == 3e-15
     assert data.pulsar("Lark").noise["white_scale"] == 1.0 and data.pulsar("Lark").noise["red_amplitude"] == 0.0
     assert "red" in data.pulsar("Kite").injected
@@ -331,7 +334,8 @@ def test_signals_file_keeps_every_type_and_non_finite_numbers(tmp_path):
     path = tmp_path / "signals.json"
     path.write_text(signals_text(signals))
     assert_same_signals(signals, read_signals(path))
-    again = load_dataset(write_dataset(Dataset(pulsars=[], signals=read_signals(path)), tmp_path / "d.h5"))
+    carrier = simulate(small_config(array={"random": {"count": 2}}, gwb={"amplitude": 0.0}))
+    again = load_dataset(write_dataset(dataclasses.replace(carrier, signals=read_signals(path)), tmp_path / "d.h5"))
     assert again.signals["extra"]["table"].tobytes() == table.tobytes()
     assert again.signals["extra"]["half"].dtype == np.float16 and again.signals["extra"]["grid"] == [[1, 2.5], [3, 4]]
 
@@ -386,3 +390,79 @@ def test_a_good_hand_written_signals_file_is_read(tmp_path):
     sources = import_tables(load_config(config)).signals["binary"]["sources"]
     assert sources.dtype.names == ("name", "frequency", "pulsar_term") and sources["name"][0] == b"Hawk"
     assert sources["frequency"][0] == 2e-08 and sources["pulsar_term"][0]
+
+
+# ---------------------------------------------------------------- hardened reading: names, field counts, limits, separators
+
+TAB_SEPARATED = HEADER.replace(",", "\t") + "\n".join(r.replace(",", "\t") for r in GOOD) + "\n"
+SEMICOLON_SEPARATED = HEADER.replace(",", ";") + "\n".join(r.replace(",", ";") for r in GOOD) + "\n"
+ALL_GOOD = HEADER + "\n".join(GOOD) + "\n"
+
+
+@pytest.mark.parametrize(
+    "toas, catalogue, limits, words",
+    [
+        pytest.param(ALL_GOOD, CATALOGUE.replace("Lark,", "=HYPERLINK(1),"), {},
+                     "pulsars.csv: row 3, column name: '=HYPERLINK(1)' is not a pulsar name (1-64 letters", id="name-formula"),
+        pytest.param(ALL_GOOD, CATALOGUE.replace("Lark,", "@Lark,"), {}, "row 3, column name: '@Lark' is not a pulsar name",
+                     id="name-at"),
+        pytest.param(ALL_GOOD, CATALOGUE.replace("Lark,", "../Lark,"), {}, "row 3, column name: '../Lark' is not a pulsar name",
+                     id="name-path"),
+        pytest.param(rows_with(2, "+Kite,53020.0,1.0,0.3"), CATALOGUE, {},
+                     "toas.csv: row 4, column pulsar: '+Kite' is not a pulsar name", id="toa-name-plus"),
+        pytest.param(rows_with(2, "Kite/x,53020.0,1.0,0.3"), CATALOGUE, {},
+                     "toas.csv: row 4, column pulsar: 'Kite/x' is not a pulsar name", id="toa-name-slash"),
+        pytest.param(rows_with(2, ",53020.0,1.0,0.3"), CATALOGUE, {}, "toas.csv: row 4, column pulsar: empty", id="toa-name-empty"),
+        pytest.param(rows_with(2, "Kite,53020.0,1,5,0.3"), CATALOGUE, {},
+                     "toas.csv: row 4: 5 fields, but the header (row 1) has 4 (a decimal comma", id="decimal-comma"),
+        pytest.param(rows_with(2, "Kite,53020.0,1.0"), CATALOGUE, {}, "toas.csv: row 4: 3 fields, but the header (row 1) has 4",
+                     id="too-few-fields"),
+        pytest.param(ALL_GOOD, CATALOGUE.replace("0.8,0.05", "0,8,0.05"), {},
+                     "pulsars.csv: row 3: 6 fields, but the header (row 1) has 5", id="catalogue-decimal-comma"),
+        pytest.param(ALL_GOOD, CATALOGUE.replace(",0.8,0.05", ",0.8"), {},
+                     "pulsars.csv: row 3: 4 fields, but the header (row 1) has 5", id="catalogue-too-few-fields"),
+        pytest.param(ALL_GOOD, CATALOGUE, {"MAX_TOAS": 4},
+                     "toas.csv: row 6: pulsar 'Kite' has more TOAs than ptares handles per pulsar (4)", id="toas-per-pulsar"),
+        pytest.param(ALL_GOOD, CATALOGUE, {"MAX_TOTAL_TOAS": 8},
+                     "toas.csv: row 10: more TOAs in all than ptares handles (8)", id="toas-in-all"),
+        pytest.param(TAB_SEPARATED, CATALOGUE, {},
+                     "toas.csv: looks tab-separated; ptares reads comma-separated tables (save as CSV)", id="tab-separated"),
+        pytest.param(ALL_GOOD, CATALOGUE.replace(",", "\t"), {}, "pulsars.csv: looks tab-separated", id="tab-catalogue"),
+        pytest.param(SEMICOLON_SEPARATED, CATALOGUE, {}, "toas.csv: looks semicolon-separated", id="semicolon-separated"),
+        pytest.param(HEADER + "\n".join(GOOD[:1] + GOOD[2:4] + GOOD[1:2] + GOOD[4:9] + GOOD[8:9]) + "\n", CATALOGUE, {},
+                     "toas.csv: row 11, column mjd: duplicate TOA of Lark", id="sorting-note-held-back"),
+        pytest.param(HEADER.replace("\n", ",injected_a/b_s\n") + "\n".join(r + ",0.0" for r in GOOD) + "\n", CATALOGUE, {},
+                     "toas.csv: row 1, column 'injected_a/b_s': the component name", id="component-name"),
+    ],
+)
+def test_bad_tables_are_one_line_and_write_nothing(tmp_path, capsys, monkeypatch, toas, catalogue, limits, words):
+    """Through `ptares simulate` and `ptares import`: exit status 2, one line naming the file and the
+    fault, no traceback, no output folder."""
+    for name, value in limits.items():
+        monkeypatch.setattr(f"ptares.inputs.tables.{name}", value)
+    config = write_tables(tmp_path, toas=toas, catalogue=catalogue, mode="inject")
+    for command in ("simulate", "import"):
+        assert main([command, str(config), "--out", str(tmp_path / "o")]) == 2
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and words in err and "Traceback" not in err, err
+        assert not (tmp_path / "o").exists()
+
+
+def test_ignored_columns_are_named_in_a_note(tmp_path, capsys):
+    """Columns ptares does not read are named, with why, once the tables have passed every check;
+    the import succeeds.  Blank rows, also ",,," from spreadsheets, are skipped."""
+    toas = (HEADER.replace("\n", ",frequency_mhz,comment\n") + "\n".join(r + ",1400,ok" for r in GOOD) + "\n,,,,,\n")
+    catalogue = ("name,ra,dec,ra_rad,dec_rad,distance,distance_kpc,observer\n"
+                 "Kite,10,10,0.1,0.2,1,1.5,x\nLark,20,20,0.3,0.4,1,0.5,y\n")
+    config = write_tables(tmp_path, toas=toas, catalogue=catalogue)
+    assert main(["import", str(config), "--out", str(tmp_path / "i")]) == 0
+    catalogue_note = (f"ptares: warning: {tmp_path / 'pulsars.csv'}: ignoring column(s) ra, dec (ra_rad and dec_rad are used); "
+                      "distance (distance_kpc is used); observer (not read by ptares)")
+    table_note = f"ptares: warning: {tmp_path / 'toas.csv'}: ignoring column(s) frequency_mhz, comment (not read by ptares)"
+    assert capsys.readouterr().err.splitlines() == [catalogue_note, table_note]
+    kite = load_dataset(tmp_path / "i" / "dataset.h5").pulsar("Kite")
+    assert (kite.ra, kite.dec, kite.distance, kite.mjd.size) == (0.1, 0.2, 1.5, 5)
+    with pytest.warns(PhysicsWarning, match=r"toas.csv: ignoring column\(s\) residual_us \(only epochs and errors are taken\); "
+                      r"frequency_mhz, comment \(not read by ptares\)"):
+        data = simulate(load_config(config))  # schedule mode: the residuals are not read either
+    assert data.pulsar("Kite").measured is None

@@ -37,7 +37,7 @@ from pydantic import (
 )
 
 from ptares.errors import InputError, PhysicsWarning
-from ptares.limits import FILE_LIMIT, NESTING_LIMIT
+from ptares.limits import FILE_LIMIT, MAX_TOAS, MAX_TOTAL_TOAS, NAME_PATTERN, NESTING_LIMIT
 from ptares.inputs.units import parse_dec, parse_number, parse_ra, to_unit
 from ptares.version import renamed
 
@@ -169,11 +169,8 @@ def _safe_name(name: str) -> str:
     return name
 
 
-NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9_+\-.]{0,63}")
 SafeName = Annotated[str, AfterValidator(_safe_name)]
 MAX_HARMONICS = 10_000
-MAX_TOAS = 1_000_000  #: per pulsar
-MAX_TOTAL_TOAS = 50_000_000  #: over all pulsars (about 0.4 GB per array of them)
 MJD_RANGE = (15_000.0, 100_000.0)  #: 1899 to 2132
 MaxAmplitude = AfterValidator(_at_most(1e-9))  # beyond this residuals exceed a second: surely a typo
 SpectralIndex = AfterValidator(lambda v: _at_least(-10.0)(_at_most(10.0)(v)))

@@ -2,18 +2,23 @@
 
 TOA table, one row per TOA: ``pulsar``, ``mjd`` (days), ``error`` with its unit
 in the header (``error_us``, ``error_ns``, ``error_s``; plain ``error`` is in
-microseconds), optional ``residual`` (same unit rule; plain ``residual`` is in
-microseconds) and ``frequency_mhz``.  Columns ``injected_<component>_s`` and
-``measured_s`` carry injected components and measured residuals (written by
-:func:`export_tables`).
+microseconds) and optional ``residual`` (same unit rule; plain ``residual`` is in
+microseconds).  Columns ``injected_<component>_s`` and ``measured_s`` carry injected
+components and measured residuals (written by :func:`export_tables`).
 
 Catalogue, one row per pulsar: ``name``, ``ra``, ``dec`` (degrees or
 sexagesimal, or ``ra_rad``/``dec_rad``), ``distance`` and ``distance_error``
 (kpc, also ``distance_kpc``...), and optionally the noise columns
 ``white_scale``, ``white_quadrature_s``, ``red_amplitude``, ``red_spectral_index``.
 
-Files are read with Python's csv module; every fault names the file, the row
-(the header is row 1) and the column, and nothing is written.
+Files are read with Python's csv module, comma-separated (a tab- or
+semicolon-separated file is refused as such); every row has as many fields as the
+header; pulsar names follow the rule of names in configs (:data:`NAME_PATTERN`: no
+path separators, nothing a spreadsheet would run as a formula); a table holds at most
+:data:`MAX_TOAS` TOAs per pulsar and :data:`MAX_TOTAL_TOAS` in all.  Every fault names
+the file, the row (the header is row 1) and the column, and nothing is written.
+Columns that are not read (``frequency_mhz``, say: ptares models no radio-frequency
+dependence) are named in a note once both files have passed every check.
 
 Signals file (``signals.json``, written by :func:`export_tables`, read by
 :func:`read_signals`): an object of component name -> object of parameters, as in a
@@ -37,6 +42,7 @@ in the dataset file.  Every fault names the file and the key.
 
 from __future__ import annotations
 
+import collections
 import csv
 import io
 import json
@@ -49,7 +55,7 @@ import numpy as np
 
 from ptares.dataset import Dataset, atomic_path
 from ptares.errors import InputError, PhysicsWarning
-from ptares.inputs.config import NAME_PATTERN, read_json, read_text
+from ptares.inputs.config import MAX_TOAS, MAX_TOTAL_TOAS, NAME_PATTERN, read_json, read_text
 from ptares.inputs.units import parse_dec, parse_ra
 from ptares.limits import MEMORY_LIMIT, NESTING_LIMIT
 from ptares.version import earlier_names
@@ -58,6 +64,16 @@ __all__ = ["PulsarRow", "TableArray", "read_tables", "export_tables", "signals_t
 
 _UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "ns": 1e-9}
 _NOISE = {"white_scale": 1.0, "white_quadrature_s": 1.0, "red_amplitude": 1.0, "red_spectral_index": 1.0, "true_distance_kpc": 1.0}
+#: The rule of :data:`NAME_PATTERN`, in words.
+_NAME_RULE = "1-64 letters, digits, '_', '+', '-', '.', starting with a letter or digit"
+#: Other field separators a spreadsheet writes, recognised in a header of one column.
+_SEPARATORS = {
+    "\t": "looks tab-separated; ptares reads comma-separated tables (save as CSV)",
+    ";": "looks semicolon-separated; ptares reads comma-separated tables with decimal points "
+         "(save as CSV with '.' as the decimal separator)",
+}
+_SHOWN_CHARACTERS = 40  #: of a cell or column name quoted in a message (a cell may be megabytes)
+_SHOWN_COLUMNS = 8  #: ignored columns named in a note before "and N more"
 
 
 @dataclass
@@ -77,40 +93,87 @@ class TableArray:
     pulsars: list
     mjd: dict
     errors: dict  #: s
-    residuals: dict  #: s, or None without a residual column
+    residuals: dict  #: s, or None without a residual column (or when it is not needed)
     injected: dict  #: name -> {component: (n,) s}
     measured: dict  #: name -> (n,) s or None
 
 
+def _shown(text: str) -> str:
+    """``text`` quoted for a message (control characters escaped), cut to a few dozen characters."""
+    return repr(text) if len(text) <= _SHOWN_CHARACTERS else repr(text[:_SHOWN_CHARACTERS]) + "..."
+
+
+def _column_label(column: str) -> str:
+    """A column name for a message: as it is when it follows the rule of names, else quoted and cut."""
+    return column if NAME_PATTERN.fullmatch(column) else _shown(column)
+
+
+def _field_count_fault(number: int, count: int, expected: int) -> str:
+    words = f"row {number}: {count} field{'s' if count != 1 else ''}, but the header (row 1) has {expected}"
+    if count > expected:
+        words += " (a decimal comma, as in 1,5, splits a number in two: write 1.5; quote text that holds a comma)"
+    return words
+
+
 def _rows(path: Path):
-    """Header and rows; each row carries its line number in the file under ``"#line"``."""
+    """The header (stripped column names) and an iterator of ``(row number, {column: stripped text})``.
+
+    Row numbers count file lines, the header being row 1.  Blank rows, also ``,,,`` as
+    spreadsheets write them, are skipped; a row of more or fewer fields than the header is
+    refused.  Rows are read as they are used, so a table over a TOA limit is refused without
+    holding all of it.  Unnamed columns (a header ending in a comma) are left out of the rows.
+    """
     text = read_text(path, encoding="utf-8-sig")  # -sig: a leading byte-order mark is dropped
+    reader = csv.reader(io.StringIO(text, newline=""))
     try:
-        reader = csv.DictReader(io.StringIO(text, newline=""))
-        header = [h.strip() for h in (reader.fieldnames or [])]
-        rows = []
-        for row in reader:
-            entry = {k.strip(): (v or "").strip() for k, v in row.items() if isinstance(k, str)}
-            entry["#line"] = reader.line_num
-            rows.append(entry)
+        header = [h.strip() for h in next(reader, [])]
     except csv.Error as exc:
-        raise InputError(f"cannot read the table ({exc})", str(path)) from None
-    if not header:
-        raise InputError("is empty (no header row)", str(path))
-    repeated = sorted({h for h in header if header.count(h) > 1})
+        raise InputError(f"row 1: cannot read the table ({exc})", str(path)) from None
+    if not any(header):
+        raise InputError("is empty (no header row)" if not text.strip() else "row 1 is blank; it must name the columns",
+                         str(path))
+    if len(header) == 1:
+        for separator, fault in _SEPARATORS.items():
+            if separator in header[0]:
+                raise InputError(fault, str(path))
+    counts = collections.Counter(h for h in header if h)
+    repeated = sorted(h for h, n in counts.items() if n > 1)
     if repeated:
-        raise InputError(f"row 1: column(s) {', '.join(repeated)} appear more than once", str(path))
-    return header, rows
+        raise InputError(f"row 1: column(s) {', '.join(map(_column_label, repeated))} appear more than once", str(path))
+
+    def rows():
+        last = reader.line_num  # the line a record ends on; the next one starts after it
+        try:
+            for fields in reader:
+                number, last = last + 1, reader.line_num
+                if not any(f.strip() for f in fields):
+                    continue
+                if len(fields) != len(header):
+                    raise InputError(_field_count_fault(number, len(fields), len(header)), str(path))
+                yield number, {h: f.strip() for h, f in zip(header, fields) if h}
+        except csv.Error as exc:
+            raise InputError(f"row {last + 1}: cannot read the table ({exc})", str(path)) from None
+
+    return header, rows()
 
 
 def _number(path, row_number, column, text) -> float:
     try:
         value = float(text)
     except ValueError:
-        raise InputError(f"row {row_number}, column {column}: {text!r} is not a number", str(path)) from None
+        raise InputError(f"row {row_number}, column {column}: {_shown(text)} is not a number", str(path)) from None
     if not math.isfinite(value):
-        raise InputError(f"row {row_number}, column {column}: {text!r} is not finite", str(path))
+        raise InputError(f"row {row_number}, column {column}: {_shown(text)} is not finite", str(path))
     return value
+
+
+def _pulsar_name(path, row_number, column, text) -> str:
+    """``text`` if it is a pulsar name by the rule of names in configs (it becomes an HDF5 group and a file-name part)."""
+    if not text:
+        raise InputError(f"row {row_number}, column {column}: empty", str(path))
+    if not NAME_PATTERN.fullmatch(text):
+        raise InputError(f"row {row_number}, column {column}: {_shown(text)} is not a pulsar name ({_NAME_RULE})", str(path))
+    return text
 
 
 def _unit_column(header, stem, path, required=True):
@@ -127,7 +190,26 @@ def _unit_column(header, stem, path, required=True):
     return found[0]
 
 
-def _catalogue(path: Path) -> list:
+def _ignored_note(path, header, reasons: dict) -> str | None:
+    """A note naming every column of ``header`` that is not read, grouped by why: ``reasons`` maps a
+    column read from to None and a known column left unread to its reason; any other is not a ptares column."""
+    groups = {}
+    for index, column in enumerate(header, 1):
+        if column and reasons.get(column, "") is None:
+            continue
+        label = _column_label(column) if column else f"unnamed column {index}"
+        groups.setdefault(reasons.get(column) or "not read by ptares", []).append(label)
+    if not groups:
+        return None
+    parts = []
+    for reason, labels in groups.items():
+        more = f" and {len(labels) - _SHOWN_COLUMNS} more" if len(labels) > _SHOWN_COLUMNS else ""
+        parts.append(f"{', '.join(labels[:_SHOWN_COLUMNS])}{more} ({reason})")
+    return f"{path}: ignoring column(s) {'; '.join(parts)}"
+
+
+def _catalogue(path: Path) -> tuple[list, str | None]:
+    """The catalogue's pulsars and the note on its ignored columns (None without any)."""
     header, rows = _rows(path)
     note = earlier_names(header, known=_NOISE)
     if note:
@@ -142,12 +224,15 @@ def _catalogue(path: Path) -> list:
     distance_error = next((c for c in ("distance_error_kpc", "distance_error") if c in header), None)
     if distance is None:
         raise InputError("has no distance column (kpc)", str(path))
+    angles_used, angles_unused = (("ra_rad", "dec_rad"), ("ra", "dec")) if radians else (("ra", "dec"), ("ra_rad", "dec_rad"))
+    reasons = dict.fromkeys(("name", distance, distance_error, *angles_used, *_NOISE))
+    reasons.update(dict.fromkeys(angles_unused, "ra_rad and dec_rad are used" if radians
+                                 else "ra_rad and dec_rad go together; ra and dec are used"))
+    reasons.update({c: f"{distance} is used" for c in ("distance_kpc", "distance") if c != distance})
+    reasons.update({c: f"{distance_error} is used" for c in ("distance_error_kpc", "distance_error") if c != distance_error})
     pulsars, seen = [], set()
-    for row in rows:
-        number = row["#line"]
-        name = row.get("name", "")
-        if not name:
-            raise InputError(f"row {number}, column name: empty", str(path))
+    for number, row in rows:
+        name = _pulsar_name(path, number, "name", row["name"])
         if name in seen:
             raise InputError(f"row {number}, column name: {name!r} appears twice", str(path))
         seen.add(name)
@@ -178,37 +263,71 @@ def _catalogue(path: Path) -> list:
         pulsars.append(PulsarRow(name, ra, dec, d, error, noise))
     if not pulsars:
         raise InputError("lists no pulsars", str(path))
-    return pulsars
+    return pulsars, _ignored_note(path, header, reasons)
 
 
-def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = False) -> TableArray:
-    """Read and check a TOA table and its catalogue; ``columns_needed``: timing-model columns."""
+def _signal_columns(header, path) -> list:
+    """The ``injected_<component>_s`` columns; a component name follows the rule of names (it becomes an HDF5 name)."""
+    columns = [h for h in header if h.startswith("injected_") and h.endswith("_s")]
+    for column in columns:
+        if not NAME_PATTERN.fullmatch(column[len("injected_"):-len("_s")]):
+            raise InputError(f"row 1, column {_column_label(column)}: the component name between injected_ and _s must be "
+                             f"{_NAME_RULE}", str(path))
+    return columns
+
+
+def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = False,
+                need_signals: bool | None = None) -> TableArray:
+    """Read and check a TOA table and its catalogue; ``columns_needed``: timing-model columns.
+
+    ``need_residuals``: read the residual column (import, inject mode); without it the residual
+    column is left unread.  ``need_signals``: read the ``injected_<component>_s`` and
+    ``measured_s`` columns (``ptares import``); by default as ``need_residuals``.  Columns left
+    unread, the table's TOAs out of time order (sorted) are told in :class:`PhysicsWarning` notes,
+    once both files have passed every check, so that a refused table gets only its one-line fault.
+    """
     table, catalogue = Path(table), Path(catalogue)
-    pulsars = _catalogue(catalogue)
+    need_signals = need_residuals if need_signals is None else need_signals
+    pulsars, catalogue_note = _catalogue(catalogue)
     header, rows = _rows(table)
     for column in ("pulsar", "mjd"):
         if column not in header:
             raise InputError(f"has no {column} column", str(table))
     error_column, error_factor = _unit_column(header, "error", table)
     residual_column, residual_factor = _unit_column(header, "residual", table, required=need_residuals)
-    injected_columns = [h for h in header if h.startswith("injected_") and h.endswith("_s")]
+    signal_columns = _signal_columns(header, table)
+    reasons = dict.fromkeys(("pulsar", "mjd", error_column))
+    reasons.update(dict.fromkeys([residual_column] if residual_column else [],
+                                 None if need_residuals else "only epochs and errors are taken"))
+    reasons.update(dict.fromkeys(signal_columns + ["measured_s"], None if need_signals else "read by ptares import only"))
+    if not need_residuals:
+        residual_column = None
+    injected_columns = signal_columns if need_signals else []
+    measured = need_signals and "measured_s" in header
     names = [p.name for p in pulsars]
     data = {name: [] for name in names}
-    if not rows:
-        raise InputError("has a header but no TOAs", str(table))
-    for row in rows:
-        number = row["#line"]
-        name = row["pulsar"]
+    total = 0
+    for number, row in rows:
+        name = _pulsar_name(table, number, "pulsar", row["pulsar"])
         if name not in data:
             raise InputError(f"row {number}, column pulsar: {name!r} is not in the catalogue {catalogue.name}", str(table))
+        if len(data[name]) >= MAX_TOAS:
+            raise InputError(f"row {number}: pulsar {name!r} has more TOAs than ptares handles per pulsar ({MAX_TOAS})",
+                             str(table))
+        total += 1
+        if total > MAX_TOTAL_TOAS:
+            raise InputError(f"row {number}: more TOAs in all than ptares handles ({MAX_TOTAL_TOAS})", str(table))
         mjd = _number(table, number, "mjd", row["mjd"])
         error = _number(table, number, error_column, row[error_column]) * error_factor
         if error <= 0:
             raise InputError(f"row {number}, column {error_column}: TOA errors must be positive", str(table))
         residual = _number(table, number, residual_column, row[residual_column]) * residual_factor if residual_column else 0.0
         extra = [_number(table, number, c, row[c]) for c in injected_columns]
-        measured = _number(table, number, "measured_s", row["measured_s"]) if "measured_s" in header else None
-        data[name].append((mjd, error, residual, extra, measured, number))
+        measured_value = _number(table, number, "measured_s", row["measured_s"]) if measured else None
+        data[name].append((mjd, error, residual, extra, measured_value, number))
+    if not total:
+        raise InputError("has a header but no TOAs", str(table))
+    notes = [note for note in (catalogue_note, _ignored_note(table, header, reasons)) if note]
     out = TableArray(pulsars, {}, {}, {}, {}, {})
     for name in names:
         entries = data[name]
@@ -216,7 +335,7 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
             raise InputError(f"pulsar {name!r} has no TOAs in {table.name}", str(catalogue))
         mjd = np.array([e[0] for e in entries])
         if np.any(np.diff(mjd) < 0):
-            warnings.warn(f"{table}: TOAs of {name} were not in time order; sorted", PhysicsWarning, stacklevel=2)
+            notes.append(f"{table}: TOAs of {name} were not in time order; sorted")
         order = np.argsort(mjd, kind="stable")
         entries = [entries[i] for i in order]
         mjd = mjd[order]
@@ -232,7 +351,9 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
         out.residuals[name] = np.array([e[2] for e in entries]) if residual_column else None
         out.injected[name] = {c[len("injected_"):-len("_s")]: np.array([e[3][k] for e in entries])
                               for k, c in enumerate(injected_columns)}
-        out.measured[name] = np.array([e[4] for e in entries]) if "measured_s" in header else None
+        out.measured[name] = np.array([e[4] for e in entries]) if measured else None
+    for note in notes:
+        warnings.warn(note, PhysicsWarning, stacklevel=2)
     return out
 
 
