@@ -317,7 +317,6 @@ def test_an_imported_continuous_wave_can_be_fitted(tmp_path):
 def test_signals_file_keeps_every_type_and_non_finite_numbers(tmp_path):
     """Scalars, lists, arrays of every supported type and shape, and NaN and infinities (written as
     {"kind": "float", ...}, since JSON has none) survive signals.json and the dataset file."""
-    from ptares.dataset import Dataset
     from ptares.inputs.tables import read_signals, signals_text
 
     table = np.array([(b"a\xc3\xa9", -0.0, np.nan, 7, True)],
