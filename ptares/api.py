@@ -667,8 +667,9 @@ def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None
                                     scheduler=client, progress=verbose)
         for pattern in direct_patterns(comparison, section):
             effective = comparison.content["patterns"][pattern]["effective_samples"]
-            _say(verbose, f"fitting the {pattern} model directly (reweighting left {effective:.0f} effective samples); "
-                          "the Bayes factor then bridges both posteriors")
+            why = ("direct_fit = \"always\"" if section.direct_fit == "always"
+                   else f"reweighting left {effective:.0f} effective samples")
+            _say(verbose, f"fitting the {pattern} model directly ({why}); the Bayes factor then bridges both posteriors")
             direct = fit(dataset, None if out is None else out / pattern, settings=fit_section.model_copy(
                 update={"common": pattern}), overwrite=overwrite, figures=figures, verbose=verbose, threads=threads)
             add_direct_fit(comparison, model, pattern, direct.chain(), direct.summary, section, seed=fit_section.seed,

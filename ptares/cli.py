@@ -108,7 +108,9 @@ def _compare(args) -> int:
           f"{'converged' if fit['converged'] else 'NOT converged: ' + str(fit['not_converged_because'])}; "
           f"{content['draws']} draws reweighted")
     print("\n".join(result.pattern_lines()))
-    print(f"wrote {result.out / 'comparison.json'}, comparison.png and the fit in {result.out / 'uncorrelated'}")
+    direct = [p for p, e in content["patterns"].items() if e["method"] == "bridge"]
+    fits = ", ".join(str(result.out / name) for name in ["uncorrelated", *direct])
+    print(f"wrote {result.out / 'comparison.json'}, comparison.png and the fits in {fits}")
     return 0
 
 
