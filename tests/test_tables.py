@@ -465,3 +465,16 @@ def test_ignored_columns_are_named_in_a_note(tmp_path, capsys):
                       r"frequency_mhz, comment \(not read by ptares\)"):
         data = simulate(load_config(config))  # schedule mode: the residuals are not read either
     assert data.pulsar("Kite").measured is None
+
+
+def test_injecting_into_exported_tables_names_the_columns_it_does_not_read(tmp_path):
+    """Exported tables carry each injected component as a column; injecting into them (inject mode) keeps
+    only the residuals, and the note says the component columns are for `ptares import` only."""
+    data = simulate(small_config(observing={"start": 53000, "span": 4.0, "cadence": 30.0, "toa_error": 0.5}))
+    assert main(["export", str(write_dataset(data, tmp_path / "d.h5")), "--out", str(tmp_path / "t")]) == 0
+    config = tmp_path / "t" / "inject.toml"
+    config.write_text('[run]\nseed = 3\n[array]\ntable = "toas.csv"\ncatalogue = "pulsars.csv"\nmode = "inject"\n'
+                      "[gwb]\namplitude = 5e-15\nharmonics = 8\n")
+    with pytest.warns(PhysicsWarning, match=r"toas.csv: ignoring column\(s\) injected_gwb_s, injected_white_s "
+                                            r"\(read by ptares import only\)"):
+        simulate(load_config(config))

@@ -26,14 +26,15 @@ from ptares.version import __version__
 __all__ = ["simulate", "run_seed", "import_tables", "config_tables"]
 
 
-def config_tables(config: Config, columns: int, need_residuals: bool):
-    """The config's tables, read and checked, or None when the array is not given by tables."""
+def config_tables(config: Config, columns: int, need_residuals: bool, need_signals: bool = False):
+    """The config's tables, read and checked, or None when the array is not given by tables; the injected and
+    measured columns only for an import (``need_signals``), else named in the note on unread columns."""
     if config.array.table is None:
         return None
     from ptares.inputs.tables import read_tables
 
     return read_tables(config.resolve(config.array.table), config.resolve(config.array.catalogue), columns,
-                       need_residuals=need_residuals)
+                       need_residuals=need_residuals, need_signals=need_signals)
 
 
 def import_tables(config: Config) -> Dataset:
@@ -41,7 +42,7 @@ def import_tables(config: Config) -> Dataset:
     if config.array.table is None:
         raise InputError("import needs [array] table and catalogue", "array")
     terms = config.timing_model.fit
-    tables = config_tables(config, len(column_names(terms)), need_residuals=True)
+    tables = config_tables(config, len(column_names(terms)), need_residuals=True, need_signals=True)
     first = min(m[0] for m in tables.mjd.values()) if config.array.window is None else config.array.window[0]
     last = max(m[-1] for m in tables.mjd.values()) if config.array.window is None else config.array.window[1]
     pulsars = []
