@@ -471,19 +471,18 @@ def _fit_section(source, config, settings, options) -> FitSection:
 
 def _simulated(config: Config, out: Path | None, overwrite: bool, verbose: bool) -> Dataset:
     """The config's dataset for a run into ``out``.  A config without ``[run] seed`` draws a fresh seed,
-    recorded in ``out/dataset.h5``; when that file holds a dataset of the same config, its seed is used
-    again, so that rerunning the same command resumes (unless ``overwrite``)."""
+    recorded in ``out/dataset.h5``; when that file holds a dataset of the same config, it is that dataset,
+    so that rerunning the same command resumes (unless ``overwrite``)."""
     from ptares.simulation.simulate import simulate as simulate_config
 
-    seed = None
     kept = None if out is None else out / "dataset.h5"
     if config.run.seed is None and kept is not None and kept.is_file() and not overwrite:
         previous = load_dataset(kept)
-        if previous.config == config.source_text:
-            seed = previous.seed
-            _say(verbose, f"[run] seed not set: using seed {seed} recorded in {kept}, so the run resumes")
-    dataset = simulate_config(config, seed=seed, progress=verbose)
-    if config.run.seed is None and seed is None and kept is not None:
+        if previous.config == config.source_text:  # the dataset this config gave last time: no need to simulate it again
+            _say(verbose, f"[run] seed not set: using the dataset of seed {previous.seed} in {kept}, so the run resumes")
+            return previous
+    dataset = simulate_config(config, progress=verbose)
+    if config.run.seed is None and kept is not None:
         _say(verbose, f"[run] seed not set: drew seed {dataset.seed} (recorded in {kept}; rerunning resumes)")
     return dataset
 

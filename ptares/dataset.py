@@ -32,7 +32,7 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-from ptares.errors import InputError
+from ptares.errors import InputError, regular_file
 from ptares.limits import MAX_TOAS, MAX_TOTAL_TOAS, MEMORY_LIMIT, NAME_PATTERN
 from ptares.physics.sky import unit_vector
 from ptares.version import earlier_names
@@ -296,18 +296,7 @@ PULSAR_NUMBERS = ("ra", "dec", "distance", "distance_error")
 def _check_file(path: Path) -> None:
     """Refuse, naming ``path``, a file that is missing, not a regular file, unreadable or empty,
     before HDF5 opens it (HDF5 would wait forever on a pipe)."""
-    import stat
-
-    try:
-        info = os.stat(path)
-    except FileNotFoundError:
-        raise InputError("file not found", str(path)) from None
-    except OSError as exc:
-        raise InputError(f"cannot read file ({exc.strerror or exc})", str(path)) from None
-    if stat.S_ISDIR(info.st_mode):
-        raise InputError("is a directory, not a file", str(path))
-    if not stat.S_ISREG(info.st_mode):
-        raise InputError("is not a regular file (a pipe, device or socket)", str(path))
+    info = regular_file(path)
     try:
         with open(path, "rb"):
             pass

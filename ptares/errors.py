@@ -9,7 +9,10 @@ ordinary exceptions with their tracebacks.
 
 from __future__ import annotations
 
-__all__ = ["InputError", "PhysicsWarning"]
+import os
+import stat
+
+__all__ = ["InputError", "PhysicsWarning", "regular_file"]
 
 
 class InputError(Exception):
@@ -35,3 +38,24 @@ class InputError(Exception):
 
 class PhysicsWarning(UserWarning):
     """Input that is valid but physically unusual (a binary close to merger, say)."""
+
+
+_SPECIAL = ((stat.S_ISFIFO, "a pipe"), (stat.S_ISCHR, "a character device"), (stat.S_ISBLK, "a block device"),
+            (stat.S_ISSOCK, "a socket"))
+
+
+def regular_file(path) -> os.stat_result:
+    """``os.stat`` of the file a user named, refusing one that is missing, unreadable or not a regular
+    file (a directory, pipe, device or socket: reading a pipe or a stream such as /dev/zero would never end)."""
+    try:
+        info = os.stat(path)
+    except FileNotFoundError:
+        raise InputError("file not found", str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read file ({exc.strerror or exc})", str(path)) from None
+    if stat.S_ISDIR(info.st_mode):
+        raise InputError("is a directory, not a file", str(path))
+    if not stat.S_ISREG(info.st_mode):
+        kind = next((words for test, words in _SPECIAL if test(info.st_mode)), "something else")
+        raise InputError(f"is not a regular file (it is {kind})", str(path))
+    return info

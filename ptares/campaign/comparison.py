@@ -75,21 +75,24 @@ def _chunks(model, draws: np.ndarray, patterns, workers: int) -> list:
 @dataclass
 class Comparison:
     """``content`` of ``comparison.json``; the uncorrelated posterior's ``draws`` (n, parameters), each pattern's
-    ``log_weights`` (ln L_pattern - ln L_U) at them and normalised ``weights``, and ``direct``: the draws of each
-    pattern fitted directly."""
+    ``log_weights`` (ln L_pattern - ln L_U) at them, and ``direct``: the draws of each pattern fitted directly."""
 
     content: dict
     draws: np.ndarray
-    weights: dict
     log_weights: dict
     direct: dict = field(default_factory=dict)
+
+    @property
+    def weights(self) -> dict:
+        """Each pattern's normalised weights of the uncorrelated draws."""
+        return {p: reweight(w).weights for p, w in self.log_weights.items()}
 
     def posterior_draws(self, pattern: str):
         """``(draws, normalised weights)`` of the pattern's posterior: its direct fit's, else the reweighted ones."""
         if pattern in self.direct:
             draws = self.direct[pattern]
             return draws, np.full(len(draws), 1.0 / len(draws))
-        return self.draws, self.weights[pattern]
+        return self.draws, reweight(self.log_weights[pattern]).weights
 
 
 def _thinned(chain: np.ndarray, fit_summary: dict, count: int, seed: int) -> tuple:
@@ -162,7 +165,7 @@ def compare_models(model, chain: np.ndarray, fit_summary: dict, settings: Compar
                      "seed": seed},
     }
     _lead_with_hellings_downs(content)
-    return Comparison(content, draws, {p: r.weights for p, r in results.items()}, log_weights)
+    return Comparison(content, draws, log_weights)
 
 
 def _lead_with_hellings_downs(content: dict) -> None:

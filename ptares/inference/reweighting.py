@@ -97,11 +97,10 @@ def _effective(log_terms: np.ndarray) -> float:
     return float(scaled.sum() ** 2 / np.sum(scaled**2))
 
 
-def _log_mean_and_relative_variance(log_terms: np.ndarray):
-    """ln mean(t) and var(t) / (n mean(t)^2) (the variance of ln mean(t), delta method) from ln t."""
+def _relative_variance(log_terms: np.ndarray) -> float:
+    """var(t) / (n mean(t)^2), the variance of ln mean(t) by the delta method, from ln t."""
     scaled = np.exp(log_terms - log_terms.max())
-    mean = scaled.mean()
-    return float(np.log(mean) + log_terms.max()), float(scaled.var(ddof=1) / (scaled.size * mean * mean))
+    return float(scaled.var(ddof=1) / (scaled.size * scaled.mean() ** 2))
 
 
 def bridge(correlated_log_ratios, uncorrelated_log_ratios, start: float = 0.0, tolerance: float = 1e-10,
@@ -123,18 +122,21 @@ def bridge(correlated_log_ratios, uncorrelated_log_ratios, start: float = 0.0, t
         if values.ndim != 1 or values.size < 2 or not np.all(np.isfinite(values)):
             raise ValueError("bridge sampling needs at least two finite log ratios from each posterior")
     log_s1, log_s2 = np.log(one.size / (one.size + two.size)), np.log(two.size / (one.size + two.size))
+
+    def terms(log_r):
+        """ln of the bridge's terms: f = w / (s1 w + s2 r) at the uncorrelated draws, g = 1 / (s1 w + s2 r) at the others."""
+        return two - np.logaddexp(log_s1 + two, log_s2 + log_r), -np.logaddexp(log_s1 + one, log_s2 + log_r)
+
     log_r = float(start)
     for iteration in range(1, max_iterations + 1):
-        numerator = two - np.logaddexp(log_s1 + two, log_s2 + log_r)
-        denominator = -np.logaddexp(log_s1 + one, log_s2 + log_r)
-        updated = _log_mean_and_relative_variance(numerator)[0] - _log_mean_and_relative_variance(denominator)[0]
+        numerator, denominator = terms(log_r)
+        updated = float(logsumexp(numerator) - np.log(numerator.size) - logsumexp(denominator) + np.log(denominator.size))
         converged = abs(updated - log_r) < tolerance
         log_r = updated
         if converged:
             break
-    numerator = two - np.logaddexp(log_s1 + two, log_s2 + log_r)
-    denominator = -np.logaddexp(log_s1 + one, log_s2 + log_r)
-    variance = _log_mean_and_relative_variance(numerator)[1] + _log_mean_and_relative_variance(denominator)[1]
+    numerator, denominator = terms(log_r)
+    variance = _relative_variance(numerator) + _relative_variance(denominator)
     return Bridge(log_r, float(np.sqrt(variance)), _effective(denominator), _effective(numerator), int(one.size),
                   int(two.size), iteration)
 

@@ -36,7 +36,7 @@ from pydantic import (
     model_validator,
 )
 
-from ptares.errors import InputError, PhysicsWarning
+from ptares.errors import InputError, PhysicsWarning, regular_file
 from ptares.limits import FILE_LIMIT, MAX_TOAS, MAX_TOTAL_TOAS, NAME_PATTERN, NESTING_LIMIT
 from ptares.inputs.units import parse_dec, parse_number, parse_ra, to_unit
 from ptares.version import renamed
@@ -930,31 +930,10 @@ def load_correlate_section(path) -> CorrelateSection:
     return load_section(path, "correlate", CorrelateSection)
 
 
-def _kind_of(mode: int) -> str | None:
-    """What a file that is not a regular file is, in words (None for a regular file)."""
-    import stat
-
-    for test, words in ((stat.S_ISDIR, "a directory"), (stat.S_ISFIFO, "a pipe"), (stat.S_ISCHR, "a character device"),
-                        (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket")):
-        if test(mode):
-            return words
-    return None if stat.S_ISREG(mode) else "not a regular file"
-
-
 def read_bytes(path, limit: int = FILE_LIMIT) -> bytes:
     """The bytes of the regular file at ``path``, at most ``limit``; a missing, special, unreadable or
     too large file is an :class:`InputError` naming it (a stream such as /dev/zero is never read)."""
-    import os
-
-    try:
-        info = os.stat(path)
-    except FileNotFoundError:
-        raise InputError("file not found", str(path)) from None
-    except OSError as exc:
-        raise InputError(f"cannot read file ({exc.strerror or exc})", str(path)) from None
-    kind = _kind_of(info.st_mode)
-    if kind is not None:
-        raise InputError(f"is {kind}, not a file", str(path))
+    info = regular_file(path)
     if info.st_size > limit:
         raise InputError(f"is {info.st_size / 2**20:.0f} MiB, more than ptares reads ({limit / 2**20:.0f} MiB)", str(path))
     try:
