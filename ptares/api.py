@@ -487,6 +487,15 @@ def _simulated(config: Config, out: Path | None, overwrite: bool, verbose: bool)
     return dataset
 
 
+def _check_fit_settings(config: Config, section: FitSection) -> None:
+    """Check ``[fit]`` against the dataset ``config`` would give (its pulsars, noise and signals, no signal drawn),
+    so that a refused setting costs no simulation."""
+    from ptares.inference.model import FitModel
+    from ptares.simulation.simulate import outline
+
+    FitModel(outline(config), section)
+
+
 def _keep_dataset(dataset: Dataset, out: Path, overwrite: bool) -> None:
     """Write the simulated ``dataset`` to ``out/dataset.h5`` unless it is there; another dataset there is an error
     (its results would be mixed with this one's) unless ``overwrite``."""
@@ -533,6 +542,7 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
         # chains.h5 is resumed, not overwritten; the other outputs are rewritten at the end of every run
         out = check_output_directory(out, True)
     if dataset is None:
+        _check_fit_settings(config, section)
         dataset = _simulated(config, out, overwrite, verbose)
     model = FitModel(dataset, section)
 
@@ -651,6 +661,7 @@ def compare(source, out=None, *, settings=None, fit_options=None, scheduler=None
         client = dask_client(scheduler)
     try:
         if dataset is None:
+            _check_fit_settings(config, fit_section)
             dataset = _simulated(config, out, overwrite, verbose)
         model = FitModel(dataset, fit_section)  # the [fit] settings are checked before anything is written
         if config is not None and out is not None:

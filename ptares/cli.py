@@ -7,7 +7,9 @@ with status 2; nothing is written for a run that fails its checks.
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
+import threading
 import warnings
 from pathlib import Path
 
@@ -313,20 +315,37 @@ def _one_line_warning(message, category, filename, lineno, file=None, line=None)
 
 
 def main(argv=None) -> int:
+    """Run one command; the exit status: 0 done, 2 bad input, 130 interrupted (Ctrl-C), 143 terminated (SIGTERM).
+
+    SIGTERM (``kill``, a batch system's time limit) is handled like Ctrl-C: temporary files are
+    removed, finished work (chains, campaign tasks) is kept, and the same command resumes.
+    """
     warnings.showwarning = _one_line_warning
     args = build_parser().parse_args(argv)
+    terminated = []
+
+    def stop(signum, frame):
+        terminated.append(signum)
+        raise KeyboardInterrupt
+
+    previous = None
+    if threading.current_thread() is threading.main_thread():
+        previous = signal.signal(signal.SIGTERM, stop)
     token = COMMAND_LINE.set(True)  # messages name options as --flags
     try:
         with thread_limits(args.threads):
-            return args.run(args)
+            code = args.run(args)
     except InputError as exc:
         print(f"ptares: error: {exc.line()}", file=sys.stderr)
-        return 2
+        code = 2
     except KeyboardInterrupt:
         print("ptares: interrupted; nothing was written for the unfinished step", file=sys.stderr)
-        return 130
+        code = 130
     finally:
         COMMAND_LINE.reset(token)
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+    return 128 + signal.SIGTERM if terminated and code == 130 else code
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -149,3 +149,51 @@ def test_check_says_a_sweep_file_is_a_campaign(tmp_path, capsys):
     sweep.write_text(CAMPAIGN.replace("BAD", "2e-15"))
     assert main(["check", str(sweep)]) == 0
     assert "sweep      a campaign file: 4 tasks over gwb.amplitude (2 values), 2 realisations each" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("command", ["fit", "compare"])
+@pytest.mark.parametrize("fit_table, words", [
+    ('fixed = { "Zz:red_lg_amplitude" = -14 }', "fit.fixed.Zz:red_lg_amplitude: the model has no parameter"),
+    ('pulsars = ["Aa", "Zz"]', "fit.pulsars: the dataset has no pulsar(s) Zz"),
+    ("priors = { white_scale = { uniform = [0.5, 2.0] } }", "fit.priors.white_scale: 'white_scale' is not a free parameter"),
+])
+def test_fit_settings_of_a_config_are_checked_before_it_is_simulated(tmp_path, capsys, monkeypatch, command,
+                                                                      fit_table, words):
+    """A [fit] the model refuses costs no simulation: simulating would fail this test."""
+    def no_simulation(*args, **kwargs):
+        raise AssertionError("simulated before checking [fit]")
+
+    monkeypatch.setattr("ptares.simulation.simulate.simulate", no_simulation)
+    config = tmp_path / "fit.toml"
+    config.write_text(SMALL_TOML + f"\n[fit]\n{fit_table}\n")
+    out = tmp_path / "out"
+    _refused(capsys, [command, config, "--out", out], words, out=out)
+
+
+def test_terminated_while_writing_leaves_no_temporary_file(tmp_path, capsys, monkeypatch):
+    """SIGTERM (a batch system's time limit) in the middle of writing dataset.h5: exit status 143, no dataset.h5
+    and no half-written temporary file beside it."""
+    import signal
+    import threading
+
+    import h5py
+
+    if threading.current_thread() is not threading.main_thread():
+        pytest.skip("signal handlers are installed only in the main thread")
+    real = h5py.File
+
+    def terminated_on_write(name, mode="r", *args, **kwargs):
+        handle = real(name, mode, *args, **kwargs)
+        if mode == "w":
+            handle.close()
+            os.kill(os.getpid(), signal.SIGTERM)
+        return handle
+
+    monkeypatch.setattr(h5py, "File", terminated_on_write)
+    config = tmp_path / "small.toml"
+    config.write_text(SMALL_TOML)
+    out = tmp_path / "out"
+    assert main(["simulate", str(config), "--out", str(out), "--no-figures"]) == 143
+    assert capsys.readouterr().err.count("\n") == 1
+    assert not out.exists() or list(out.iterdir()) == []
+    assert signal.getsignal(signal.SIGTERM) is not None

@@ -23,7 +23,7 @@ from ptares.simulation.signals import Context, build_components
 from ptares.simulation.signals.white import effective_uncertainties
 from ptares.version import __version__
 
-__all__ = ["simulate", "run_seed", "import_tables", "config_tables"]
+__all__ = ["simulate", "outline", "run_seed", "import_tables", "config_tables"]
 
 
 def config_tables(config: Config, columns: int, need_residuals: bool, need_signals: bool = False):
@@ -73,13 +73,8 @@ def run_seed(config: Config) -> int:
     return config.run.seed if config.run.seed is not None else fresh_seed()
 
 
-def simulate(config: Config, seed: int | None = None, progress: bool = False) -> Dataset:
-    """Simulate the array described by ``config``.
-
-    ``seed`` overrides ``[run] seed``; with neither, a fresh seed is drawn and
-    recorded in the dataset.  ``progress`` shows a bar over the components.
-    """
-    seed = run_seed(config) if seed is None else int(seed)
+def _setup(config: Config, seed: int):
+    """The resolved pulsars, their TOAs, the drawing context, the components and the tables of ``config``."""
     terms = config.timing_model.fit
     columns = column_names(terms)
     tables = config_tables(config, len(columns), need_residuals=config.array.mode == "inject")
@@ -91,28 +86,56 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
                 f"only {mjd.size} TOAs after jitter and gaps, not more than the {len(columns)} timing-model columns",
                 f"pulsar {p.name}",
             )
-
     context = Context(pulsars=tuple(pulsars), observations=observations, seed=seed)
     components = build_components(config, pulsars)
-    inject = tables is not None and config.array.mode == "inject"
-    if inject:  # measured residuals already hold the real noise: add signals only
+    if tables is not None and config.array.mode == "inject":  # measured residuals already hold the real noise: add signals only
         components = [c for c in components if c.name != "white"]
+    return pulsars, observations, context, components, tables
+
+
+def outline(config: Config, seed: int | None = None) -> Dataset:
+    """The dataset :func:`simulate` would give, without drawing any signal: the same pulsars, TOAs, errors,
+    noise values and signal descriptions, with zero residuals.  Cheap; for checking fit settings against a
+    config before simulating it."""
+    seed = run_seed(config) if seed is None else int(seed)
+    pulsars, observations, context, components, tables = _setup(config, seed)
+    zeros = [np.zeros(mjd.size) for mjd in observations.mjd]
+    designs = [design_matrix(mjd, config.timing_model.fit) for mjd in observations.mjd]
+    return _dataset(config, seed, pulsars, observations, context, components, designs, zeros, {}, tables)
+
+
+def simulate(config: Config, seed: int | None = None, progress: bool = False) -> Dataset:
+    """Simulate the array described by ``config``.
+
+    ``seed`` overrides ``[run] seed``; with neither, a fresh seed is drawn and
+    recorded in the dataset.  ``progress`` shows a bar over the components.
+    """
+    seed = run_seed(config) if seed is None else int(seed)
+    pulsars, observations, context, components, tables = _setup(config, seed)
     injected = {}
     for component in tqdm(components, desc="simulating", unit="signal", disable=None if progress else True, leave=False):
         injected[component.name] = component.draw(context)
         if not all(np.all(np.isfinite(series)) for series in injected[component.name]):
             raise InputError("produced non-finite residuals; check its amplitude and spectral index", f"signal {component.name}")
 
-    data = []
+    inject = tables is not None and config.array.mode == "inject"
+    residuals = []
+    designs = [design_matrix(mjd, config.timing_model.fit) for mjd in observations.mjd]
     for a, p in enumerate(pulsars):
         mjd, errors = observations.mjd[a], observations.toa_errors[a]
-        design = design_matrix(mjd, terms)
         total = np.sum([injected[name][a] for name in injected], axis=0) if injected else np.zeros(mjd.size)
         weights = effective_uncertainties(errors, p.white_scale, p.white_quadrature)
-        residuals, _ = fit_timing_model(total, design, weights)
-        measured = tables.residuals[p.name] if inject else None
-        if inject:  # the measured part is kept exactly; only the injected signals pass through the fit
-            residuals = measured + residuals
+        fitted, _ = fit_timing_model(total, designs[a], weights)
+        # an injection keeps the measured part exactly; only the injected signals pass through the fit
+        residuals.append(tables.residuals[p.name] + fitted if inject else fitted)
+    return _dataset(config, seed, pulsars, observations, context, components, designs, residuals, injected, tables)
+
+
+def _dataset(config, seed, pulsars, observations, context, components, designs, residuals, injected, tables) -> Dataset:
+    columns = column_names(config.timing_model.fit)
+    inject = tables is not None and config.array.mode == "inject"
+    data = []
+    for a, p in enumerate(pulsars):
         data.append(
             PulsarData(
                 name=p.name,
@@ -120,13 +143,13 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
                 dec=p.dec,
                 distance=p.distance,
                 distance_error=p.distance_error,
-                mjd=mjd,
-                residuals=residuals,
-                errors=errors,
-                design_matrix=design,
+                mjd=observations.mjd[a],
+                residuals=residuals[a],
+                errors=observations.toa_errors[a],
+                design_matrix=designs[a],
                 design_columns=columns,
                 injected={name: series[a] for name, series in injected.items()},
-                measured=measured,
+                measured=tables.residuals[p.name] if inject else None,
                 noise={
                     "white_scale": p.white_scale,
                     "white_quadrature": p.white_quadrature,
