@@ -878,33 +878,34 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
 
 
 def describe(config) -> str:
-    """A few lines on what ``config`` (a file, dict or Config) will simulate: pulsars, TOAs, span, signals.
+    """A few lines on what ``config`` (a file, dict or Config) will simulate: pulsars, TOAs, span, signals,
+    and the free parameters of its ``[fit]`` when it has one (checked as ``fit`` would check it).
 
     Nothing is simulated: the array and its schedules are drawn, the signals only described.
     """
     config = config_from(config)
-    from ptares.physics.timing_model import column_names
-    from ptares.simulation.array import build_array, observe
-    from ptares.simulation.signals import Context, build_components
-    from ptares.simulation.simulate import config_tables, run_seed
+    from ptares.simulation.simulate import outline
 
-    seed = run_seed(config)
-    tables = config_tables(config, len(column_names(config.timing_model.fit)), config.array.mode == "inject")
-    pulsars = build_array(config, seed, tables)
-    observations = observe(pulsars, seed, tables, config.array.window)
-    context = Context(pulsars=tuple(pulsars), observations=observations, seed=seed)
-    counts = [m.size for m in observations.mjd]
+    dataset = outline(config)
+    counts = [p.mjd.size for p in dataset.pulsars]
+    kind = "random isotropic" if config.array.random else \
+        f"tables, {config.array.mode} mode" if config.array.table is not None else "listed"
     lines = [
         f"run        {config.run.name} (seed {config.run.seed if config.run.seed is not None else 'fresh each run'})",
-        f"pulsars    {len(pulsars)} ("
-        + ("random isotropic" if config.array.random else f"tables, {config.array.mode} mode" if tables else "listed") + ")",
+        f"pulsars    {len(counts)} ({kind})",
         f"TOAs       {sum(counts)} in all, {min(counts)} to {max(counts)} per pulsar",
-        f"span       {observations.span / 86400 / 365.25:.2f} yr from MJD {observations.start:.1f}",
+        f"span       {dataset.span / 86400 / 365.25:.2f} yr from MJD {dataset.start_mjd:.1f}",
         f"timing fit {', '.join(config.timing_model.fit) or 'none'}",
     ]
-    red = sum(p.red_amplitude > 0 for p in pulsars)
-    for component in build_components(config, pulsars):
-        lines.append(f"signal     {describe_signal(component.name, component.describe(context), red)}")
+    red = sum(p.noise["red_amplitude"] > 0 for p in dataset.pulsars)
+    for name, description in dataset.signals.items():
+        lines.append(f"signal     {describe_signal(name, description, red)}")
+    if "fit" in config.model_fields_set:  # checked against the pulsars and signals, as fit and compare will
+        from ptares.inference.model import FitModel
+
+        model = FitModel(dataset, config.fit)
+        lines.append(f"fit        {model.ndim} free parameters ({', '.join(model.names[:4])}"
+                     f"{', ...' if model.ndim > 4 else ''})")
     if config.sweep is not None:
         lines.append(_describe_sweep(config))
     return "\n".join(lines)

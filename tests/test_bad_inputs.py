@@ -151,7 +151,7 @@ def test_check_says_a_sweep_file_is_a_campaign(tmp_path, capsys):
     assert "sweep      a campaign file: 4 tasks over gwb.amplitude (2 values), 2 realisations each" in capsys.readouterr().out
 
 
-@pytest.mark.parametrize("command", ["fit", "compare"])
+@pytest.mark.parametrize("command", ["fit", "compare", "check"])
 @pytest.mark.parametrize("fit_table, words", [
     ('fixed = { "Zz:red_lg_amplitude" = -14 }', "fit.fixed.Zz:red_lg_amplitude: the model has no parameter"),
     ('pulsars = ["Aa", "Zz"]', "fit.pulsars: the dataset has no pulsar(s) Zz"),
@@ -167,7 +167,15 @@ def test_fit_settings_of_a_config_are_checked_before_it_is_simulated(tmp_path, c
     config = tmp_path / "fit.toml"
     config.write_text(SMALL_TOML + f"\n[fit]\n{fit_table}\n")
     out = tmp_path / "out"
-    _refused(capsys, [command, config, "--out", out], words, out=out)
+    _refused(capsys, [command, config] + ([] if command == "check" else ["--out", out]), words, out=out)
+
+
+def test_check_counts_the_free_parameters_of_a_fit_table(tmp_path, capsys):
+    config = tmp_path / "fit.toml"
+    config.write_text(SMALL_TOML + '\n[fit]\nred = "free"\n')
+    assert main(["check", str(config)]) == 0
+    # 3 pulsars x (red amplitude, red index) + the common amplitude and index
+    assert "fit        8 free parameters" in capsys.readouterr().out
 
 
 def test_terminated_while_writing_leaves_no_temporary_file(tmp_path, capsys, monkeypatch):
