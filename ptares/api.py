@@ -897,6 +897,8 @@ def describe(config) -> str:
         f"span       {dataset.span / 86400 / 365.25:.2f} yr from MJD {dataset.start_mjd:.1f}",
         f"timing fit {', '.join(config.timing_model.fit) or 'none'}",
     ]
+    if dataset.radio_summary():
+        lines.append(f"radio      {dataset.radio_summary()}")
     red = sum(p.noise["red_amplitude"] > 0 for p in dataset.pulsars)
     for name, description in dataset.signals.items():
         lines.append(f"signal     {describe_signal(name, description, red)}")

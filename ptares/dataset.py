@@ -58,6 +58,13 @@ class PulsarData:
     injected: dict = field(default_factory=dict)  #: component name -> (n,) s, before the fit
     noise: dict = field(default_factory=dict)  #: injected noise parameters
     measured: np.ndarray | None = None  #: s, residuals taken from a table (inject mode and imports)
+    frequency_mhz: np.ndarray | None = None  #: MHz, the radio frequency of each TOA (None: not recorded)
+    system: np.ndarray | None = None  #: the observing system (receiver and backend) of each TOA, by name
+
+    @property
+    def systems(self) -> list:
+        """The observing systems of this pulsar's TOAs, in order of first use (empty when not recorded)."""
+        return [] if self.system is None else list(dict.fromkeys(str(s) for s in self.system))
 
     @property
     def position(self) -> np.ndarray:
@@ -113,6 +120,20 @@ class Dataset:
         """TOAs of all pulsars together."""
         return sum(p.toa_count for p in self.pulsars)
 
+    def radio_summary(self) -> str:
+        """The recorded radio frequencies and observing systems in a few words ("" when none are recorded)."""
+        frequencies = [p.frequency_mhz for p in self.pulsars if p.frequency_mhz is not None]
+        systems = list(dict.fromkeys(s for p in self.pulsars for s in p.systems))
+        if not frequencies:
+            return ""
+        low, high = min(float(np.min(f)) for f in frequencies), max(float(np.max(f)) for f in frequencies)
+        words = f"{low:g} MHz" if low == high else f"{low:g} to {high:g} MHz"
+        if len(frequencies) < len(self.pulsars):
+            words += f" (recorded for {len(frequencies)} of {len(self.pulsars)} pulsars)"
+        if systems:
+            words += f"; systems {', '.join(systems[:6])}{', ...' if len(systems) > 6 else ''}"
+        return words
+
     def __repr__(self) -> str:
         """A few lines: pulsars, TOAs, span, MJD range, seed and the injected signals; never the arrays."""
         counts = [p.toa_count for p in self.pulsars]
@@ -127,6 +148,9 @@ class Dataset:
         names = self.names
         if names:
             lines.append(f"  pulsars {', '.join(names[:5])}{', ...' if len(names) > 5 else ''}")
+        radio = self.radio_summary()
+        if radio:
+            lines.append(f"  radio {radio}")
         red = sum(1 for p in self.pulsars if float(p.noise.get("red_amplitude", 0.0) or 0.0) > 0.0)
         described = [describe_signal(name, values, red) for name, values in self.signals.items()]
         lines.append("  signals " + ("; ".join(described) if described else "none recorded"))
@@ -146,6 +170,9 @@ def describe_signal(name: str, values: dict, red_pulsars: int = 0) -> str:
     frequencies = f", {int(values['harmonics'])} frequencies" if "harmonics" in values else ""
     if name == "red":
         return f"red noise in {red_pulsars} pulsars{frequencies}"
+    if name in ("dispersion", "scattering"):
+        return (f"{name} noise in {int(values.get('pulsars', 0))} pulsars{frequencies}, stated at "
+                f"{float(values.get('reference_frequency_mhz', float('nan'))):g} MHz")
     if name == "gwb":
         words = f"background A = {float(values.get('amplitude', float('nan'))):.3g}"
         if "spectral_index" in values:
@@ -230,6 +257,10 @@ def fingerprint(dataset: Dataset) -> str:
         digest.update(np.array([p.ra, p.dec, p.distance, p.distance_error], dtype=float).tobytes())
         for array in (p.mjd, p.residuals, p.errors, p.design_matrix):
             digest.update(np.ascontiguousarray(array, dtype=float).tobytes())
+        if p.frequency_mhz is not None:
+            digest.update(np.ascontiguousarray(p.frequency_mhz, dtype=float).tobytes())
+        if p.system is not None:
+            digest.update("\n".join(str(s) for s in p.system).encode())
         digest.update(json.dumps(_json_safe(p.noise), sort_keys=True).encode())
     signals = {name: {k: v for k, v in values.items() if not isinstance(v, np.ndarray)} for name, values in dataset.signals.items()}
     digest.update(json.dumps(_json_safe(signals), sort_keys=True, default=str).encode())
@@ -259,6 +290,11 @@ def write_dataset(dataset: Dataset, path) -> Path:
                 g["design_matrix"].attrs["columns"] = list(p.design_columns)
                 if p.measured is not None:
                     g["measured"] = p.measured
+                if p.frequency_mhz is not None:
+                    g["frequency_mhz"] = np.asarray(p.frequency_mhz, dtype=float)
+                    g["frequency_mhz"].attrs["unit"] = "MHz"
+                if p.system is not None:
+                    g["system"] = np.array([str(s).encode() for s in p.system], dtype=f"S{SYSTEM_NAME_BYTES}")
                 injected = g.create_group("injected", track_order=True)
                 for name, values in p.injected.items():
                     injected[name] = values
@@ -286,6 +322,8 @@ def _plain(value):
     return value
 
 
+#: Longest observing-system name, in bytes (names follow the rule of pulsar names).
+SYSTEM_NAME_BYTES = 64
 #: The arrays every pulsar group holds, with their number of dimensions.
 PULSAR_ARRAYS = (("mjd", 1), ("residuals", 1), ("errors", 1), ("design_matrix", 2))
 #: Attributes of the file and of every pulsar group that the loader reads as numbers.
@@ -403,6 +441,22 @@ def _checked_array(group: h5py.Group, key: str, dimensions: int, owner: str, pat
     return array
 
 
+def _text_array(group: h5py.Group, key: str, owner: str, path: str) -> h5py.Dataset:
+    """The 1-D array of names ``key`` of ``group``, refused unless it holds byte strings of at most
+    :data:`SYSTEM_NAME_BYTES`."""
+    array = _member(group, key, path)
+    if not isinstance(array, h5py.Dataset) or array.shape is None:
+        raise InputError(f"{owner}'{key}' is not an array of names", path)
+    try:
+        dtype = array.dtype
+    except TypeError:
+        raise InputError(f"{owner}{key} holds values of a type ptares cannot read", path) from None
+    if dtype.kind != "S" or dtype.itemsize > SYSTEM_NAME_BYTES or array.ndim != 1:
+        raise InputError(f"{owner}{key} holds {_what_it_holds(dtype)} of shape {array.shape}; expected a 1-D array "
+                         f"of names of at most {SYSTEM_NAME_BYTES} bytes", path)
+    return array
+
+
 def _pulsar_arrays(name: str, group, path: str) -> dict:
     """``{key: h5py.Dataset}`` of one pulsar group (``injected/<component>`` keyed by that path),
     each checked for type, dimensions and length before any is read."""
@@ -413,8 +467,11 @@ def _pulsar_arrays(name: str, group, path: str) -> dict:
     if not isinstance(group, h5py.Group):
         raise InputError(f"{owner}is an array, not a group", path)
     arrays = {key: _checked_array(group, key, dimensions, owner, path) for key, dimensions in PULSAR_ARRAYS}
-    if _member(group, "measured", path) is not None:
-        arrays["measured"] = _checked_array(group, "measured", 1, owner, path)
+    for key in ("measured", "frequency_mhz"):
+        if _member(group, key, path) is not None:
+            arrays[key] = _checked_array(group, key, 1, owner, path)
+    if _member(group, "system", path) is not None:
+        arrays["system"] = _text_array(group, "system", owner, path)
     injected = _member(group, "injected", path)
     if injected is not None:
         if not isinstance(injected, h5py.Group):
@@ -441,9 +498,10 @@ def _check_values(name: str, key: str, values: np.ndarray, path: str) -> None:
         index = tuple(int(i) for i in np.argwhere(~finite)[0])
         raise InputError(f"{owner}{key}[{', '.join(map(str, index))}] is {_words(values[index])}; values must be finite",
                          path)
-    if key == "errors" and np.any(values <= 0):
+    if key in ("errors", "frequency_mhz") and np.any(values <= 0):
         index = int(np.flatnonzero(values <= 0)[0])
-        raise InputError(f"{owner}errors[{index}] is {float(values[index])}; TOA errors must be positive", path)
+        what = "TOA errors" if key == "errors" else "radio frequencies"
+        raise InputError(f"{owner}{key}[{index}] is {float(values[index])}; {what} must be positive", path)
     if key == "mjd" and np.any(np.diff(values) < 0):
         index = int(np.flatnonzero(np.diff(values) < 0)[0]) + 1
         raise InputError(f"{owner}mjd is not in time order (mjd[{index}] = {float(values[index])!r} comes after "
@@ -462,6 +520,9 @@ def _read_pulsar(name: str, group: h5py.Group, arrays: dict, path: str) -> Pulsa
         raise InputError(f"{owner}distance_error is {place['distance_error']} kpc; it must not be negative", path)
     values = {}
     for key, array in arrays.items():
+        if key == "system":
+            values[key] = _system_names(array[()], owner, path)
+            continue
         values[key] = np.asarray(array[()], dtype=float)
         _check_values(name, key, values[key], path)
     columns = _plain(arrays["design_matrix"].attrs.get("columns", []))
@@ -479,8 +540,24 @@ def _read_pulsar(name: str, group: h5py.Group, arrays: dict, path: str) -> Pulsa
         mjd=values["mjd"], residuals=values["residuals"], errors=values["errors"],
         design_matrix=values["design_matrix"], design_columns=columns,
         injected={key.split("/", 1)[1]: v for key, v in values.items() if key.startswith("injected/")},
-        noise=noise, measured=values.get("measured"),
+        noise=noise, measured=values.get("measured"), frequency_mhz=values.get("frequency_mhz"),
+        system=values.get("system"),
     )
+
+
+def _system_names(raw: np.ndarray, owner: str, path: str) -> np.ndarray:
+    """Observing-system names (bytes from the file) as text, each held to the rule of names."""
+    names = {}
+    for value in np.unique(raw):
+        try:
+            text = value.decode("utf-8")
+        except UnicodeDecodeError:
+            raise InputError(f"{owner}system holds a name that is not UTF-8 text", path) from None
+        if not NAME_PATTERN.fullmatch(text):
+            raise InputError(f"{owner}system name {text!r} is not 1-64 letters, digits, '_', '+', '-', '.' starting "
+                             "with a letter or digit", path)
+        names[value] = text
+    return np.array([names[v] for v in raw], dtype=object).astype(str)
 
 
 def _signal_arrays(f: h5py.File, path: str) -> dict:

@@ -45,7 +45,7 @@ from scipy.linalg import lapack as _lapack
 from ptares.errors import InputError
 from ptares.limits import MEMORY_LIMIT
 from ptares.physics.patterns import correlation_matrix
-from ptares.physics.spectra import coefficient_variance, fourier_basis
+from ptares.physics.spectra import chromatic_scale, coefficient_variance, fourier_basis
 
 __all__ = ["Likelihood", "NotPositiveDefinite", "Projected", "PATTERN_FLOOR"]
 
@@ -151,6 +151,11 @@ class Likelihood:
     dataset : :class:`ptares.dataset.Dataset`
     harmonics : frequencies of the common process (k/T, k = 1..harmonics).
     red_harmonics : frequencies of each pulsar's red noise (0: no red noise).
+    chromatic : chromatic processes, ``(name, harmonics, chromatic index)`` each (``"dispersion"``, 30, 2.0; the
+        index one number or one per pulsar):
+        columns of the basis scaled per TOA by ``(1400 MHz / nu)^chi`` (PHYSICS.md, "Radio frequency and
+        chromatic noise"), after the achromatic ones, with their own power law per pulsar.  Every pulsar
+        needs recorded radio frequencies.
     correlated : the common process's correlation pattern across pulsars: ``"hellings-downs"``
         (or True), ``"monopole"``, ``"dipole"``, or False / None for an uncorrelated one.
         A monopole or dipole pattern has a singular correlation matrix (rank 1 and 3), so
@@ -159,20 +164,29 @@ class Likelihood:
 
     :meth:`__call__` takes per-pulsar arrays ``white_scale``, ``white_quadrature`` (s),
     ``red_amplitude``, ``red_spectral_index``, the common ``amplitude`` and ``gamma``, and an
-    optional ``signal`` (list of per-pulsar residuals, s) subtracted first;
+    optional ``signal`` (list of per-pulsar residuals, s) subtracted first, and ``chromatic``: per process
+    name, (amplitudes (P,), spectral indices (P,)) (a process left out, or an amplitude 0, is absent);
     :meth:`draw_coefficients` takes the same and draws the Fourier coefficients given them.
     """
 
-    def __init__(self, dataset, harmonics: int, red_harmonics: int, correlated):
+    def __init__(self, dataset, harmonics: int, red_harmonics: int, correlated, chromatic=()):
         self.span = dataset.span
         self.harmonics = int(harmonics)
         self.red_harmonics = int(red_harmonics)
-        self.size = 2 * max(self.harmonics, self.red_harmonics)
+        self.size = 2 * max(self.harmonics, self.red_harmonics)  #: achromatic columns (sine, cosine of k/T)
+        count = len(dataset.pulsars)
+        self.chromatic = tuple((str(name), int(k), np.broadcast_to(np.asarray(chi, dtype=float), (count,)))
+                               for name, k, chi in chromatic)
+        #: columns of each chromatic process, after the achromatic ones
+        self.chromatic_columns = {}
+        self.width = self.size  #: all columns of the basis
+        for name, k, _ in self.chromatic:
+            self.chromatic_columns[name] = slice(self.width, self.width + 2 * k)
+            self.width += 2 * k
         self.pattern = "hellings-downs" if correlated is True else (correlated or None)
         self.correlated = self.pattern is not None
-        count = len(dataset.pulsars)
         # the per-pulsar F^T N'^-1 F, and for Hellings-Downs the dense core S over the common columns
-        per_pulsar = count * self.size**2 * 8
+        per_pulsar = count * self.width**2 * 8
         core = (count * 2 * self.harmonics) ** 2 * 8 if self.correlated else 0
         if max(core, per_pulsar) > MEMORY_LIMIT:
             if core >= per_pulsar:
@@ -187,12 +201,21 @@ class Likelihood:
             if design.shape[1] and np.linalg.matrix_rank(design) < design.shape[1]:
                 raise InputError("the timing-model design matrix is rank-deficient (repeated or dependent columns)",
                                  f"dataset pulsar {p.name}")
+            basis = fourier_basis(times, self.span, self.size // 2)
+            if self.chromatic:
+                if p.frequency_mhz is None:
+                    raise InputError("has no radio frequencies; chromatic noise cannot be modelled",
+                                     f"dataset pulsar {p.name}")
+                index = len(self.pulsars)
+                basis = np.hstack([basis] + [fourier_basis(times, self.span, k)
+                                             * chromatic_scale(p.frequency_mhz, chi[index])[:, None]
+                                             for _, k, chi in self.chromatic])
             self.pulsars.append(
                 _Pulsar(
                     residuals=p.residuals,
                     errors=p.errors,
                     design=design,
-                    basis=fourier_basis(times, self.span, self.size // 2),
+                    basis=basis,
                     times=times,
                     log_det_mtm=float(np.linalg.slogdet(design.T @ design)[1]) if design.shape[1] else 0.0,
                 )
@@ -245,51 +268,59 @@ class Likelihood:
             self._white_cache[key] = result
         return result
 
-    def _spectra(self, red_amplitude, red_spectral_index, amplitude, gamma):
-        """Per-pulsar red variances (P, 2Kb) and the common variances (2Kb,), zero beyond each basis."""
-        red = np.zeros((len(self.pulsars), self.size))
+    def _spectra(self, red_amplitude, red_spectral_index, amplitude, gamma, chromatic=None):
+        """Per-pulsar variances of their own processes (P, width: red noise, then each chromatic process) and
+        the common variances (width,), zero beyond each process's columns."""
+        red = np.zeros((len(self.pulsars), self.width))
+        for name, k, _ in self.chromatic:
+            amplitudes, indices = (chromatic or {}).get(name, (np.zeros(len(self.pulsars)), None))
+            for a in np.flatnonzero(np.asarray(amplitudes) > 0):
+                red[a, self.chromatic_columns[name]] = np.repeat(
+                    coefficient_variance(self.span, k, amplitudes[a], indices[a]), 2)
         if self.red_harmonics:
             for a in range(len(self.pulsars)):
                 if red_amplitude[a] > 0:
                     red[a, : 2 * self.red_harmonics] = np.repeat(
                         coefficient_variance(self.span, self.red_harmonics, red_amplitude[a], red_spectral_index[a]), 2
                     )
-        common = np.zeros(self.size)
+        common = np.zeros(self.width)
         if amplitude > 0 and self.harmonics:
             common[: 2 * self.harmonics] = np.repeat(coefficient_variance(self.span, self.harmonics, amplitude, gamma), 2)
         return red, common
 
     # --- the likelihood -------------------------------------------------------
     def __call__(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
-                 signal=None) -> float:
-        return self.evaluate(white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude, gamma, signal)[0]
+                 signal=None, chromatic=None) -> float:
+        return self.evaluate(white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude, gamma, signal,
+                             chromatic)[0]
 
     def evaluate(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
-                 signal=None):
+                 signal=None, chromatic=None):
         """``(log likelihood, factors)``: the factors let :meth:`draw_coefficients` draw at the same
         parameters without factorising again."""
         pieces = self._pieces(white_scale, white_quadrature, signal)
-        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
+        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic)
         constant = sum(-0.5 * (piece.log_det + piece.dof * _LOG_2PI) - 0.5 * piece.rNr for piece in pieces)
         factors = self._factorise(pieces, red, common)
         return constant + 0.5 * factors.quadratic - 0.5 * factors.log_det, factors
 
     def draw_coefficients(self, rng, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0,
-                          gamma=13.0 / 3.0, signal=None, factors=None) -> np.ndarray:
-        """One draw of every pulsar's Fourier coefficients (P, size) in s from ``p(a | parameters, residuals)``.
+                          gamma=13.0 / 3.0, signal=None, factors=None, chromatic=None) -> np.ndarray:
+        """One draw of every pulsar's Fourier coefficients (P, width) in s from ``p(a | parameters, residuals)``.
 
         The timing model is marginalised: ``a ~ N(Sigma^-1 d, Sigma^-1)`` with
         ``Sigma = F^T N'^-1 F + Phi^-1`` and ``d = F^T N'^-1 r`` (PHYSICS.md, "Gibbs sampling").
-        Columns are those of the basis (sine and cosine of k/T interleaved, k = 1..size/2);
+        Columns are those of the basis (sine and cosine of k/T interleaved, k = 1..size/2, then each
+        chromatic process's);
         those with zero prior variance are 0.  ``rng`` is a :class:`numpy.random.Generator`;
         the other arguments are those of :meth:`__call__`, and ``factors`` those :meth:`evaluate`
         returned at the same parameters (else they are computed).
         """
         if factors is None:
             pieces = self._pieces(white_scale, white_quadrature, signal)
-            red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma)
+            red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic)
             factors = self._factorise(pieces, red, common)
-        coefficients = np.zeros((len(self.pulsars), self.size))
+        coefficients = np.zeros((len(self.pulsars), self.width))
         shared = None
         if factors.core is not None:  # the common columns from their marginal N(S^-1 d', S^-1): L_S^-T (L_S^-1 d' + z)
             noise = rng.standard_normal(factors.whitened.size)

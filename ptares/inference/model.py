@@ -25,6 +25,7 @@ from ptares.inference.likelihood import Likelihood, NotPositiveDefinite
 from ptares.inference.pulsar_noise import read_pulsar_noise
 from ptares.inference.parameters import (
     BINARY_QUANTITIES,
+    CHROMATIC,
     COMMON_AMPLITUDE,
     COMMON_INDEX,
     PER_PULSAR,
@@ -54,6 +55,8 @@ DEFAULT_PRIORS = {
     RED_INDEX: prior_module.Uniform(0.0, 7.0),
     WHITE_SCALE: prior_module.Uniform(0.1, 5.0),
     WHITE_QUADRATURE: prior_module.Uniform(-9.0, -4.0),
+    **{amplitude: prior_module.Uniform(-20.0, -11.0) for amplitude, _ in CHROMATIC.values()},
+    **{index: prior_module.Uniform(0.0, 7.0) for _, index in CHROMATIC.values()},
     binary("orbital_phase"): prior_module.Uniform(0.0, 2.0 * np.pi),
     binary("inclination_cosine"): prior_module.Uniform(-1.0, 1.0),
     binary("polarization_angle"): prior_module.Uniform(0.0, np.pi),
@@ -66,6 +69,8 @@ VALID = {
     COMMON_AMPLITUDE: (-np.inf, -9.0), RED_AMPLITUDE: (-np.inf, -9.0), binary("lg_strain"): (-np.inf, -9.0),
     COMMON_INDEX: (-10.0, 10.0), RED_INDEX: (-10.0, 10.0),
     WHITE_SCALE: (1e-6, 1e3), WHITE_QUADRATURE: (-np.inf, -2.0),
+    **{amplitude: (-np.inf, -9.0) for amplitude, _ in CHROMATIC.values()},
+    **{index: (-10.0, 10.0) for _, index in CHROMATIC.values()},
     binary("orbital_phase"): (-1e6, 1e6), binary("inclination_cosine"): (-1.0, 1.0), binary("polarization_angle"): (-1e6, 1e6),
     binary("right_ascension"): (-1e6, 1e6), binary("declination_sine"): (-1.0, 1.0), binary("lg_frequency"): (-10.0, -5.0),
 }
@@ -128,6 +133,16 @@ def _check_support(prior, key: str, where: str) -> None:
                          where)
 
 
+#: Chromatic index of each process where a pulsar records none (PHYSICS.md: 2 for dispersion, 4 for scattering).
+CHROMATIC_DEFAULT_INDEX = {"dispersion": 2.0, "scattering": 4.0}
+
+
+def _chromatic_indices(dataset: Dataset, process: str) -> np.ndarray:
+    """Each pulsar's chromatic index of ``process``: the injected one, else the process's usual one."""
+    return np.array([float(p.noise.get(f"{process}_chromatic_index", CHROMATIC_DEFAULT_INDEX[process]))
+                     for p in dataset.pulsars])
+
+
 def _subset(dataset: Dataset, names) -> Dataset:
     if names is None:
         return dataset
@@ -154,11 +169,19 @@ class FitModel:
         red_harmonics = int(dataset.signals.get("red", {}).get("harmonics", section.red_harmonics))
         if self.red_mode == "free":
             red_harmonics = section.red_harmonics
+        self.chromatic_modes = {}  # process -> "free" or "injected", for the chromatic processes modelled
+        for process in CHROMATIC:
+            injected_here = any(p.noise.get(f"{process}_amplitude", 0) > 0 for p in dataset.pulsars)
+            mode = getattr(section, process) or ("injected" if injected_here else "none")
+            if mode != "none":
+                self.chromatic_modes[process] = mode
         self.likelihood = Likelihood(
             dataset,
             harmonics=self.harmonics if section.common != "none" else 0,
             red_harmonics=red_harmonics if self.red_mode != "none" else 0,
             correlated=section.common if section.common not in ("uncorrelated", "none") else None,
+            chromatic=tuple((process, self._chromatic_harmonics(dataset, process, mode), _chromatic_indices(dataset, process))
+                            for process, mode in self.chromatic_modes.items()),
         )
 
         # every parameter the model has, with its default (injected) value
@@ -170,11 +193,18 @@ class FitModel:
             amplitude = float(p.noise.get("red_amplitude", 0.0))
             values[for_pulsar(RED_AMPLITUDE, p.name)] = np.log10(amplitude) if amplitude > 0 else -np.inf
             values[for_pulsar(RED_INDEX, p.name)] = float(p.noise.get("red_spectral_index", 13.0 / 3.0))
+            for process, (amplitude_name, index_name) in CHROMATIC.items():
+                amplitude = float(p.noise.get(f"{process}_amplitude", 0.0))
+                values[for_pulsar(amplitude_name, p.name)] = np.log10(amplitude) if amplitude > 0 else -np.inf
+                values[for_pulsar(index_name, p.name)] = float(p.noise.get(f"{process}_spectral_index", 13.0 / 3.0))
         free = []
         if section.white == "free":
             free += [for_pulsar(q, n) for n in pulsars for q in (WHITE_SCALE, WHITE_QUADRATURE)]
         if self.red_mode == "free":
             free += [for_pulsar(q, n) for n in pulsars for q in (RED_AMPLITUDE, RED_INDEX)]
+        for process, mode in self.chromatic_modes.items():
+            if mode == "free":
+                free += [for_pulsar(q, n) for n in pulsars for q in CHROMATIC[process]]
         if section.common != "none":
             values[COMMON_AMPLITUDE] = np.log10(gwb["amplitude"]) if gwb.get("amplitude", 0) > 0 else -np.inf
             values[COMMON_INDEX] = float(gwb.get("spectral_index", 13.0 / 3.0))
@@ -192,6 +222,8 @@ class FitModel:
                             or is_array_signal(k)}
         if self.red_mode != "none":
             used |= {k for k in values if quantity(k) in (RED_AMPLITUDE, RED_INDEX)}
+        for process in self.chromatic_modes:
+            used |= {k for k in values if quantity(k) in CHROMATIC[process]}
         self._noise_priors = {}
         if section.pulsar_noise is not None:  # the noise stage's results; [fit] fixed and priors override them
             for name, summary in read_pulsar_noise(section.pulsar_noise, dataset).items():
@@ -209,7 +241,8 @@ class FitModel:
                 if target not in values:
                     raise InputError(f"the model has no parameter {key!r}; {_NAMING}", f"fit.fixed.{key}")
                 if target not in used:
-                    raise InputError(f"{key!r} is not used by this model (red = {self.red_mode!r}, common = {section.common!r})",
+                    raise InputError(f"{key!r} is not used by this model (red = {self.red_mode!r}, common = {section.common!r}"
+                                     f", chromatic processes: {', '.join(self.chromatic_modes) or 'none'})",
                                      f"fit.fixed.{key}")
                 _check_value(target, float(value), f"fit.fixed.{key}")
                 values[target] = float(value)
@@ -240,9 +273,17 @@ class FitModel:
         head, pulsar = split(name)
         if head == RED_INDEX:
             return bool(np.isfinite(values[for_pulsar(RED_AMPLITUDE, pulsar)]))
+        for amplitude_name, index_name in CHROMATIC.values():
+            if head == index_name:
+                return bool(np.isfinite(values[for_pulsar(amplitude_name, pulsar)]))
         if head == COMMON_INDEX:
             return bool(np.isfinite(values.get(COMMON_AMPLITUDE, -np.inf)))
         return True
+
+    def _chromatic_harmonics(self, dataset, process: str, mode: str) -> int:
+        """Frequencies of a chromatic process: the injected ones when held at the injection, else ``[fit]``'s."""
+        injected = dataset.signals.get(process, {}).get("harmonics")
+        return int(injected) if mode == "injected" and injected is not None else self.section.chromatic_harmonics
 
     def _binary_defaults(self, dataset, section):
         sources = dataset.signals.get("binary", {}).get("sources")
@@ -308,7 +349,8 @@ class FitModel:
 
     def physical(self, x, values: dict | None = None) -> dict:
         """The likelihood's arguments at ``x``: per-pulsar ``white_scale``, ``white_quadrature`` (s),
-        ``red_amplitude``, ``red_spectral_index``, and the common ``amplitude`` and ``gamma``."""
+        ``red_amplitude``, ``red_spectral_index``, the common ``amplitude`` and ``gamma``, and per modelled
+        chromatic process its per-pulsar amplitudes and spectral indices (``chromatic``)."""
         v = self.parameters(x) if values is None else values
         names = self.dataset.names
         return dict(
@@ -318,6 +360,9 @@ class FitModel:
             red_spectral_index=np.array([v[for_pulsar(RED_INDEX, n)] for n in names]),
             amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
             gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
+            chromatic={process: (np.array([10 ** v[for_pulsar(CHROMATIC[process][0], n)] for n in names]),
+                                 np.array([v[for_pulsar(CHROMATIC[process][1], n)] for n in names]))
+                       for process in self.chromatic_modes},
         )
 
     def log_likelihood(self, x) -> float:

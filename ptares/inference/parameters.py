@@ -10,7 +10,7 @@ per-pulsar quantity without ``@pulsar`` stands for every pulsar's.
 
 from __future__ import annotations
 
-from ptares.inputs.config import BINARY_QUANTITIES, NOISE_QUANTITIES
+from ptares.inputs.config import BINARY_QUANTITIES, CHROMATIC_QUANTITIES, NOISE_QUANTITIES
 
 __all__ = [
     "SEPARATOR",
@@ -20,6 +20,7 @@ __all__ = [
     "WHITE_QUADRATURE",
     "RED_AMPLITUDE",
     "RED_INDEX",
+    "CHROMATIC",
     "PER_PULSAR",
     "BINARY_QUANTITIES",
     "LABELS",
@@ -40,9 +41,17 @@ WHITE_QUADRATURE = "white_lg_quadrature"  #: lg of the white noise added in quad
 RED_AMPLITUDE = "red_lg_amplitude"  #: lg of a pulsar's red-noise amplitude at 1/yr
 RED_INDEX = "red_spectral_index"  #: a pulsar's red-noise spectral index
 
-#: Quantities every pulsar has one of (the config's list, which ``[fit] pulsar_noise_quantities`` draws on).
-PER_PULSAR = NOISE_QUANTITIES
-assert PER_PULSAR == (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX)
+#: lg of a pulsar's chromatic-noise amplitude at 1/yr, stated at 1400 MHz, and its spectral index, per process
+CHROMATIC = {
+    "dispersion": ("dispersion_lg_amplitude", "dispersion_spectral_index"),
+    "scattering": ("scattering_lg_amplitude", "scattering_spectral_index"),
+}
+assert tuple(q for pair in CHROMATIC.values() for q in pair) == CHROMATIC_QUANTITIES
+
+#: Quantities every pulsar has one of: its white and red noise (the config's list, which ``[fit]
+#: pulsar_noise_quantities`` draws on), then its chromatic processes.
+PER_PULSAR = NOISE_QUANTITIES + CHROMATIC_QUANTITIES
+assert PER_PULSAR[:4] == (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX)
 
 def binary(name: str) -> str:
     """``lg_strain`` -> ``binary_lg_strain``: the parameter name of a continuous-wave quantity."""
@@ -73,6 +82,10 @@ LABELS = {
     WHITE_QUADRATURE: r"$\lg(\sigma_\mathrm{quad}\,/\,\mathrm{s})$",
     RED_AMPLITUDE: r"$\lg A_\mathrm{red}$",
     RED_INDEX: r"$\gamma_\mathrm{red}$",
+    "dispersion_lg_amplitude": r"$\lg A_\mathrm{disp}$",
+    "dispersion_spectral_index": r"$\gamma_\mathrm{disp}$",
+    "scattering_lg_amplitude": r"$\lg A_\mathrm{scat}$",
+    "scattering_spectral_index": r"$\gamma_\mathrm{scat}$",
     binary("lg_strain"): r"$\lg h_0$",
     binary("orbital_phase"): r"$\Phi_0\ (\mathrm{rad})$",
     binary("inclination_cosine"): r"$\cos\iota$",

@@ -37,6 +37,7 @@ from pydantic import (
 )
 
 from ptares.errors import InputError, PhysicsWarning, regular_file
+from ptares.physics.constants import REFERENCE_FREQUENCY_MHZ
 from ptares.limits import FILE_LIMIT, MAX_TOAS, MAX_TOTAL_TOAS, NAME_PATTERN, NESTING_LIMIT
 from ptares.inputs.units import parse_dec, parse_number, parse_ra, to_unit
 from ptares.version import renamed
@@ -219,9 +220,37 @@ class RedNoise(_Section):
     harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
 
 
+ChromaticIndex = AfterValidator(lambda v: _at_least(0.0)(_at_most(8.0)(v)))
+
+
+class DispersionNoise(RedNoise):
+    """``[noise.dispersion]``: dispersion-measure variations of each pulsar (zero amplitude: none).
+
+    A power law stated at the reference radio frequency (1400 MHz) like ``[noise.red]``
+    (``amplitude``, ``spectral_index``, drawable; ``harmonics``), whose residual at
+    radio frequency nu is scaled by ``(1400 MHz / nu)^chromatic_index`` (drawable,
+    default 2: the dispersive delay's nu^-2; PHYSICS.md, "Radio frequency").
+    """
+
+    chromatic_index: Drawable(None, ChromaticIndex) = 2.0
+
+
+class ScatteringNoise(DispersionNoise):
+    """``[noise.scattering]``: scattering-like chromatic noise, as ``[noise.dispersion]`` with
+    ``chromatic_index`` 4 by default."""
+
+    chromatic_index: Drawable(None, ChromaticIndex) = 4.0
+
+
+#: The chromatic processes of ``[noise]``, by name.
+CHROMATIC_PROCESSES = ("dispersion", "scattering")
+
+
 class NoiseSection(_Section):
     white: WhiteNoise = WhiteNoise()
     red: RedNoise = RedNoise()
+    dispersion: DispersionNoise = DispersionNoise()
+    scattering: ScatteringNoise = ScatteringNoise()
 
 
 class WhiteOverride(_Section):
@@ -234,6 +263,49 @@ class RedOverride(_Section):
     spectral_index: Optional[Drawable(None, SpectralIndex)] = None
 
 
+class ChromaticOverride(RedOverride):
+    chromatic_index: Optional[Drawable(None, ChromaticIndex)] = None
+
+
+#: Most sub-bands of one observing system (TOAs per system and epoch).
+MAX_SUBBANDS = 4096
+
+
+class ObservingSystem(_Section):
+    """One entry of ``[observing] systems``: a receiver and backend that observes at every epoch.
+
+    ``name``; ``frequencies`` the radio frequency of each sub-band, MHz (one TOA per
+    sub-band and epoch, all at the epoch's MJD); ``toa_error`` microseconds
+    (drawable; default the schedule's ``toa_error``).
+    """
+
+    name: SafeName
+    frequencies: tuple[Quantity("MHz", Positive), ...]
+    toa_error: Optional[Drawable("us", Positive)] = None
+
+    @field_validator("frequencies")
+    @classmethod
+    def _distinct(cls, frequencies):
+        if not frequencies:
+            raise ValueError("lists no sub-band; give at least one frequency")
+        if len(frequencies) > MAX_SUBBANDS:
+            raise ValueError(f"{len(frequencies)} sub-bands, more than ptares handles per system ({MAX_SUBBANDS})")
+        if len(set(frequencies)) != len(frequencies):
+            raise ValueError("a frequency is listed twice (one TOA per sub-band and epoch)")
+        return frequencies
+
+
+def _distinct_systems(systems):
+    names = [s.name for s in systems]
+    for name in names:
+        if names.count(name) > 1:
+            raise ValueError(f"system {name!r} is listed twice")
+    return systems
+
+
+Systems = Annotated[tuple[ObservingSystem, ...], AfterValidator(_distinct_systems)]
+
+
 class Observing(_Section):
     """``[observing]``: the schedule every pulsar follows unless it overrides a key.
 
@@ -241,6 +313,9 @@ class Observing(_Section):
     deviation of each epoch's offset) days; ``toa_error`` microseconds
     (drawable); ``toa_error_scatter`` dex of log-normal scatter of each TOA's
     error about it; ``gaps`` a list of ``[start, end]`` MJD ranges with no TOAs.
+    ``radio_frequency`` MHz, of every TOA when no ``systems`` are given; ``systems``
+    the observing systems (:class:`ObservingSystem`), each observing every epoch in its
+    sub-bands.
     """
 
     start: Quantity("d", StartRange) = 53005.0
@@ -250,6 +325,13 @@ class Observing(_Section):
     toa_error: Drawable("us", Positive) = 1.0
     toa_error_scatter: Quantity("dex", NonNegative, AfterValidator(_at_most(2.0))) = 0.0
     gaps: tuple[Gap, ...] = ()
+    radio_frequency: Quantity("MHz", Positive) = REFERENCE_FREQUENCY_MHZ
+    systems: Systems = ()
+
+    @property
+    def toas_per_epoch(self) -> int:
+        """TOAs of one epoch: one per sub-band of every system (one without systems)."""
+        return sum(len(s.frequencies) for s in self.systems) or 1
 
     @field_validator("gaps")
     @classmethod
@@ -260,7 +342,8 @@ class Observing(_Section):
         return gaps
 
 
-_OBSERVING_KEYS = ("start", "span", "cadence", "cadence_jitter", "toa_error", "toa_error_scatter", "gaps")
+_OBSERVING_KEYS = ("start", "span", "cadence", "cadence_jitter", "toa_error", "toa_error_scatter", "gaps",
+                   "radio_frequency", "systems")
 
 
 class PulsarEntry(_Section):
@@ -284,8 +367,12 @@ class PulsarEntry(_Section):
     toa_error: Optional[Drawable("us", Positive)] = None
     toa_error_scatter: Optional[Quantity("dex", NonNegative, AfterValidator(_at_most(2.0)))] = None
     gaps: Optional[tuple[Gap, ...]] = None
+    radio_frequency: Optional[Quantity("MHz", Positive)] = None
+    systems: Optional[Systems] = None
     white: WhiteOverride = WhiteOverride()
     red: RedOverride = RedOverride()
+    dispersion: ChromaticOverride = ChromaticOverride()
+    scattering: ChromaticOverride = ChromaticOverride()
 
 
 class RandomArray(_Section):
@@ -531,6 +618,9 @@ class Prior(BaseModel):
 _BINARY_ANGLES = ("orbital_phase", "polarization_angle", "right_ascension")  #: radians
 #: Per-pulsar noise quantities of a fit (named as in :mod:`ptares.inference.parameters`).
 NOISE_QUANTITIES = ("white_scale", "white_lg_quadrature", "red_lg_amplitude", "red_spectral_index")
+#: Per-pulsar quantities of the chromatic processes, in CHROMATIC_PROCESSES order.
+CHROMATIC_QUANTITIES = ("dispersion_lg_amplitude", "dispersion_spectral_index", "scattering_lg_amplitude",
+                        "scattering_spectral_index")
 BINARY_QUANTITIES = ("lg_strain", "orbital_phase", "inclination_cosine", "polarization_angle", "right_ascension",
                      "declination_sine", "lg_frequency")
 
@@ -569,6 +659,9 @@ class FitSection(_Section):
     red: Optional[Literal["free", "injected", "none"]] = None
     red_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     white: Literal["injected", "free"] = "injected"
+    dispersion: Optional[Literal["free", "injected", "none"]] = None
+    scattering: Optional[Literal["free", "injected", "none"]] = None
+    chromatic_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     binary: bool = False
     binary_free: Annotated[tuple[Literal[BINARY_QUANTITIES], ...], _listed_once("a quantity")] = (
         "lg_strain", "orbital_phase", "inclination_cosine", "polarization_angle")
@@ -847,6 +940,7 @@ def _check_schedules(config: Config) -> None:
         if obs.span * 365.25 <= obs.cadence:
             raise InputError(f"span ({obs.span} yr) is not longer than the cadence ({obs.cadence} d)", where("span"))
         count = _nominal_epochs(obs)
+        count = count * obs.toas_per_epoch  # every sub-band of every system at every epoch
         if count > MAX_TOAS:
             many = "an unbounded number of" if math.isinf(count) else f"{count:.4g}"
             raise InputError(f"{many} TOAs per pulsar is more than ptares handles ({MAX_TOAS})", where("cadence"))

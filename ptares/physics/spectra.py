@@ -19,12 +19,13 @@ from __future__ import annotations
 
 import numpy as np
 
-from ptares.physics.constants import F_YR
+from ptares.physics.constants import F_YR, REFERENCE_FREQUENCY_MHZ
 
 __all__ = [
     "gamma_from_alpha",
     "alpha_from_gamma",
     "fourier_basis",
+    "chromatic_scale",
     "characteristic_strain",
     "residual_psd",
     "residual_psd_from_strain",
@@ -107,6 +108,12 @@ def fourier_basis(times, span: float, harmonics: int) -> np.ndarray:
     basis[:, 0::2] = np.sin(phase)
     basis[:, 1::2] = np.cos(phase)
     return basis
+
+
+def chromatic_scale(frequency_mhz, chromatic_index: float) -> np.ndarray:
+    """``(nu_ref / nu)^chi`` for radio frequencies ``nu`` in MHz, ``nu_ref`` = 1400 MHz: the factor on a chromatic
+    process's residuals (PHYSICS.md, "Radio frequency and chromatic noise")."""
+    return (REFERENCE_FREQUENCY_MHZ / np.asarray(frequency_mhz, dtype=float)) ** chromatic_index
 
 
 def coefficient_variance(span: float, harmonics: int, amplitude: float, gamma: float) -> np.ndarray:

@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ptares.inputs.config import Config, Draw
-from ptares.physics.constants import YEAR
+from ptares.inputs.config import CHROMATIC_PROCESSES, Config, Draw
+from ptares.physics.constants import REFERENCE_FREQUENCY_MHZ, YEAR
 from ptares.physics.sky import unit_vector
 from ptares.rng import stream
 from ptares.simulation.schedule import (
@@ -49,6 +49,11 @@ class PulsarSetup:
     red_amplitude: float
     red_spectral_index: float
     true_distance: float  #: kpc, the distance pulsar terms use (drawn when the config varies distances)
+    #: (process, amplitude, spectral index, chromatic index) of each chromatic process with a non-zero amplitude
+    chromatic: tuple = ()
+    radio_frequency: float = REFERENCE_FREQUENCY_MHZ  #: MHz, of every TOA when there are no ``subbands``
+    #: (system, radio frequency MHz, TOA error s) of each TOA of an epoch, in TOA order; empty: one TOA per epoch
+    subbands: tuple = ()
 
     @property
     def position(self) -> np.ndarray:
@@ -64,6 +69,13 @@ class Observations:
     toa_errors: tuple  #: per pulsar, (n_a,) s
     start: float  #: MJD where the array's window opens (origin of the Fourier basis)
     span: float  #: s, union of the pulsars' windows (T of the basis f_k = k / T)
+    frequency_mhz: tuple = ()  #: per pulsar, (n_a,) MHz or None (not recorded); empty: none recorded
+    system: tuple = ()  #: per pulsar, (n_a,) observing-system names or None; empty: none recorded
+
+    def radio_frequencies(self, index: int) -> np.ndarray:
+        """Radio frequency (MHz) of each TOA of pulsar ``index``; the reference frequency where none is recorded."""
+        recorded = self.frequency_mhz[index] if self.frequency_mhz else None
+        return np.full(self.mjd[index].size, REFERENCE_FREQUENCY_MHZ) if recorded is None else recorded
 
     def times(self, index: int) -> np.ndarray:
         """Seconds from the array's start for pulsar ``index``."""
@@ -136,6 +148,8 @@ def build_array(config: Config, seed: int, tables=None) -> list[PulsarSetup]:
                 observing=config.observing_for(p),
                 white=p.white,
                 red=p.red,
+                dispersion=p.dispersion,
+                scattering=p.scattering,
             )
             for p in config.array.pulsars
         ]
@@ -167,9 +181,35 @@ def build_array(config: Config, seed: int, tables=None) -> list[PulsarSetup]:
                 true_distance=_true_distance(
                     float(entry["distance"]), float(entry["distance_error"]), config.array.vary_distances, seed, name
                 ),
+                chromatic=_chromatic(noise, entry, seed, name),
+                radio_frequency=obs.radio_frequency,
+                subbands=_subbands(obs, seed, name),
             )
         )
     return setups
+
+
+def _chromatic(noise, entry: dict, seed: int, name: str) -> tuple:
+    """(process, amplitude, spectral index, chromatic index) of each of the pulsar's chromatic processes with a
+    non-zero amplitude; the pulsar's own values override ``[noise.<process>]``."""
+    processes = []
+    for process in CHROMATIC_PROCESSES:
+        default, own = getattr(noise, process), entry.get(process)
+        values = [_resolve(_first(own and getattr(own, key), getattr(default, key)), seed, name, f"{process}_{key}")
+                  for key in ("amplitude", "spectral_index", "chromatic_index")]
+        if values[0] > 0:
+            processes.append((process, *values))
+    return tuple(processes)
+
+
+def _subbands(obs, seed: int, name: str) -> tuple:
+    """(system, radio frequency MHz, TOA error s) of each TOA of one epoch, ordered by system name and frequency
+    (the order tables are read in); each system's TOA error drawn from its own stream when drawable."""
+    subbands = []
+    for system in obs.systems:
+        error = _resolve(_first(system.toa_error, obs.toa_error), seed, name, f"toa_error {system.name}", _US)
+        subbands += [(system.name, float(f), error) for f in system.frequencies]
+    return tuple(sorted(subbands, key=lambda band: (band[0], band[1])))
 
 
 def observe(setups: list[PulsarSetup], seed: int, tables=None, window=None) -> Observations:
@@ -179,13 +219,28 @@ def observe(setups: list[PulsarSetup], seed: int, tables=None, window=None) -> O
         first = min(m[0] for m in mjd) if window is None else window[0]
         last = max(m[-1] for m in mjd) if window is None else window[1]
         return Observations(mjd=mjd, toa_errors=tuple(tables.errors[p.name] for p in setups), start=float(first),
-                            span=(float(last) - float(first)) * 86400.0)
-    mjd, errors = [], []
+                            span=(float(last) - float(first)) * 86400.0,
+                            frequency_mhz=tuple(tables.frequency_mhz.get(p.name) for p in setups),
+                            system=tuple(tables.system.get(p.name) for p in setups))
+    mjd, errors, frequencies, systems = [], [], [], []
     for p in setups:
         epochs = observation_epochs(
             p.start, p.span_days, p.cadence, p.cadence_jitter, p.gaps, stream(seed, "schedule", p.name)
         )
-        mjd.append(epochs)
-        errors.append(toa_uncertainties(epochs.size, p.toa_error, p.toa_error_scatter, stream(seed, "toa_errors", p.name)))
+        if not p.subbands:  # one TOA per epoch
+            mjd.append(epochs)
+            errors.append(toa_uncertainties(epochs.size, p.toa_error, p.toa_error_scatter,
+                                            stream(seed, "toa_errors", p.name)))
+            frequencies.append(np.full(epochs.size, p.radio_frequency))
+            systems.append(None)
+            continue
+        bands = len(p.subbands)
+        names, radio, nominal = zip(*p.subbands)
+        mjd.append(np.repeat(epochs, bands))
+        scatter = toa_uncertainties(epochs.size * bands, 1.0, p.toa_error_scatter, stream(seed, "toa_errors", p.name))
+        errors.append(scatter * np.tile(nominal, epochs.size))
+        frequencies.append(np.tile(np.array(radio, dtype=float), epochs.size))
+        systems.append(np.tile(np.array(names, dtype=str), epochs.size))
     start, span_days = array_window([p.start for p in setups], [p.start + p.span_days for p in setups])
-    return Observations(mjd=tuple(mjd), toa_errors=tuple(errors), start=start, span=span_days * 86400.0)
+    return Observations(mjd=tuple(mjd), toa_errors=tuple(errors), start=start, span=span_days * 86400.0,
+                        frequency_mhz=tuple(frequencies), system=tuple(systems))

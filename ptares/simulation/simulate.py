@@ -54,6 +54,7 @@ def import_tables(config: Config) -> Dataset:
                 mjd=mjd, residuals=tables.residuals[row.name], errors=tables.errors[row.name],
                 design_matrix=design_matrix(mjd, terms), design_columns=column_names(terms),
                 injected=tables.injected[row.name], noise=dict(row.noise), measured=tables.measured[row.name],
+                frequency_mhz=tables.frequency_mhz.get(row.name), system=tables.system.get(row.name),
             )
         )
     signals = {}
@@ -150,12 +151,16 @@ def _dataset(config, seed, pulsars, observations, context, components, designs, 
                 design_columns=columns,
                 injected={name: series[a] for name, series in injected.items()},
                 measured=tables.residuals[p.name] if inject else None,
+                frequency_mhz=observations.frequency_mhz[a] if observations.frequency_mhz else None,
+                system=observations.system[a] if observations.system else None,
                 noise={
                     "white_scale": p.white_scale,
                     "white_quadrature": p.white_quadrature,
                     "red_amplitude": p.red_amplitude,
                     "red_spectral_index": p.red_spectral_index,
                     "distance": p.true_distance,
+                    **{f"{process}_{key}": value for process, *values in p.chromatic
+                       for key, value in zip(("amplitude", "spectral_index", "chromatic_index"), values)},
                 },
             )
         )

@@ -19,11 +19,13 @@ GIBBS_ABOVE = 20
 
 
 def choose_sampler(model) -> str:
-    """``"ensemble"`` or ``"gibbs"``: the configured one, or by the number of parameters (continuous waves: ensemble)."""
+    """``"ensemble"`` or ``"gibbs"``: the configured one, or by the number of parameters (continuous waves and
+    chromatic noise: ensemble, which has no Gibbs step yet)."""
     chosen = model.section.sampler
     if chosen != "auto":
         return chosen
-    return "gibbs" if model.ndim > GIBBS_ABOVE and not model.section.binary else "ensemble"
+    gibbs = model.ndim > GIBBS_ABOVE and not model.section.binary and not model.likelihood.chromatic
+    return "gibbs" if gibbs else "ensemble"
 
 
 def run_sampler(model, path, progress: bool = False, overwrite: bool = False):

@@ -134,6 +134,9 @@ class GibbsSampler:
         if model.section.binary:
             raise InputError("the Gibbs sampler has no step for a continuous wave; use sampler = \"ensemble\"",
                              "fit.sampler")
+        if model.likelihood.chromatic:
+            raise InputError("the Gibbs sampler has no step for chromatic noise yet; use sampler = \"ensemble\"",
+                             "fit.sampler")
         self.model = model
         self.likelihood = model.likelihood
         names = model.dataset.names

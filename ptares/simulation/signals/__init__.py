@@ -9,15 +9,17 @@ one line to :data:`BUILDERS`.
 
 from __future__ import annotations
 
-from ptares.simulation.signals import background, continuous, red, white
+from ptares.simulation.signals import background, chromatic, continuous, red, white
 from ptares.simulation.signals.base import Component, Context
 
 __all__ = ["BUILDERS", "build_components", "Component", "Context"]
 
-#: Component builders in injection order, keyed by the dataset name of what they inject.
+#: Component builders in injection order, keyed by the dataset name of what they inject (the chromatic
+#: builder's components are named by their process, "dispersion" and "scattering").
 BUILDERS = {
     "white": white.from_config,
     "red": red.from_config,
+    "chromatic": chromatic.from_config,
     "gwb": background.from_config,
     "binary": continuous.from_config,
 }
@@ -25,5 +27,8 @@ BUILDERS = {
 
 def build_components(config, pulsars) -> list:
     """The components ``config`` asks for, for the resolved ``pulsars``."""
-    built = (build(config, pulsars) for build in BUILDERS.values())
-    return [component for component in built if component is not None]
+    components = []
+    for build in BUILDERS.values():
+        built = build(config, pulsars)  # a component, None, or a list of components (one per process)
+        components += built if isinstance(built, list) else [] if built is None else [built]
+    return components
