@@ -19,7 +19,7 @@ from ptares.correlation.noise import NoiseModel
 from ptares.dataset import Dataset
 from ptares.errors import InputError
 from ptares.limits import MEMORY_LIMIT
-from ptares.physics.spectra import coefficient_variance, fourier_basis
+from ptares.physics.spectra import chromatic_scale, coefficient_variance, fourier_basis
 
 __all__ = ["unit_template", "FourierProducts", "check_dataset", "fourier_products"]
 
@@ -74,6 +74,21 @@ def check_dataset(dataset: Dataset) -> None:
             raise InputError(f"{n} TOAs do not exceed the {p.design_matrix.shape[1]} timing-model columns", where)
 
 
+def _chromatic(noise: NoiseModel, a: int, pulsar, times, span: float):
+    """Pulsar ``a``'s chromatic columns (n, m), each process's basis scaled by (1400 MHz / nu)^chi, and their
+    prior variances (m,); none where its amplitudes are zero."""
+    columns, variances = [np.empty((times.size, 0))], [np.empty(0)]
+    for name, harmonics, amplitudes, spectral_indices, chromatic_indices in noise.chromatic:
+        if amplitudes[a] <= 0:
+            continue
+        if pulsar.frequency_mhz is None:
+            raise InputError(f"has no radio frequencies, but the noise model has {name} noise", f"pulsar {pulsar.name}")
+        scale = chromatic_scale(pulsar.frequency_mhz, chromatic_indices[a])
+        columns.append(fourier_basis(times, span, harmonics) * scale[:, None])
+        variances.append(np.repeat(coefficient_variance(span, harmonics, amplitudes[a], spectral_indices[a]), 2))
+    return np.hstack(columns), np.concatenate(variances)
+
+
 def fourier_products(dataset: Dataset, noise: NoiseModel, harmonics: int, gamma: float) -> FourierProducts:
     """``X_a`` and ``Z_a`` of every pulsar for a template of ``harmonics`` frequencies and index ``gamma``."""
     span = dataset.span
@@ -97,6 +112,9 @@ def fourier_products(dataset: Dataset, noise: NoiseModel, harmonics: int, gamma:
         if noise.red_amplitude[a] > 0:
             red = coefficient_variance(span, noise.red_harmonics, noise.red_amplitude[a], noise.red_spectral_index[a])
             prior[: 2 * noise.red_harmonics] += np.repeat(red, 2)
+        chromatic_columns, chromatic_prior = _chromatic(noise, a, p, times, span)
+        F = np.hstack([F, chromatic_columns])  # the template's columns stay the first 2 * harmonics
+        prior = np.concatenate([prior, chromatic_prior])
         inv_n = 1.0 / noise.white_sigma(a, p.errors) ** 2
         kept = prior > 0  # columns without prior power add nothing to the covariance
         T = np.hstack([p.design_matrix, F[:, kept]])

@@ -1,4 +1,4 @@
-"""The noise model an analysis assumes: white noise, red noise and a common process per pulsar.
+"""The noise model an analysis assumes: white, red and chromatic noise and a common process per pulsar.
 
 An estimator needs each pulsar's auto-covariance.  :class:`NoiseModel` holds the
 parameters that build it, one value per pulsar (white-noise scale and
@@ -17,6 +17,7 @@ import numpy as np
 
 from ptares.dataset import Dataset
 from ptares.errors import InputError
+from ptares.inputs.config import CHROMATIC_PROCESSES
 
 __all__ = ["NoiseModel", "noise_from_dataset", "noise_from_values"]
 
@@ -33,6 +34,9 @@ class NoiseModel:
     common_amplitude: float
     common_spectral_index: float
     common_harmonics: int = 30
+    #: chromatic processes, each (name, harmonics, amplitudes (P,), spectral indices (P,), chromatic indices (P,)),
+    #: stated at 1400 MHz (PHYSICS.md, "Radio frequency and chromatic noise")
+    chromatic: tuple = ()
 
     def white_sigma(self, index: int, toa_errors: np.ndarray) -> np.ndarray:
         """White-noise standard deviation (s) of each TOA of pulsar ``index``."""
@@ -51,6 +55,13 @@ def noise_from_dataset(dataset: Dataset) -> NoiseModel:
         raise InputError(f"has no injected noise parameter {exc} (not simulated by ptares?)", "dataset") from None
     red = dataset.signals.get("red", {})
     gwb = dataset.signals.get("gwb", {})
+    chromatic = []
+    for process in CHROMATIC_PROCESSES:
+        amplitudes = np.array([float(n.get(f"{process}_amplitude", 0.0)) for n in noise])
+        if np.any(amplitudes > 0):
+            chromatic.append((process, int(dataset.signals.get(process, {}).get("harmonics", 30)), amplitudes,
+                              np.array([float(n.get(f"{process}_spectral_index", 13.0 / 3.0)) for n in noise]),
+                              np.array([float(n.get(f"{process}_chromatic_index", 2.0)) for n in noise])))
     return NoiseModel(
         white_scale=white_scale,
         white_quadrature=white_quadrature,
@@ -60,6 +71,7 @@ def noise_from_dataset(dataset: Dataset) -> NoiseModel:
         common_amplitude=float(gwb.get("amplitude", 0.0)),
         common_spectral_index=float(gwb.get("spectral_index", 13.0 / 3.0)),
         common_harmonics=int(gwb.get("harmonics", 30)),
+        chromatic=tuple(chromatic),
     )
 
 

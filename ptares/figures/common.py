@@ -26,7 +26,8 @@ def save_figure(fig, path) -> Path:
 
 
 #: Colour of each injected component, shared by all figures.
-COMPONENT_COLOURS = {"white": "#9a9a9a", "red": "#b8553a", "gwb": "#2a6f97", "binary": "#6a994e"}
+COMPONENT_COLOURS = {"white": "#9a9a9a", "red": "#b8553a", "gwb": "#2a6f97", "binary": "#6a994e",
+                     "dispersion": "#b03a7a", "scattering": "#c08a12"}
 
 
 RESIDUAL_COLOUR = "#1b1b1b"

@@ -1,4 +1,4 @@
-"""Figures of a dataset: residuals, the array on the sky, the injected correlation.
+"""Figures of a dataset: residuals, the array on the sky, the injected correlation, the noise budget.
 
 Every function takes a :class:`~ptares.dataset.Dataset` and returns a
 matplotlib ``Figure``; :func:`dataset_figures` writes them all.
@@ -14,6 +14,10 @@ matplotlib.use("Agg")
 
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
+from matplotlib import colors as mcolors  # noqa: E402
+from matplotlib import patheffects, ticker  # noqa: E402
+from matplotlib.cm import ScalarMappable  # noqa: E402
+from matplotlib.lines import Line2D  # noqa: E402
 
 from ptares.dataset import Dataset  # noqa: E402
 from ptares.figures.common import COMPONENT_COLOURS, RESIDUAL_COLOUR, save_figure
@@ -22,10 +26,21 @@ from ptares.physics.sky import separation_matrix  # noqa: E402
 from ptares.physics.timing_model import fit_timing_model  # noqa: E402
 from ptares.simulation.signals.white import effective_uncertainties  # noqa: E402
 
-__all__ = ["residuals_figure", "sky_figure", "correlation_figure", "dataset_figures"]
+__all__ = ["residuals_figure", "sky_figure", "correlation_figure", "noise_budget_figure", "one_sided_psd",
+           "dataset_figures"]
 
 
-PER_PAGE = 50  #: pulsars per residuals figure; larger arrays get residuals-2.png and so on
+PER_PAGE = 50  #: pulsars per residuals (and noise-budget) figure; larger arrays get residuals-2.png and so on
+BUDGET_COLUMNS = 5  #: panels per row of a noise-budget page
+
+#: Colours of the observing systems on the residual pages, in order of first use in the dataset
+#: (chosen to stay apart from the component colours; more systems than these reuse matplotlib's tab20).
+SYSTEM_COLOURS = ("#2b3a55", "#f08a24", "#3fa7d6", "#8e44ad", "#1f9e89", "#e63946", "#c9a227", "#7f5539",
+                  "#ff6fa5", "#7cb518")
+#: Sequential colours for the radio frequency (low: dark violet, high: orange; the pale end of plasma left out).
+FREQUENCY_COLOURS = mcolors.LinearSegmentedColormap.from_list("ptares_frequency", plt.get_cmap("plasma")(np.linspace(0.0, 0.8, 256)))
+#: Frequencies spanning more than this ratio get a logarithmic colour scale.
+LOG_FREQUENCY_RATIO = 3.0
 
 
 def _year(mjd):
@@ -39,27 +54,102 @@ def _after_fit(p, series):
     return fit_timing_model(series, p.design_matrix, weights)[0]
 
 
+def _varies_within_epochs(mjd, values) -> bool:
+    """Whether ``values`` differ between TOAs that share an MJD (a chromatic series in several sub-bands)."""
+    mjd = np.asarray(mjd)
+    if mjd.size == np.unique(mjd).size:
+        return False
+    order = np.argsort(mjd, kind="stable")
+    starts = np.flatnonzero(np.r_[True, np.diff(mjd[order]) != 0])
+    ordered = np.asarray(values)[order]
+    spread = np.maximum.reduceat(ordered, starts) - np.minimum.reduceat(ordered, starts)
+    return bool(np.max(spread) > 1e-6 * np.ptp(ordered))
+
+
+def _system_colours(dataset: Dataset) -> dict:
+    """Observing-system name -> colour, in order of first use across the whole dataset (so a system keeps
+    its colour on every page)."""
+    names = dict.fromkeys(s for p in dataset.pulsars for s in p.systems)
+    extra = plt.get_cmap("tab20").colors
+    return {name: (SYSTEM_COLOURS[i] if i < len(SYSTEM_COLOURS) else extra[(i - len(SYSTEM_COLOURS)) % len(extra)])
+            for i, name in enumerate(names)}
+
+
+def _frequency_norm(dataset: Dataset):
+    """The colour scale of the radio frequencies of the whole dataset (logarithmic when they span more than
+    :data:`LOG_FREQUENCY_RATIO`), or None when the TOAs have fewer than two distinct frequencies."""
+    recorded = [np.asarray(p.frequency_mhz, dtype=float) for p in dataset.pulsars if p.frequency_mhz is not None]
+    values = np.unique(np.concatenate(recorded)) if recorded else np.array([])
+    values = values[np.isfinite(values)]
+    if values.size < 2:
+        return None
+    low, high = float(values[0]), float(values[-1])
+    if low > 0 and high / low > LOG_FREQUENCY_RATIO:
+        return mcolors.LogNorm(low, high)
+    return mcolors.Normalize(low, high)
+
+
+def _point_colours(p, systems, norm):
+    """RGBA of each of ``p``'s TOAs by observing system or radio frequency; None to draw it plainly."""
+    if systems is not None and p.system is not None:
+        return mcolors.to_rgba_array([systems[str(s)] for s in p.system])
+    if norm is not None and p.frequency_mhz is not None:
+        return FREQUENCY_COLOURS(norm(np.asarray(p.frequency_mhz, dtype=float)))
+    return None
+
+
 def residuals_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE):
     """Residuals of pulsars ``first`` to ``first + count``, each in its own row, with the injected signals.
 
     Each row has its own vertical scale (its range is printed at the right).
     The injected components are drawn with the timing model fitted out of
-    them, so they lie over the residuals they helped make.
+    them, so they lie over the residuals they helped make: as a line through
+    the epochs, or, for one that differs between the TOAs of an epoch (a
+    chromatic one observed in several bands), as a short tick at each TOA.
+
+    When the dataset's TOAs come from more than one observing system, each
+    point and its error bar take the colour of its system (a legend at the
+    top left names them); otherwise, when they have more than one radio
+    frequency, the colour of its frequency (a colour bar in MHz at the top
+    left, logarithmic if the frequencies span more than a factor
+    :data:`LOG_FREQUENCY_RATIO`).  Colours are fixed over the whole dataset,
+    so they agree from page to page.
     """
     pulsars = dataset.pulsars[first : first + count]
-    fig, axes = plt.subplots(len(pulsars), 1, sharex=True, squeeze=False,
-                             figsize=(9.0, max(3.0, 0.55 * len(pulsars) + 1.2)))
+    systems = _system_colours(dataset)
+    systems = systems if len(systems) > 1 else None
+    norm = None if systems is not None else _frequency_norm(dataset)
+    coloured = systems is not None or norm is not None
+    page_systems = [s for s in systems if any(s in p.systems for p in pulsars)] if systems else []
+    system_columns = min(len(page_systems), 4) or 1
+    if systems is not None:
+        block = 0.2 + 0.17 * -(-len(page_systems) // system_columns)
+    else:
+        block = 0.45
+    header = 0.6 if not coloured else 0.38 + block  # inches above the first row
+    height = max(3.0, 0.55 * len(pulsars) + 0.6 + header)
+    fig, axes = plt.subplots(len(pulsars), 1, sharex=True, squeeze=False, figsize=(9.0, height))
+    outline = [patheffects.withStroke(linewidth=2.4, foreground="white", alpha=0.8)] if coloured else None
     labelled = set()
     for ax, p in zip(axes[:, 0], pulsars):
         years = _year(p.mjd)
-        ax.errorbar(years, p.residuals * 1e6, yerr=p.errors * 1e6, fmt=".", ms=2.0, lw=0.4,
-                    color=RESIDUAL_COLOUR, alpha=0.6, label="residuals" if not labelled else None)
-        labelled.add("residuals")
+        residuals, errors = p.residuals * 1e6, p.errors * 1e6
+        colours = _point_colours(p, systems, norm) if coloured else None
+        if colours is None:
+            ax.errorbar(years, residuals, yerr=errors, fmt=".", ms=2.0, lw=0.4,
+                        color=RESIDUAL_COLOUR, alpha=0.6, label="residuals" if "residuals" not in labelled else None)
+            labelled.add("residuals")
+        else:  # one colour per TOA: the bars as one collection, the points as another, in the same colours
+            ax.vlines(years, residuals - errors, residuals + errors, colors=colours, lw=0.4, alpha=0.6, gid="errorbars")
+            ax.scatter(years, residuals, c=colours, s=5.0, marker="o", linewidths=0, alpha=0.75, gid="points")
         for name, series in p.injected.items():
             if name == "white" or not np.any(series):
                 continue
-            ax.plot(years, _after_fit(p, series) * 1e6, lw=1.2, color=COMPONENT_COLOURS.get(name, "#7b2cbf"),
-                    label=f"injected {name}" if name not in labelled else None)
+            fitted = _after_fit(p, series) * 1e6
+            chromatic = _varies_within_epochs(p.mjd, fitted)
+            style = {"marker": "_", "ms": 3.0, "mew": 0.9, "ls": ""} if chromatic else {"lw": 1.2}
+            ax.plot(years, fitted, color=COMPONENT_COLOURS.get(name, "#7b2cbf"), path_effects=outline,
+                    label=f"injected {name}" if name not in labelled else None, gid=f"injected:{name}", **style)
             labelled.add(name)
         low, high = ax.get_ylim()
         ax.set_yticks([])
@@ -71,9 +161,25 @@ def residuals_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE):
         title += f" ({first + 1} to {first + len(pulsars)} here)"
     axes[0, 0].set_title(title + " (row height in µs at right)", fontsize=10)
     axes[-1, 0].set_xlabel("year")
-    fig.legend(loc="upper right", fontsize=7, ncol=3, frameon=False)
-    fig.subplots_adjust(hspace=0.0, left=0.12, right=0.93, top=1 - 0.6 / fig.get_figheight(),
-                        bottom=0.5 / fig.get_figheight())
+    if labelled:
+        fig.legend(loc="upper right", fontsize=7, ncol=3, frameon=False)
+    if page_systems:
+        handles = [Line2D([], [], ls="", marker="o", ms=4.5, color=systems[s]) for s in page_systems]
+        fig.legend(handles, page_systems, loc="upper left", bbox_to_anchor=(0.01, 1.0), fontsize=7,
+                   ncol=system_columns, frameon=False, title="residuals by observing system", title_fontsize=7,
+                   alignment="left", handletextpad=0.2, columnspacing=1.0).set_gid("systems")
+    elif norm is not None:
+        cax = fig.add_axes([0.12, 1 - 0.3 / height, 0.34, 0.09 / height])
+        bar = fig.colorbar(ScalarMappable(norm=norm, cmap=FREQUENCY_COLOURS), cax=cax, orientation="horizontal")
+        bar.set_label("residuals by radio frequency (MHz)", fontsize=7, labelpad=2)
+        cax.xaxis.set_label_position("top")
+        if isinstance(norm, mcolors.LogNorm):
+            cax.xaxis.set_major_locator(ticker.LogLocator(subs=(1.0, 2.0, 3.0, 5.0)))
+            cax.xaxis.set_minor_locator(ticker.NullLocator())
+        cax.xaxis.set_major_formatter(ticker.FuncFormatter(lambda value, _: f"{value:g}"))
+        cax.tick_params(labelsize=6, length=2, pad=1)
+        cax.set_gid("frequency colour bar")
+    fig.subplots_adjust(hspace=0.0, left=0.12, right=0.93, top=1 - header / height, bottom=0.5 / height)
     return fig
 
 
@@ -161,17 +267,144 @@ def correlation_figure(dataset: Dataset, bins: int = 10):
     return fig
 
 
+def one_sided_psd(mjd, series, span: float, start_mjd: float = 0.0, count: int | None = None):
+    """One-sided power spectral density of an unevenly sampled ``series`` (s), in s^2/Hz.
+
+    Returns ``(frequency, psd)``: the frequencies k / ``span`` in Hz, k = 1 .. ``count`` (default
+    the mean Nyquist frequency of the epochs, half the number of distinct MJDs), and the estimate
+    at each.  ``span`` is the dataset's span in s (its Fourier basis starts at ``start_mjd``).
+
+    Method: astropy's Lomb-Scargle periodogram (:class:`astropy.timeseries.LombScargle`,
+    unweighted, floating mean, ``normalization="psd"``), which at each frequency f fits
+    a + b cos 2 pi f t + c sin 2 pi f t by least squares and returns
+    P(f) = (chi2(mean only) - chi2(fit)) / 2 in s^2.  For N samples it equals the classical
+    periodogram |sum_i y_i exp(-2 pi i f t_i)|^2 / N when the sampling is even, so with the
+    mean spacing T / N it is turned into a one-sided density by
+
+        S(f) = 2 T P(f) / N   (s^2/Hz, T = ``span``, N = number of TOAs).
+
+    Checks of this normalisation: white noise of variance sigma^2 gives E[P] = sigma^2 (the fit
+    of two more parameters lowers chi2 by 2 sigma^2 on average, at any sampling), hence
+    E[S] = 2 sigma^2 T / N, the density of white noise sampled every T / N up to its Nyquist
+    frequency; a sinusoid of amplitude A at k / T, evenly sampled, gives P = A^2 N / 4, hence
+    S = A^2 T / 2, its power A^2 / 2 spread over one frequency bin 1 / T.  Several TOAs at one
+    epoch (sub-bands) count as separate samples: a series equal in all of them keeps these values.
+
+    This is an estimate of one realisation, not the model: each value scatters by about its own
+    size (two degrees of freedom), and with no window, and uneven sampling, strong power at low
+    frequencies leaks into the higher ones, where a steep red spectrum flattens.  Fewer than
+    four distinct epochs give empty arrays.
+    """
+    from astropy.timeseries import LombScargle
+
+    mjd = np.asarray(mjd, dtype=float)
+    series = np.asarray(series, dtype=float)
+    epochs = np.unique(mjd).size
+    count = epochs // 2 if count is None else int(count)
+    if epochs < 4 or count < 1 or span <= 0:
+        return np.array([]), np.array([])
+    frequency = np.arange(1, count + 1) / span
+    seconds = (mjd - start_mjd) * 86400.0
+    power = LombScargle(seconds, series, fit_mean=True, center_data=True, normalization="psd").power(
+        frequency, method="fast", assume_regular_frequency=True)
+    return frequency, 2.0 * span * power / series.size
+
+
+def _budget_span(dataset: Dataset, p) -> float:
+    """The span of the Fourier frequencies: the dataset's, or (when not recorded) the pulsar's own."""
+    if dataset.span > 0:
+        return float(dataset.span)
+    return float(np.ptp(p.mjd) * 86400.0) if p.toa_count else 0.0
+
+
+def noise_budget_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE):
+    """The noise budget of pulsars ``first`` to ``first + count``: one panel a pulsar, in rows of
+    :data:`BUDGET_COLUMNS`, with the power spectral density of each injected component.
+
+    Each line is :func:`one_sided_psd` of one series of ``p.injected`` (before the timing-model fit,
+    so it shows what went in, including the power the fit later absorbs) against Fourier frequency
+    in nHz, on log-log axes shared by all panels, in the colours of
+    :data:`~ptares.figures.common.COMPONENT_COLOURS`.  Components that are zero are left out.
+    """
+    pulsars = dataset.pulsars[first : first + count]
+    columns = max(1, min(BUDGET_COLUMNS, len(pulsars)))
+    rows = max(1, -(-len(pulsars) // columns))
+    width, height = max(1.75 * columns + 1.2, 5.0), 1.45 * rows + 1.6
+    fig, axes = plt.subplots(rows, columns, sharex=True, sharey=True, squeeze=False, figsize=(width, height))
+    labelled = set()
+    values = []
+    for ax, p in zip(axes.flat, pulsars):
+        span = _budget_span(dataset, p)
+        drawn = False
+        for name, series in p.injected.items():
+            if not np.any(series):
+                continue
+            frequency, psd = one_sided_psd(p.mjd, series, span, dataset.start_mjd)
+            keep = psd > 0
+            if not keep.any():
+                continue
+            ax.loglog(frequency[keep] * 1e9, psd[keep], lw=0.9, color=COMPONENT_COLOURS.get(name, "#7b2cbf"),
+                      label=name if name not in labelled else None, gid=f"psd:{name}")
+            labelled.add(name)
+            values.append(psd[keep])
+            drawn = True
+        ax.text(0.96, 0.94, p.name, transform=ax.transAxes, ha="right", va="top", fontsize=7,
+                bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.7})
+        if not drawn:
+            ax.text(0.5, 0.5, "nothing injected", transform=ax.transAxes, ha="center", va="center", fontsize=7,
+                    color="#777777")
+        ax.grid(which="major", alpha=0.3)
+        ax.tick_params(labelsize=6)
+    for index, ax in enumerate(axes.flat):
+        if index >= len(pulsars):
+            ax.set_axis_off()
+        elif index + columns >= len(pulsars):  # nothing drawn below: this panel carries the frequency labels
+            ax.tick_params(labelbottom=True)
+    if values:
+        every = np.concatenate(values)
+        top = float(every.max())
+        axes[0, 0].set_ylim(max(float(every.min()), top * 1e-9) / 2.0, top * 3.0)
+    else:
+        axes[0, 0].set_xscale("log")
+        axes[0, 0].set_yscale("log")
+    title = f"Noise budget: {len(dataset.pulsars)} pulsars"
+    if len(pulsars) < len(dataset.pulsars):
+        title += f" ({first + 1} to {first + len(pulsars)} here)"
+    fig.suptitle(title + "\ninjected components, before the timing-model fit",
+                 fontsize=9, x=0.8 / width, ha="left", va="top", y=1 - 0.08 / height, linespacing=1.4)
+    fig.supxlabel("Fourier frequency (nHz)", fontsize=8, y=0.06 / height, va="bottom")
+    fig.supylabel("one-sided PSD (s$^2$/Hz; Lomb-Scargle)", fontsize=8, x=0.08 / width, ha="left")
+    if labelled:
+        fig.legend(loc="upper right", fontsize=7, ncol=min(6, len(labelled)), frameon=False,
+                   bbox_to_anchor=(1 - 0.1 / width, 1 - 0.62 / height), handlelength=1.6, columnspacing=1.2)
+    fig.subplots_adjust(hspace=0.08, wspace=0.06, left=0.8 / width, right=1 - 0.2 / width,
+                        top=1 - 0.95 / height, bottom=0.5 / height)
+    return fig
+
+
+def _has_injected(dataset: Dataset) -> bool:
+    """Whether some pulsar has an injected component that is not zero."""
+    return any(np.any(series) for p in dataset.pulsars for series in p.injected.values())
+
+
 def dataset_figures(dataset: Dataset, directory) -> list:
     """Write the dataset figures into ``directory``; returns their paths.
 
     ``residuals.png`` (then ``residuals-2.png``... for every further
-    :data:`PER_PAGE` pulsars), ``sky.png`` and ``correlation.png``.
+    :data:`PER_PAGE` pulsars), ``sky.png``, ``correlation.png`` and, when some
+    pulsar has an injected component that is not zero, ``noise_budget.png``
+    (then ``noise_budget-2.png``..., paged like the residuals).
     """
     directory = Path(directory)
     paths = []
-    for page, first in enumerate(range(0, len(dataset.pulsars), PER_PAGE), start=1):
+    pages = list(enumerate(range(0, len(dataset.pulsars), PER_PAGE), start=1))
+    for page, first in pages:
         name = "residuals.png" if page == 1 else f"residuals-{page}.png"
-        paths.append(save_figure(residuals_figure(dataset, first), directory / name))
+        paths.append(save_figure(residuals_figure(dataset, first, PER_PAGE), directory / name))
     paths.append(save_figure(sky_figure(dataset), directory / "sky.png"))
     paths.append(save_figure(correlation_figure(dataset), directory / "correlation.png"))
+    if _has_injected(dataset):
+        for page, first in pages:
+            name = "noise_budget.png" if page == 1 else f"noise_budget-{page}.png"
+            paths.append(save_figure(noise_budget_figure(dataset, first, PER_PAGE), directory / name))
     return paths

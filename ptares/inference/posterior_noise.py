@@ -13,6 +13,7 @@ from ptares.correlation.noise import NoiseModel
 from ptares.dataset import Dataset, fingerprint
 from ptares.errors import InputError
 from ptares.inference.parameters import (
+    CHROMATIC,
     COMMON_AMPLITUDE,
     COMMON_INDEX,
     RED_AMPLITUDE,
@@ -45,6 +46,7 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
             held = json.loads(f.attrs["held_values"])
             common_harmonics = int(f.attrs["common_harmonics"])
             red_harmonics = int(f.attrs["red_harmonics"])
+            chromatic = json.loads(f.attrs.get("chromatic", "[]"))
             origin = f.attrs["dataset_fingerprint"]
         samples = saved_draws(path)
     except (OSError, KeyError, ValueError) as exc:
@@ -71,6 +73,12 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
                 common_amplitude=10 ** values[COMMON_AMPLITUDE] if common_harmonics and COMMON_AMPLITUDE in values else 0.0,
                 common_spectral_index=values.get(COMMON_INDEX, 13.0 / 3.0),
                 common_harmonics=max(common_harmonics, 1),
+                chromatic=tuple(
+                    (name, harmonics,
+                     np.array([10 ** values[for_pulsar(CHROMATIC[name][0], n)] for n in dataset.names]),
+                     np.array([values[for_pulsar(CHROMATIC[name][1], n)] for n in dataset.names]),
+                     np.array(indices, dtype=float))
+                    for name, harmonics, indices in chromatic),
                 **{k: np.array(v, dtype=float) for k, v in per_pulsar.items()},
             )
         )

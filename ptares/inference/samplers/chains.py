@@ -140,6 +140,8 @@ def open_chains(model, path, sampler: str, chains: int, overwrite: bool, adaptat
         f.attrs["held_values"] = json.dumps({k: v for k, v in model.values.items() if k not in model.names}, default=str)
         f.attrs["common_harmonics"] = model.harmonics if model.section.common != "none" else 0
         f.attrs["red_harmonics"] = model.likelihood.red_harmonics
+        # each modelled chromatic process: [name, harmonics, chromatic index of every pulsar]
+        f.attrs["chromatic"] = json.dumps([[name, k, [float(c) for c in chi]] for name, k, chi in model.likelihood.chromatic])
         f.attrs["dataset_fingerprint"] = fingerprint(model.dataset)
     return backend, False, adaptation
 
