@@ -1,6 +1,7 @@
 """Plain tables: import, export, injection into measured residuals, and every table fault."""
 
 import dataclasses
+import warnings
 
 import numpy as np
 import pytest
@@ -450,19 +451,20 @@ def test_bad_tables_are_one_line_and_write_nothing(tmp_path, capsys, monkeypatch
 def test_ignored_columns_are_named_in_a_note(tmp_path, capsys):
     """Columns ptares does not read are named, with why, once the tables have passed every check;
     the import succeeds.  Blank rows, also ",,," from spreadsheets, are skipped."""
-    toas = (HEADER.replace("\n", ",frequency_mhz,comment\n") + "\n".join(r + ",1400,ok" for r in GOOD) + "\n,,,,,\n")
+    toas = (HEADER.replace("\n", ",frequency_mhz,system,comment\n") + "\n".join(r + ",1400,L-wide,ok" for r in GOOD)
+            + "\n,,,,,,\n")
     catalogue = ("name,ra,dec,ra_rad,dec_rad,distance,distance_kpc,observer\n"
                  "Kite,10,10,0.1,0.2,1,1.5,x\nLark,20,20,0.3,0.4,1,0.5,y\n")
     config = write_tables(tmp_path, toas=toas, catalogue=catalogue)
     assert main(["import", str(config), "--out", str(tmp_path / "i")]) == 0
     catalogue_note = (f"ptares: warning: {tmp_path / 'pulsars.csv'}: ignoring column(s) ra, dec (ra_rad and dec_rad are used); "
                       "distance (distance_kpc is used); observer (not read by ptares)")
-    table_note = f"ptares: warning: {tmp_path / 'toas.csv'}: ignoring column(s) frequency_mhz, comment (not read by ptares)"
+    table_note = f"ptares: warning: {tmp_path / 'toas.csv'}: ignoring column(s) comment (not read by ptares)"
     assert capsys.readouterr().err.splitlines() == [catalogue_note, table_note]
     kite = load_dataset(tmp_path / "i" / "dataset.h5").pulsar("Kite")
     assert (kite.ra, kite.dec, kite.distance, kite.mjd.size) == (0.1, 0.2, 1.5, 5)
     with pytest.warns(PhysicsWarning, match=r"toas.csv: ignoring column\(s\) residual_us \(only epochs and errors are taken\); "
-                      r"frequency_mhz, comment \(not read by ptares\)"):
+                      r"comment \(not read by ptares\)$"):
         data = simulate(load_config(config))  # schedule mode: the residuals are not read either
     assert data.pulsar("Kite").measured is None
 
@@ -478,3 +480,129 @@ def test_injecting_into_exported_tables_names_the_columns_it_does_not_read(tmp_p
     with pytest.warns(PhysicsWarning, match=r"toas.csv: ignoring column\(s\) injected_gwb_s, injected_white_s "
                                             r"\(read by ptares import only\)"):
         simulate(load_config(config))
+
+
+# ---------------------------------------------------------------- radio frequencies and observing systems
+
+BANDS_HEADER = "pulsar,mjd,error_us,residual_us,frequency_mhz,system\n"
+#: Kite observed by system A at 1700 MHz and by system B at 800 and 1400 MHz at each of its epochs: sorted by
+#: system, then frequency, A/1700 comes before B/800 (by frequency first it would come last).
+BANDS = [f"Kite,{mjd},{1.0 + k / 10!r},{0.01 * (3 * e + k)!r},{frequency},{system}"
+         for e, mjd in enumerate((53000.0, 53010.0, 53020.0, 53030.0))
+         for k, (frequency, system) in enumerate((("1700.0", "A"), ("800.0", "B"), ("1400.0", "B")))]
+BANDS += ["Lark,53000.0,1.0,0.1,1400.0,B", "Lark,53015.0,1.0,0.2,1400.0,B", "Lark,53030.0,1.0,0.3,1400.0,B",
+          "Lark,53045.0,1.0,0.1,1400.0,B", "Lark,53060.0,1.0,0.0,1400.0,B"]
+
+
+def bands_with(index, line):
+    rows = list(BANDS)
+    rows[index] = line
+    return BANDS_HEADER + "\n".join(rows) + "\n"
+
+
+def read_toas(tmp_path, toas, **options):
+    from ptares.inputs.tables import read_tables
+
+    (tmp_path / "toas.csv").write_text(toas)
+    (tmp_path / "pulsars.csv").write_text(CATALOGUE)
+    return read_tables(tmp_path / "toas.csv", tmp_path / "pulsars.csv", 3, need_residuals=True, **options)
+
+
+def test_a_two_band_table_is_read_sorted_by_mjd_system_and_frequency(tmp_path):
+    """Equal MJDs in several frequencies and systems are several TOAs, not duplicates; whatever the order
+    of the rows, each pulsar's TOAs come back sorted by MJD, then system, then frequency, every column
+    following its row."""
+    expected = sorted((float(f[1]), f[5], float(f[4]), float(f[2]) * 1e-6, float(f[3]) * 1e-6)
+                      for f in (line.split(",") for line in BANDS[:12]))
+    assert [(e[1], e[2]) for e in expected[:3]] == [("A", 1700.0), ("B", 800.0), ("B", 1400.0)]
+    shuffled = [BANDS[i] for i in np.random.default_rng(4).permutation(len(BANDS))]
+    for rows in (BANDS, shuffled[::-1], shuffled):
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            tables = read_toas(tmp_path, BANDS_HEADER + "\n".join(rows) + "\n")
+        assert not [w for w in caught if "ignoring" in str(w.message)]
+        assert tables.mjd["Kite"].tolist() == [e[0] for e in expected]
+        assert tables.system["Kite"].tolist() == [e[1] for e in expected]
+        assert tables.frequency_mhz["Kite"].tolist() == [e[2] for e in expected]
+        assert tables.errors["Kite"].tolist() == [e[3] for e in expected]
+        assert tables.residuals["Kite"].tolist() == [e[4] for e in expected]
+        assert tables.frequency_mhz["Kite"].dtype == np.float64 and tables.system["Kite"].dtype.kind == "U"
+        assert tables.system["Lark"].tolist() == ["B"] * 5 and tables.mjd["Lark"].tolist() == sorted(tables.mjd["Lark"])
+
+
+def test_a_missing_frequency_or_system_column_counts_as_equal(tmp_path):
+    """Without a frequency_mhz column, TOAs at one MJD in different systems are distinct and the
+    frequencies are None; in one system they are duplicates (and without a system column likewise)."""
+    one_per_system = [line for line in BANDS if ",1400.0,B" not in line or line.startswith("Lark")]
+    no_frequency = "".join(line.rsplit(",", 2)[0] + "," + line.rsplit(",", 1)[1] + "\n" for line in one_per_system)
+    tables = read_toas(tmp_path, "pulsar,mjd,error_us,residual_us,system\n" + no_frequency)
+    assert tables.frequency_mhz == {"Kite": None, "Lark": None}
+    assert tables.system["Kite"].tolist() == ["A", "B"] * 4 and tables.mjd["Kite"].tolist() == [53000.0] * 2 + [
+        53010.0] * 2 + [53020.0] * 2 + [53030.0] * 2
+    with pytest.raises(InputError, match=r"toas.csv: row 3, column mjd: duplicate TOA of Kite at MJD 53000.0, system B$"):
+        read_toas(tmp_path, "pulsar,mjd,error_us,residual_us,system\n" + no_frequency.replace(",A\n", ",B\n"))
+    no_system = "".join(line.rsplit(",", 1)[0] + "\n" for line in BANDS)
+    with pytest.raises(InputError, match=r"toas.csv: row 3, column mjd: duplicate TOA of Kite at MJD 53000.0, 1700.0 MHz$"):
+        read_toas(tmp_path, "pulsar,mjd,error_us,residual_us,frequency_mhz\n" + no_system.replace(",800.0\n", ",1700.0\n"))
+    assert read_toas(tmp_path, "pulsar,mjd,error_us,residual_us,frequency_mhz\n" + no_system).system == {"Kite": None,
+                                                                                                           "Lark": None}
+
+
+@pytest.mark.parametrize(
+    "toas, words",
+    [
+        pytest.param(bands_with(4, BANDS[3].replace(",0.03,", ",0.5,")), "toas.csv: row 6, column mjd: duplicate TOA of Kite at "
+                     "MJD 53010.0, 1700.0 MHz, system A", id="duplicate"),
+        pytest.param(bands_with(4, BANDS[4].replace("800.0", "0")), "toas.csv: row 6, column frequency_mhz: '0' is not positive",
+                     id="frequency-zero"),
+        pytest.param(bands_with(4, BANDS[4].replace("800.0", "-800")),
+                     "toas.csv: row 6, column frequency_mhz: '-800' is not positive (a radio frequency in MHz)", id="frequency-negative"),
+        pytest.param(bands_with(4, BANDS[4].replace("800.0", "L-band")),
+                     "toas.csv: row 6, column frequency_mhz: 'L-band' is not a number", id="frequency-text"),
+        pytest.param(bands_with(4, BANDS[4].replace("800.0", "inf")), "toas.csv: row 6, column frequency_mhz: 'inf' is not finite",
+                     id="frequency-infinite"),
+        pytest.param(bands_with(4, BANDS[4].replace("800.0", "")), "toas.csv: row 6, column frequency_mhz: '' is not a number",
+                     id="frequency-empty"),
+        pytest.param(bands_with(4, BANDS[4].replace(",B", ",=cmd")),
+                     "toas.csv: row 6, column system: '=cmd' is not an observing-system name (1-64 letters", id="system-formula"),
+        pytest.param(bands_with(4, BANDS[4].replace(",B", ",a/b")),
+                     "toas.csv: row 6, column system: 'a/b' is not an observing-system name", id="system-slash"),
+        pytest.param(bands_with(4, BANDS[4].replace(",B", ",")), "toas.csv: row 6, column system: empty", id="system-empty"),
+    ],
+)
+def test_bad_frequencies_systems_and_duplicates_are_one_line(tmp_path, capsys, toas, words):
+    config = write_tables(tmp_path, toas=toas, mode="inject")
+    for command in ("simulate", "import"):
+        assert main([command, str(config), "--out", str(tmp_path / "o")]) == 2
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and words in err and "Traceback" not in err, err
+        assert not (tmp_path / "o").exists()
+
+
+def test_exported_frequencies_and_systems_come_back_bit_for_bit(tmp_path):
+    """export_tables writes frequency_mhz and system when every pulsar has them, and read_tables returns
+    them exactly; when one pulsar lacks a column, the column is left out for all."""
+    from ptares.inputs.tables import export_tables, read_tables
+
+    data = simulate(small_config(array={"random": {"count": 3}}, observing=SHORT))
+    rng = np.random.default_rng(8)
+    pulsars = []
+    for p in data.pulsars:
+        frequency = rng.uniform(300.0, 3000.0, p.mjd.size)
+        frequency[:3] = (0.1 + 0.2, 5e-324, 1.7976931348623157e308)  # shortest repr, subnormal, largest double
+        system = np.array([("UHF.1", "L-band+2", "S_3")[i % 3] for i in range(p.mjd.size)])
+        pulsars.append(dataclasses.replace(p, frequency_mhz=frequency, system=system))
+    dataset = dataclasses.replace(data, pulsars=pulsars)
+    export_tables(dataset, tmp_path / "t")
+    tables = read_tables(tmp_path / "t" / "toas.csv", tmp_path / "t" / "pulsars.csv", 0, need_residuals=True)
+    for p in pulsars:
+        assert tables.frequency_mhz[p.name].tobytes() == p.frequency_mhz.tobytes()
+        assert tables.system[p.name].tolist() == p.system.tolist()
+        assert tables.mjd[p.name].tobytes() == p.mjd.tobytes()
+
+    pulsars[1] = dataclasses.replace(pulsars[1], frequency_mhz=None)
+    export_tables(dataclasses.replace(data, pulsars=pulsars), tmp_path / "u")
+    assert "frequency_mhz" not in (tmp_path / "u" / "toas.csv").read_text().splitlines()[0].split(",")
+    tables = read_tables(tmp_path / "u" / "toas.csv", tmp_path / "u" / "pulsars.csv", 0, need_residuals=True)
+    assert all(tables.frequency_mhz[p.name] is None for p in pulsars)
+    assert all(tables.system[p.name].tolist() == p.system.tolist() for p in pulsars)

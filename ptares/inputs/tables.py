@@ -3,8 +3,14 @@
 TOA table, one row per TOA: ``pulsar``, ``mjd`` (days), ``error`` with its unit
 in the header (``error_us``, ``error_ns``, ``error_s``; plain ``error`` is in
 microseconds) and optional ``residual`` (same unit rule; plain ``residual`` is in
-microseconds).  Columns ``injected_<component>_s`` and ``measured_s`` carry injected
-components and measured residuals (written by :func:`export_tables`).
+microseconds).  Optional ``frequency_mhz`` (the radio frequency of each TOA, MHz, finite
+and positive) and ``system`` (the observing system, receiver and backend, of each TOA, a name
+by the rule of pulsar names) let one epoch hold several TOAs, one per sub-band or receiver: two
+TOAs of a pulsar are duplicates only when their MJD, radio frequency and system are all equal
+(a column the table lacks counts as equal).  TOAs are sorted by MJD, then system, then
+frequency, whatever the order of the rows.  Columns ``injected_<component>_s`` and
+``measured_s`` carry injected components and measured residuals (written by
+:func:`export_tables`).
 
 Catalogue, one row per pulsar: ``name``, ``ra``, ``dec`` (degrees or
 sexagesimal, or ``ra_rad``/``dec_rad``), ``distance`` and ``distance_error``
@@ -17,8 +23,8 @@ header; pulsar names follow the rule of names in configs (:data:`NAME_PATTERN`: 
 path separators, nothing a spreadsheet would run as a formula); a table holds at most
 :data:`MAX_TOAS` TOAs per pulsar and :data:`MAX_TOTAL_TOAS` in all.  Every fault names
 the file, the row (the header is row 1) and the column, and nothing is written.
-Columns that are not read (``frequency_mhz``, say: ptares models no radio-frequency
-dependence) are named in a note once both files have passed every check.
+Columns that are not read (a ``comment`` column, say, or ``residual_us`` when only the
+epochs and errors are taken) are named in a note once both files have passed every check.
 
 Signals file (``signals.json``, written by :func:`export_tables`, read by
 :func:`read_signals`): an object of component name -> object of parameters, as in a
@@ -96,6 +102,8 @@ class TableArray:
     residuals: dict  #: s, or None without a residual column (or when it is not needed)
     injected: dict  #: name -> {component: (n,) s}
     measured: dict  #: name -> (n,) s or None
+    frequency_mhz: dict = field(default_factory=dict)  #: name -> (n,) MHz, or None without a frequency_mhz column
+    system: dict = field(default_factory=dict)  #: name -> (n,) str observing-system names, or None without a system column
 
 
 def _shown(text: str) -> str:
@@ -167,13 +175,33 @@ def _number(path, row_number, column, text) -> float:
     return value
 
 
-def _pulsar_name(path, row_number, column, text) -> str:
-    """``text`` if it is a pulsar name by the rule of names in configs (it becomes an HDF5 group and a file-name part)."""
+def _name(path, row_number, column, text, kind: str) -> str:
+    """``text`` if it is a name by the rule of names in configs (:data:`NAME_PATTERN`); ``kind`` says what
+    name it is in the fault ("a pulsar name")."""
     if not text:
         raise InputError(f"row {row_number}, column {column}: empty", str(path))
     if not NAME_PATTERN.fullmatch(text):
-        raise InputError(f"row {row_number}, column {column}: {_shown(text)} is not a pulsar name ({_NAME_RULE})", str(path))
+        raise InputError(f"row {row_number}, column {column}: {_shown(text)} is not {kind} ({_NAME_RULE})", str(path))
     return text
+
+
+def _pulsar_name(path, row_number, column, text) -> str:
+    """``text`` if it is a pulsar name by the rule of names in configs (it becomes an HDF5 group and a file-name part)."""
+    return _name(path, row_number, column, text, "a pulsar name")
+
+
+def _system_name(path, row_number, column, text) -> str:
+    """``text`` if it is an observing-system name: the rule of pulsar names (it is written to HDF5 and to tables)."""
+    return _name(path, row_number, column, text, "an observing-system name")
+
+
+def _frequency(path, row_number, column, text) -> float:
+    """A radio frequency in MHz: a finite positive number."""
+    value = _number(path, row_number, column, text)
+    if value <= 0:
+        raise InputError(f"row {row_number}, column {column}: {_shown(text)} is not positive (a radio frequency in MHz)",
+                         str(path))
+    return value
 
 
 def _unit_column(header, stem, path, required=True):
@@ -285,6 +313,10 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
     ``measured_s`` columns (``ptares import``); by default as ``need_residuals``.  Columns left
     unread, the table's TOAs out of time order (sorted) are told in :class:`PhysicsWarning` notes,
     once both files have passed every check, so that a refused table gets only its one-line fault.
+
+    The optional ``frequency_mhz`` (MHz) and ``system`` columns are always read.  Each pulsar's TOAs
+    are sorted by MJD, then system, then frequency (a stable sort), so the arrays do not depend on
+    the order of the rows; TOAs equal in all three are refused as duplicates.
     """
     table, catalogue = Path(table), Path(catalogue)
     need_signals = need_residuals if need_signals is None else need_signals
@@ -300,6 +332,8 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
     reasons.update(dict.fromkeys([residual_column] if residual_column else [],
                                  None if need_residuals else "only epochs and errors are taken"))
     reasons.update(dict.fromkeys(signal_columns + ["measured_s"], None if need_signals else "read by ptares import only"))
+    has_frequency, has_system = "frequency_mhz" in header, "system" in header
+    reasons.update(dict.fromkeys(("frequency_mhz", "system")))  # read whenever present
     if not need_residuals:
         residual_column = None
     injected_columns = signal_columns if need_signals else []
@@ -324,7 +358,9 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
         residual = _number(table, number, residual_column, row[residual_column]) * residual_factor if residual_column else 0.0
         extra = [_number(table, number, c, row[c]) for c in injected_columns]
         measured_value = _number(table, number, "measured_s", row["measured_s"]) if measured else None
-        data[name].append((mjd, error, residual, extra, measured_value, number))
+        frequency = _frequency(table, number, "frequency_mhz", row["frequency_mhz"]) if has_frequency else 0.0
+        system = _system_name(table, number, "system", row["system"]) if has_system else ""
+        data[name].append((mjd, error, residual, extra, measured_value, number, frequency, system))
     if not total:
         raise InputError("has a header but no TOAs", str(table))
     notes = [note for note in (catalogue_note, _ignored_note(table, header, reasons)) if note]
@@ -336,13 +372,20 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
         mjd = np.array([e[0] for e in entries])
         if np.any(np.diff(mjd) < 0):
             notes.append(f"{table}: TOAs of {name} were not in time order; sorted")
-        order = np.argsort(mjd, kind="stable")
+        frequency = np.array([e[6] for e in entries])  # 0.0 throughout without a frequency_mhz column
+        system = np.array([e[7] for e in entries], dtype=str)  # "" throughout without a system column
+        order = np.lexsort((frequency, system, mjd))  # by MJD, then system, then frequency; stable
         entries = [entries[i] for i in order]
-        mjd = mjd[order]
-        repeated = np.flatnonzero(np.diff(mjd) == 0)
+        mjd, frequency, system = mjd[order], frequency[order], system[order]
+        same = (np.diff(mjd) == 0) & (np.diff(frequency) == 0) & (system[1:] == system[:-1])
+        repeated = np.flatnonzero(same)
         if repeated.size:
-            row = entries[repeated[0] + 1][5]
-            raise InputError(f"row {row}, column mjd: duplicate TOA of {name} at MJD {float(mjd[repeated[0]])!r}", str(table))
+            first = repeated[0]
+            row = entries[first + 1][5]
+            where = f"MJD {float(mjd[first])!r}"
+            where += f", {float(frequency[first])!r} MHz" if has_frequency else ""
+            where += f", system {system[first]}" if has_system else ""
+            raise InputError(f"row {row}, column mjd: duplicate TOA of {name} at {where}", str(table))
         if mjd.size <= columns_needed:
             raise InputError(f"pulsar {name!r} has {mjd.size} TOAs, not more than the {columns_needed} timing-model columns",
                              str(table))
@@ -352,6 +395,8 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
         out.injected[name] = {c[len("injected_"):-len("_s")]: np.array([e[3][k] for e in entries])
                               for k, c in enumerate(injected_columns)}
         out.measured[name] = np.array([e[4] for e in entries]) if measured else None
+        out.frequency_mhz[name] = frequency if has_frequency else None
+        out.system[name] = system if has_system else None
     for note in notes:
         warnings.warn(note, PhysicsWarning, stacklevel=2)
     return out
@@ -372,18 +417,29 @@ def export_tables(dataset: Dataset, directory) -> list:
     Numbers are written with Python's shortest exact representation, so an
     import reproduces the arrays and the signals bit for bit.  Everything is
     prepared before the first file is written.
+
+    The radio frequencies (``frequency_mhz``, MHz) and observing systems (``system``) of the
+    TOAs are written as columns of ``toas.csv`` only when every pulsar of the dataset has them
+    (each column on its own); when some pulsar lacks them the column is left out altogether,
+    since the table has no way to say "not recorded" for one pulsar.
     """
     directory = Path(directory)
     components = sorted({c for p in dataset.pulsars for c in p.injected})
     has_measured = any(p.measured is not None for p in dataset.pulsars)
     header = ["pulsar", "mjd", "error_s", "residual_s"] + [f"injected_{c}_s" for c in components]
     header += ["measured_s"] if has_measured else []
+    has_frequency = all(p.frequency_mhz is not None for p in dataset.pulsars)
+    has_system = all(p.system is not None for p in dataset.pulsars)
+    header += ["frequency_mhz"] if has_frequency else []
+    header += ["system"] if has_system else []
     rows = []
     for p in dataset.pulsars:
         for i in range(p.mjd.size):
             row = [p.name, repr(float(p.mjd[i])), repr(float(p.errors[i])), repr(float(p.residuals[i]))]
             row += [repr(float(p.injected[c][i])) if c in p.injected else "0.0" for c in components]
             row += [repr(float(p.measured[i])) if p.measured is not None else "0.0"] if has_measured else []
+            row += [repr(float(p.frequency_mhz[i]))] if has_frequency else []
+            row += [str(p.system[i])] if has_system else []
             rows.append(row)
     noise_keys = ["white_scale", "white_quadrature", "red_amplitude", "red_spectral_index", "distance"]
     catalogue_header = ["name", "ra_rad", "dec_rad", "distance_kpc", "distance_error_kpc",
