@@ -37,8 +37,31 @@ from ptares.limits import MAX_TOAS, MAX_TOTAL_TOAS, MEMORY_LIMIT, NAME_PATTERN
 from ptares.physics.sky import unit_vector
 from ptares.version import earlier_names
 
-__all__ = ["PulsarData", "Dataset", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint",
+__all__ = ["PulsarData", "Dataset", "epoch_indices", "EPOCH_WINDOW", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint",
            "describe_signal"]
+
+
+#: TOAs of one observing system separated by less than this many days belong to one epoch (an hour: one
+#: observation in several sub-bands).
+EPOCH_WINDOW = 1.0 / 24.0
+
+
+def epoch_indices(mjd: np.ndarray, system: np.ndarray | None = None) -> np.ndarray:
+    """The epoch of each TOA, numbered 0, 1, ... in time order of their first TOAs: runs of TOAs of one
+    observing system (all TOAs when ``system`` is None) with gaps below :data:`EPOCH_WINDOW`."""
+    mjd = np.asarray(mjd, dtype=float)
+    if mjd.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    keys = np.zeros(mjd.size, dtype=np.int64) if system is None else np.unique(system, return_inverse=True)[1].ravel()
+    order = np.lexsort((mjd, keys))  # by system, then time
+    new = np.ones(mjd.size, dtype=bool)
+    new[1:] = (keys[order][1:] != keys[order][:-1]) | (np.diff(mjd[order]) >= EPOCH_WINDOW)
+    labels = np.empty(mjd.size, dtype=np.int64)
+    labels[order] = np.cumsum(new) - 1
+    first_toa = order[new]  # the first TOA of each epoch, in label order
+    rank = np.empty(first_toa.size, dtype=np.int64)
+    rank[np.lexsort((keys[first_toa], mjd[first_toa]))] = np.arange(first_toa.size)
+    return rank[labels]
 
 
 @dataclass
@@ -60,6 +83,10 @@ class PulsarData:
     measured: np.ndarray | None = None  #: s, residuals taken from a table (inject mode and imports)
     frequency_mhz: np.ndarray | None = None  #: MHz, the radio frequency of each TOA (None: not recorded)
     system: np.ndarray | None = None  #: the observing system (receiver and backend) of each TOA, by name
+
+    def epochs(self) -> np.ndarray:
+        """The epoch of each TOA (:func:`epoch_indices`): the TOAs that share an epoch jitter."""
+        return epoch_indices(self.mjd, self.system)
 
     @property
     def systems(self) -> list:
@@ -167,6 +194,8 @@ def describe_signal(name: str, values: dict, red_pulsars: int = 0) -> str:
     entry, or a component's ``describe``); ``red_pulsars`` counts the pulsars with red noise."""
     if name == "white":
         return "white noise"
+    if name == "jitter":
+        return "epoch jitter"
     frequencies = f", {int(values['harmonics'])} frequencies" if "harmonics" in values else ""
     if name == "red":
         return f"red noise in {red_pulsars} pulsars{frequencies}"

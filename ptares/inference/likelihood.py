@@ -69,6 +69,11 @@ class NotPositiveDefinite(ArithmeticError):
     """A covariance met during a likelihood call was not positive definite."""
 
 
+def _key(value):
+    """A white-noise value (a number or an array) as a cache key."""
+    return float(value) if np.ndim(value) == 0 else np.asarray(value, dtype=float).tobytes()
+
+
 @dataclass
 class _Pulsar:
     residuals: np.ndarray
@@ -77,6 +82,16 @@ class _Pulsar:
     basis: np.ndarray  #: (n, 2 Kb)
     times: np.ndarray  #: s from the dataset's start
     log_det_mtm: float
+    systems: list  #: names of the observing systems (empty when none are recorded)
+    system_index: np.ndarray  #: (n,) each TOA's system, an index into ``systems`` (0 when none)
+    epochs: np.ndarray  #: (n,) each TOA's epoch (:func:`ptares.dataset.epoch_indices`)
+    epoch_system: np.ndarray  #: (epochs,) each epoch's system index
+
+    def epoch_sums(self, values: np.ndarray) -> np.ndarray:
+        """``U^T values``: the rows of ``values`` (n, k) summed over each epoch, (epochs, k)."""
+        out = np.zeros((self.epoch_system.size, values.shape[1]))
+        np.add.at(out, self.epochs, values)
+        return out
 
 
 @dataclass
@@ -162,7 +177,9 @@ class Likelihood:
         :data:`PATTERN_FLOOR` times the identity is added to it: a share of the common
         power that is uncorrelated, too small to matter beside the noise.
 
-    :meth:`__call__` takes per-pulsar arrays ``white_scale``, ``white_quadrature`` (s),
+    :meth:`__call__` takes per-pulsar ``white_scale``, ``white_quadrature`` (s) and optionally
+    ``white_jitter`` (s; each entry one number or one per observing system of the pulsar, see
+    :meth:`projected`),
     ``red_amplitude``, ``red_spectral_index``, the common ``amplitude`` and ``gamma``, and an
     optional ``signal`` (list of per-pulsar residuals, s) subtracted first, and ``chromatic``: per process
     name, (amplitudes (P,), spectral indices (P,)) (a process left out, or an amplitude 0, is absent);
@@ -210,6 +227,15 @@ class Likelihood:
                 basis = np.hstack([basis] + [fourier_basis(times, self.span, k)
                                              * chromatic_scale(p.frequency_mhz, chi[index])[:, None]
                                              for _, k, chi in self.chromatic])
+            systems = p.systems
+            system_index = (np.zeros(p.mjd.size, dtype=np.int64) if p.system is None
+                            else np.unique(p.system, return_inverse=True)[1].ravel())
+            if p.system is not None:  # np.unique sorts the names: map to the order of first use
+                sorted_names = list(np.unique(p.system))
+                system_index = np.array([systems.index(sorted_names[i]) for i in range(len(sorted_names))])[system_index]
+            epochs = p.epochs()
+            epoch_system = np.zeros(int(epochs.max()) + 1, dtype=np.int64)
+            epoch_system[epochs] = system_index
             self.pulsars.append(
                 _Pulsar(
                     residuals=p.residuals,
@@ -218,6 +244,10 @@ class Likelihood:
                     basis=basis,
                     times=times,
                     log_det_mtm=float(np.linalg.slogdet(design.T @ design)[1]) if design.shape[1] else 0.0,
+                    systems=systems,
+                    system_index=system_index,
+                    epochs=epochs,
+                    epoch_system=epoch_system,
                 )
             )
         positions = np.array([p.position for p in dataset.pulsars])
@@ -229,34 +259,59 @@ class Likelihood:
         self._core_index = _core_indices(count, 2 * self.harmonics) if self.correlated and self.harmonics else None
 
     # --- pieces ---------------------------------------------------------------
-    def projected(self, index: int, scale: float, quadrature: float, signal=None):
-        """Pulsar ``index``'s :class:`Projected` pieces for a white noise (cached by white noise)."""
-        key = (index, float(scale), float(quadrature))
+    def projected(self, index: int, scale, quadrature, signal=None, jitter=None):
+        """Pulsar ``index``'s :class:`Projected` pieces for a white noise (cached by white noise).
+
+        ``scale`` and ``quadrature`` (s): one number, or one per observing system of the pulsar (in the
+        order of ``PulsarData.systems``); ``jitter`` (s): None, one number or one per system, the standard
+        deviation shared by the TOAs of an epoch, handled per epoch by Sherman–Morrison (PHYSICS.md, "Epoch
+        jitter"): with W = diag(1 / sigma_i^2) and U the TOA-to-epoch indicator,
+        ``X^T N^-1 Y = X^T W Y - (U^T W X)^T diag(c) (U^T W Y)``, ``c_e = J_e^2 / (1 + J_e^2 sum_(i in e) w_i)``,
+        and ``ln|N| = -sum ln w_i + sum_e ln(1 + J_e^2 sum_(i in e) w_i)``: linear in the TOAs.
+        """
+        scalar = np.ndim(scale) == 0 and np.ndim(quadrature) == 0
+        no_jitter = jitter is None or not np.any(jitter)
+        key = (index, _key(scale), _key(quadrature), None if no_jitter else _key(jitter))
         cached = self._white_cache.get(key) if signal is None else None
         if cached is not None:
             return cached
-        if quadrature == 0 and scale != 1 and signal is None:
+        if scalar and no_jitter and quadrature == 0 and scale != 1 and signal is None:
             # N = scale^2 diag(errors^2) scales N'^-1 by 1/scale^2 and ln|N| + ln|M^T N^-1 M| by (n - m) ln scale^2
             FNF, FNr, rNr, log_det, dof = self.projected(index, 1.0, 0.0)
             factor = 1.0 / (scale * scale)
             return Projected(FNF * factor, FNr * factor, rNr * factor, log_det + dof * np.log(scale * scale), dof)
         p = self.pulsars[index]
-        weights = 1.0 / ((scale * p.errors) ** 2 + quadrature**2)
+        per_toa = (lambda v: v) if scalar else (lambda v: np.asarray(v, dtype=float)[p.system_index])
+        weights = 1.0 / ((per_toa(scale) * p.errors) ** 2 + per_toa(quadrature) ** 2)
         r = p.residuals if signal is None else p.residuals - signal
         F, M = p.basis, p.design
-        FN = F.T * weights
-        FNF = FN @ F
-        FNr = FN @ r
-        rNr = float(r @ (weights * r))
         log_det = -float(np.sum(np.log(weights)))
-        if M.shape[1]:
+        if no_jitter:
+            FN = F.T * weights
+            FNF = FN @ F
+            FNr = FN @ r
+            rNr = float(r @ (weights * r))
             MN = M.T * weights
-            lower, info = _lapack.dpotrf(MN @ M, lower=1, clean=1)
+            MNM, MNF, MNr = MN @ M, MN @ F, MN @ r
+        else:
+            variance = np.broadcast_to(np.asarray(jitter, dtype=float) ** 2, (len(p.systems) or 1,))[p.epoch_system]
+            total = np.bincount(p.epochs, weights=weights, minlength=variance.size)  # sum of w_i over each epoch
+            c = variance / (1.0 + variance * total)
+            log_det += float(np.sum(np.log1p(variance * total)))
+            X = np.hstack([F, M, r[:, None]])
+            WX = X * weights[:, None]
+            sums = p.epoch_sums(WX)  # U^T W X, (epochs, columns)
+            gram = X.T @ WX - sums.T @ (sums * c[:, None])
+            f, m = F.shape[1], M.shape[1]
+            FNF, FNr, rNr = gram[:f, :f], gram[:f, -1], float(gram[-1, -1])
+            MNM, MNF, MNr = gram[f:f + m, f:f + m], gram[f:f + m, :f], gram[f:f + m, -1]
+        if M.shape[1]:
+            lower, info = _lapack.dpotrf(MNM, lower=1, clean=1)
             if info:
                 raise NotPositiveDefinite(f"M^T N^-1 M of pulsar {index} is not positive definite (degenerate timing model?)")
             # with M^T N^-1 M = L L^T: subtract (L^-1 M^T N^-1 F)^T (L^-1 M^T N^-1 F) and the like
-            whitened_F = _lapack.dtrtrs(lower, MN @ F, lower=1)[0]
-            whitened_r = _lapack.dtrtrs(lower, MN @ r, lower=1)[0]
+            whitened_F = _lapack.dtrtrs(lower, MNF, lower=1)[0]
+            whitened_r = _lapack.dtrtrs(lower, MNr, lower=1)[0]
             FNF = FNF - whitened_F.T @ whitened_F
             FNr = FNr - whitened_F.T @ whitened_r
             rNr = rNr - float(whitened_r @ whitened_r)
@@ -290,22 +345,22 @@ class Likelihood:
 
     # --- the likelihood -------------------------------------------------------
     def __call__(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
-                 signal=None, chromatic=None) -> float:
+                 signal=None, chromatic=None, white_jitter=None) -> float:
         return self.evaluate(white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude, gamma, signal,
-                             chromatic)[0]
+                             chromatic, white_jitter)[0]
 
     def evaluate(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
-                 signal=None, chromatic=None):
+                 signal=None, chromatic=None, white_jitter=None):
         """``(log likelihood, factors)``: the factors let :meth:`draw_coefficients` draw at the same
         parameters without factorising again."""
-        pieces = self._pieces(white_scale, white_quadrature, signal)
+        pieces = self._pieces(white_scale, white_quadrature, signal, white_jitter)
         red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic)
         constant = sum(-0.5 * (piece.log_det + piece.dof * _LOG_2PI) - 0.5 * piece.rNr for piece in pieces)
         factors = self._factorise(pieces, red, common)
         return constant + 0.5 * factors.quadratic - 0.5 * factors.log_det, factors
 
     def draw_coefficients(self, rng, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0,
-                          gamma=13.0 / 3.0, signal=None, factors=None, chromatic=None) -> np.ndarray:
+                          gamma=13.0 / 3.0, signal=None, factors=None, chromatic=None, white_jitter=None) -> np.ndarray:
         """One draw of every pulsar's Fourier coefficients (P, width) in s from ``p(a | parameters, residuals)``.
 
         The timing model is marginalised: ``a ~ N(Sigma^-1 d, Sigma^-1)`` with
@@ -317,7 +372,7 @@ class Likelihood:
         returned at the same parameters (else they are computed).
         """
         if factors is None:
-            pieces = self._pieces(white_scale, white_quadrature, signal)
+            pieces = self._pieces(white_scale, white_quadrature, signal, white_jitter)
             red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic)
             factors = self._factorise(pieces, red, common)
         coefficients = np.zeros((len(self.pulsars), self.width))
@@ -335,9 +390,10 @@ class Likelihood:
             coefficients[block.members[:, None], block.columns[None, :]] = own
         return coefficients
 
-    def _pieces(self, white_scale, white_quadrature, signal):
+    def _pieces(self, white_scale, white_quadrature, signal, white_jitter=None):
         return [
-            self.projected(a, white_scale[a], white_quadrature[a], None if signal is None else signal[a])
+            self.projected(a, white_scale[a], white_quadrature[a], None if signal is None else signal[a],
+                           None if white_jitter is None else white_jitter[a])
             for a in range(len(self.pulsars))
         ]
 

@@ -199,13 +199,16 @@ class RunSection(_Section):
 
 
 class WhiteNoise(_Section):
-    """``[noise.white]``: TOA errors become ``(scale * error)^2 + quadrature^2``.
+    """``[noise.white]``: TOA errors become ``(scale * error)^2 + quadrature^2``, and TOAs of one epoch
+    (one observing system, one observation) share a further ``jitter`` (PHYSICS.md, "Epoch jitter").
 
-    ``scale`` dimensionless (default 1), ``quadrature`` in microseconds (default 0); both drawable.
+    ``scale`` dimensionless (default 1), ``quadrature`` and ``jitter`` in microseconds (default 0); all
+    drawable.  An observing system may set its own (``[observing] systems``).
     """
 
     scale: Drawable(None, Positive) = 1.0
     quadrature: Drawable("us", NonNegative) = 0.0
+    jitter: Drawable("us", NonNegative) = 0.0
 
 
 class RedNoise(_Section):
@@ -256,6 +259,7 @@ class NoiseSection(_Section):
 class WhiteOverride(_Section):
     scale: Optional[Drawable(None, Positive)] = None
     quadrature: Optional[Drawable("us", NonNegative)] = None
+    jitter: Optional[Drawable("us", NonNegative)] = None
 
 
 class RedOverride(_Section):
@@ -276,12 +280,15 @@ class ObservingSystem(_Section):
 
     ``name``; ``frequencies`` the radio frequency of each sub-band, MHz (one TOA per
     sub-band and epoch, all at the epoch's MJD); ``toa_error`` microseconds
-    (drawable; default the schedule's ``toa_error``).
+    (drawable; default the schedule's ``toa_error``); ``white`` this system's white noise
+    (``scale``, ``quadrature``, ``jitter``; drawable, each pulsar its own draw; default the
+    pulsar's).
     """
 
     name: SafeName
     frequencies: tuple[Quantity("MHz", Positive), ...]
     toa_error: Optional[Drawable("us", Positive)] = None
+    white: WhiteOverride = WhiteOverride()
 
     @field_validator("frequencies")
     @classmethod

@@ -51,6 +51,9 @@ class PulsarSetup:
     true_distance: float  #: kpc, the distance pulsar terms use (drawn when the config varies distances)
     #: (process, amplitude, spectral index, chromatic index) of each chromatic process with a non-zero amplitude
     chromatic: tuple = ()
+    white_jitter: float = 0.0  #: s, shared by the TOAs of one epoch (without ``subbands``)
+    #: per observing system, (system, white scale, white quadrature s, jitter s), in system-name order
+    system_white: tuple = ()
     radio_frequency: float = REFERENCE_FREQUENCY_MHZ  #: MHz, of every TOA when there are no ``subbands``
     #: (system, radio frequency MHz, TOA error s) of each TOA of an epoch, in TOA order; empty: one TOA per epoch
     subbands: tuple = ()
@@ -176,6 +179,8 @@ def build_array(config: Config, seed: int, tables=None) -> list[PulsarSetup]:
                 white_quadrature=_resolve(
                     _first(white and white.quadrature, noise.white.quadrature), seed, name, "white_quadrature", _US
                 ),
+                white_jitter=_resolve(_first(white and white.jitter, noise.white.jitter), seed, name, "white_jitter", _US),
+                system_white=_system_white(obs, white, noise, seed, name),
                 red_amplitude=_resolve(_first(red and red.amplitude, noise.red.amplitude), seed, name, "red_amplitude"),
                 red_spectral_index=_resolve(_first(red and red.spectral_index, noise.red.spectral_index), seed, name, "red_spectral_index"),
                 true_distance=_true_distance(
@@ -200,6 +205,22 @@ def _chromatic(noise, entry: dict, seed: int, name: str) -> tuple:
         if values[0] > 0:
             processes.append((process, *values))
     return tuple(processes)
+
+
+def _system_white(obs, white, noise, seed: int, name: str) -> tuple:
+    """(system, white scale, quadrature s, jitter s) of each observing system of one pulsar: the system's own
+    values where it sets them (each pulsar its own draw), else the pulsar's, else ``[noise.white]``."""
+    values = []
+    for system in sorted(obs.systems, key=lambda s: s.name):
+        own = system.white
+        scale = _first(own.scale, white and white.scale, noise.white.scale)
+        quadrature = _first(own.quadrature, white and white.quadrature, noise.white.quadrature)
+        jitter = _first(own.jitter, white and white.jitter, noise.white.jitter)
+        values.append((system.name,
+                       _resolve(scale, seed, name, f"white_scale {system.name}"),
+                       _resolve(quadrature, seed, name, f"white_quadrature {system.name}", _US),
+                       _resolve(jitter, seed, name, f"white_jitter {system.name}", _US)))
+    return tuple(values)
 
 
 def _subbands(obs, seed: int, name: str) -> tuple:

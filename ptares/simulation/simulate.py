@@ -20,7 +20,7 @@ from ptares.physics.timing_model import column_names, design_matrix, fit_timing_
 from ptares.rng import fresh_seed
 from ptares.simulation.array import build_array, observe
 from ptares.simulation.signals import Context, build_components
-from ptares.simulation.signals.white import effective_uncertainties
+from ptares.simulation.signals.white import effective_uncertainties, toa_white
 from ptares.version import __version__
 
 __all__ = ["simulate", "outline", "run_seed", "import_tables", "config_tables"]
@@ -90,7 +90,7 @@ def _setup(config: Config, seed: int):
     context = Context(pulsars=tuple(pulsars), observations=observations, seed=seed)
     components = build_components(config, pulsars)
     if tables is not None and config.array.mode == "inject":  # measured residuals already hold the real noise: add signals only
-        components = [c for c in components if c.name != "white"]
+        components = [c for c in components if c.name not in ("white", "jitter")]
     return pulsars, observations, context, components, tables
 
 
@@ -125,7 +125,8 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
     for a, p in enumerate(pulsars):
         mjd, errors = observations.mjd[a], observations.toa_errors[a]
         total = np.sum([injected[name][a] for name in injected], axis=0) if injected else np.zeros(mjd.size)
-        weights = effective_uncertainties(errors, p.white_scale, p.white_quadrature)
+        scale, quadrature, _ = toa_white(p, observations.system[a] if observations.system else None, mjd.size)
+        weights = effective_uncertainties(errors, scale, quadrature)
         fitted, _ = fit_timing_model(total, designs[a], weights)
         # an injection keeps the measured part exactly; only the injected signals pass through the fit
         residuals.append(tables.residuals[p.name] + fitted if inject else fitted)
@@ -159,6 +160,9 @@ def _dataset(config, seed, pulsars, observations, context, components, designs, 
                     "red_amplitude": p.red_amplitude,
                     "red_spectral_index": p.red_spectral_index,
                     "distance": p.true_distance,
+                    "white_jitter": p.white_jitter,
+                    **{f"{key}:{system}": value for system, *values in p.system_white
+                       for key, value in zip(("white_scale", "white_quadrature", "white_jitter"), values)},
                     **{f"{process}_{key}": value for process, *values in p.chromatic
                        for key, value in zip(("amplitude", "spectral_index", "chromatic_index"), values)},
                 },

@@ -18,6 +18,7 @@ __all__ = ["BUILDERS", "build_components", "Component", "Context"]
 #: builder's components are named by their process, "dispersion" and "scattering").
 BUILDERS = {
     "white": white.from_config,
+    "jitter": white.jitter_from_config,
     "red": red.from_config,
     "chromatic": chromatic.from_config,
     "gwb": background.from_config,

@@ -1,7 +1,10 @@
-"""White measurement noise: independent Gaussian errors at each TOA.
+"""White measurement noise: independent Gaussian errors at each TOA, and epoch jitter.
 
 Each TOA's quoted uncertainty ``sigma`` becomes ``sqrt((scale sigma)^2 + quadrature^2)``
-(PHYSICS.md, "Intrinsic noise"), with the pulsar's own ``scale`` and ``quadrature``.
+(PHYSICS.md, "Intrinsic noise"), with the ``scale`` and ``quadrature`` of the TOA's observing
+system (the pulsar's own without systems).  Jitter adds one Gaussian value of standard
+deviation ``J`` (its system's) to every TOA of an epoch (PHYSICS.md, "Epoch jitter"; epochs
+as :func:`ptares.dataset.epoch_indices` groups them).
 """
 
 from __future__ import annotations
@@ -10,15 +13,27 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ptares.dataset import epoch_indices
 from ptares.rng import stream
 from ptares.simulation.signals.base import Context
 
-__all__ = ["WhiteNoise", "effective_uncertainties", "from_config"]
+__all__ = ["WhiteNoise", "Jitter", "effective_uncertainties", "toa_white", "from_config", "jitter_from_config"]
 
 
-def effective_uncertainties(toa_errors, scale: float, quadrature: float) -> np.ndarray:
-    """White-noise standard deviation (s) of each TOA."""
+def effective_uncertainties(toa_errors, scale, quadrature) -> np.ndarray:
+    """White-noise standard deviation (s) of each TOA (``scale`` and ``quadrature`` scalars or per TOA)."""
     return np.sqrt((scale * np.asarray(toa_errors, dtype=float)) ** 2 + quadrature**2)
+
+
+def toa_white(pulsar, system, count: int):
+    """Per-TOA (white scale, quadrature s, jitter s) of one pulsar (a
+    :class:`~ptares.simulation.array.PulsarSetup`) whose TOAs have the observing ``system`` names (or None)."""
+    if system is None or not pulsar.system_white:
+        return (np.full(count, pulsar.white_scale), np.full(count, pulsar.white_quadrature),
+                np.full(count, pulsar.white_jitter))
+    table = {name: values for name, *values in pulsar.system_white}
+    values = np.array([table[str(s)] for s in system], dtype=float).reshape(count, 3)
+    return values[:, 0], values[:, 1], values[:, 2]
 
 
 @dataclass(frozen=True)
@@ -27,9 +42,34 @@ class WhiteNoise:
 
     def draw(self, context: Context) -> list[np.ndarray]:
         out = []
-        for pulsar, errors in zip(context.pulsars, context.observations.toa_errors):
-            sigma = effective_uncertainties(errors, pulsar.white_scale, pulsar.white_quadrature)
+        observations = context.observations
+        for a, (pulsar, errors) in enumerate(zip(context.pulsars, observations.toa_errors)):
+            system = observations.system[a] if observations.system else None
+            scale, quadrature, _ = toa_white(pulsar, system, errors.size)
+            sigma = effective_uncertainties(errors, scale, quadrature)
             out.append(stream(context.seed, self.name, pulsar.name).normal(0.0, sigma))
+        return out
+
+    def describe(self, context: Context) -> dict:
+        return {}
+
+
+@dataclass(frozen=True)
+class Jitter:
+    """One Gaussian value per epoch, shared by the epoch's TOAs."""
+
+    name: str = "jitter"
+
+    def draw(self, context: Context) -> list[np.ndarray]:
+        out = []
+        observations = context.observations
+        for a, pulsar in enumerate(context.pulsars):
+            mjd = observations.mjd[a]
+            system = observations.system[a] if observations.system else None
+            _, _, jitter = toa_white(pulsar, system, mjd.size)
+            epochs = epoch_indices(mjd, system)
+            values = stream(context.seed, self.name, pulsar.name).standard_normal(int(epochs.max()) + 1 if mjd.size else 0)
+            out.append(jitter * values[epochs])
         return out
 
     def describe(self, context: Context) -> dict:
@@ -39,3 +79,10 @@ class WhiteNoise:
 def from_config(config, pulsars):
     """White noise is always present."""
     return WhiteNoise()
+
+
+def jitter_from_config(config, pulsars):
+    """Epoch jitter when any pulsar or observing system has a non-zero jitter."""
+    if any(p.white_jitter > 0 or any(j > 0 for *_, j in p.system_white) for p in pulsars):
+        return Jitter()
+    return None

@@ -1,0 +1,113 @@
+"""White noise per observing system and epoch jitter (PHYSICS.md, "Radio frequency and chromatic noise",
+common practice): sigma_i^2 -> (s_b sigma_i)^2 + q_b^2 for a TOA of system b, and a variance J_b^2 shared by
+the TOAs of one epoch (covariance U diag(J^2) U^T), checked against the dense Gaussian density (scipy)."""
+
+import numpy as np
+import pytest
+import scipy.linalg
+import scipy.stats
+from conftest import small_config
+
+from ptares.dataset import epoch_indices
+from ptares.inference.likelihood import Likelihood
+from ptares.simulation.simulate import simulate
+
+SYSTEMS = [{"name": "Lo", "frequencies": [700.0, 900.0], "white": {"scale": 1.3, "jitter": 0.4}},
+           {"name": "Hi", "frequencies": [1400.0, 1600.0, 1800.0], "white": {"quadrature": 0.2, "jitter": 0.1}}]
+
+
+def systems_config(count=3, **noise):
+    return small_config(
+        array={"random": {"count": count}},
+        observing={"start": 53000.0, "span": 4.0, "cadence": 40.0, "cadence_jitter": 3.0, "toa_error": 0.3,
+                   "systems": SYSTEMS},
+        noise={"red": {"amplitude": 2e-15, "harmonics": 5}, **noise},
+        gwb={"amplitude": 3e-15, "harmonics": 4},
+    )
+
+
+def dense_log_density(data, scale, quadrature, jitter, red, common):
+    """log N(G^T r; 0, G^T C G): C written TOA by TOA (white per system, jitter per epoch as the indicator
+    outer product, red and common power laws on sin/cos of k/T: A^2/(12 pi^2) f_yr^-3 (f/f_yr)^-gamma / T)."""
+    year = 365.25 * 86400.0
+
+    def columns(t, k):
+        phase = 2 * np.pi * np.outer(t, np.arange(1, k + 1)) / data.span
+        return np.hstack([np.sin(phase), np.cos(phase)])
+
+    def variances(k, amplitude, gamma):
+        f = np.arange(1, k + 1) / data.span
+        return np.tile(amplitude**2 / (12 * np.pi**2) * year**3 * (f * year) ** -gamma / data.span, 2)
+
+    blocks, projections, residuals = [], [], []
+    for a, p in enumerate(data.pulsars):
+        t = (p.mjd - data.start_mjd) * 86400.0
+        which = np.array([p.systems.index(s) for s in p.system])
+        C = np.diag((scale[a][which] * p.errors) ** 2 + quadrature[a][which] ** 2)
+        epochs = epoch_indices(p.mjd, p.system)
+        same = epochs[:, None] == epochs[None, :]
+        C += same * (jitter[a][which][:, None] ** 2)  # J of the epoch's system (one system per epoch)
+        F = columns(t, red[a][0])
+        C += (F * variances(*red[a])) @ F.T
+        F = columns(t, common[0])
+        C += (F * variances(*common)) @ F.T  # uncorrelated common process: a block per pulsar
+        blocks.append(C)
+        projections.append(np.linalg.svd(p.design_matrix)[0][:, p.design_matrix.shape[1]:])
+        residuals.append(p.residuals)
+    G = scipy.linalg.block_diag(*projections)
+    C = scipy.linalg.block_diag(*blocks)
+    r = np.concatenate(residuals)
+    return scipy.stats.multivariate_normal(mean=np.zeros(G.shape[1]), cov=G.T @ C @ G).logpdf(G.T @ r)
+
+
+@pytest.mark.parametrize("jitter_on", [True, False])
+def test_jitter_and_system_white_noise_likelihood_equals_the_dense_gaussian_density(jitter_on):
+    data = simulate(systems_config(), seed=3)
+    assert all(p.systems == ["Hi", "Lo"] for p in data.pulsars)  # systems in order of first use
+    scale = [np.array([1.1, 1.4]), np.array([0.9, 1.0]), np.array([1.2, 0.8])]
+    quadrature = [np.array([2e-7, 0.0]), np.array([0.0, 1e-7]), np.array([5e-8, 5e-8])]
+    jitter = [np.array([3e-7, 1e-7]), np.array([0.0, 4e-7]), np.array([2e-7, 2e-7])]
+    if not jitter_on:
+        jitter = [np.zeros(2)] * 3
+    red_amplitude, red_index = np.array([2e-15, 1e-15, 3e-15]), np.array([3.0, 4.0, 5.0])
+    likelihood = Likelihood(data, 4, 5, False)
+    ours = likelihood(scale, quadrature, red_amplitude, red_index, 3e-15, 13 / 3, white_jitter=jitter)
+    dense = dense_log_density(data, scale, quadrature, jitter, [(5, red_amplitude[a], red_index[a]) for a in range(3)],
+                              (4, 3e-15, 13 / 3))
+    assert ours == pytest.approx(dense, rel=1e-9)
+    if jitter_on:
+        assert abs(ours - likelihood(scale, quadrature, red_amplitude, red_index, 3e-15, 13 / 3)) > 1.0
+
+
+def test_epochs_group_the_sub_bands_of_one_system_and_observation():
+    """Simulated sub-bands share their epoch's MJD: each epoch holds the sub-bands of one system."""
+    p = simulate(systems_config(count=1), seed=1).pulsars[0]
+    epochs = p.epochs()
+    for e in range(epochs.max() + 1):
+        members = epochs == e
+        assert len(set(p.system[members])) == 1 and len(set(p.mjd[members])) == 1
+        assert members.sum() == (2 if p.system[members][0] == "Lo" else 3)
+    # by the rule: TOAs of one system less than an hour apart are one epoch, an hour or more apart are two
+    assert list(epoch_indices(np.array([0.0, 0.01, 0.05, 0.2]), np.array(["a", "a", "a", "a"]))) == [0, 0, 0, 1]
+    assert list(epoch_indices(np.array([0.0, 0.0]), np.array(["b", "a"]))) == [1, 0]
+
+
+def test_jitter_and_system_white_noise_have_their_injected_variances():
+    """Over 300 realisations the injected white noise of a TOA of system b has variance (s_b sigma)^2 + q_b^2
+    and the jitter J_b^2, shared exactly within an epoch (within 4 standard errors of a variance estimate,
+    sqrt(2 / (n - 1)) relative, Gaussian approximation)."""
+    config = systems_config(count=1)
+    white, jitter = {"Lo": [], "Hi": []}, {"Lo": [], "Hi": []}
+    for seed in range(300):
+        p = simulate(config, seed=seed).pulsars[0]
+        for system in ("Lo", "Hi"):
+            here = np.flatnonzero(p.system == system)
+            white[system].append(p.injected["white"][here[0]] / p.errors[here[0]] if system == "Lo"
+                                 else p.injected["white"][here[0]])
+            jitter[system].append(p.injected["jitter"][here[0]])
+            assert np.all(p.injected["jitter"][here[: (2 if system == "Lo" else 3)]] == p.injected["jitter"][here[0]])
+    expected = {"white Lo": 1.3**2, "white Hi": 0.3e-6**2 + 0.2e-6**2, "jitter Lo": 0.4e-6**2, "jitter Hi": 0.1e-6**2}
+    measured = {"white Lo": np.var(white["Lo"], ddof=1), "white Hi": np.var(white["Hi"], ddof=1),
+                "jitter Lo": np.var(jitter["Lo"], ddof=1), "jitter Hi": np.var(jitter["Hi"], ddof=1)}
+    for key, value in expected.items():
+        assert abs(measured[key] / value - 1) < 4 * np.sqrt(2 / 299), (key, measured[key], value)
