@@ -89,6 +89,20 @@ def _chromatic(noise: NoiseModel, a: int, pulsar, times, span: float):
     return np.hstack(columns), np.concatenate(variances)
 
 
+def _jitter(noise: NoiseModel, a: int, pulsar):
+    """Pulsar ``a``'s epoch jitter as columns: the TOA-to-epoch indicator U (n, epochs) and the epochs'
+    variances J^2, so that U diag(J^2) U^T is the jitter covariance (PHYSICS.md, "Epoch jitter")."""
+    jitter = noise.jitter(a)
+    if jitter is None:
+        return np.empty((pulsar.mjd.size, 0)), np.empty(0)
+    epochs = pulsar.epochs()
+    indicator = np.zeros((pulsar.mjd.size, int(epochs.max()) + 1))
+    indicator[np.arange(pulsar.mjd.size), epochs] = 1.0
+    variance = np.zeros(indicator.shape[1])
+    variance[epochs] = jitter**2
+    return indicator, variance
+
+
 def fourier_products(dataset: Dataset, noise: NoiseModel, harmonics: int, gamma: float) -> FourierProducts:
     """``X_a`` and ``Z_a`` of every pulsar for a template of ``harmonics`` frequencies and index ``gamma``."""
     span = dataset.span
@@ -113,8 +127,9 @@ def fourier_products(dataset: Dataset, noise: NoiseModel, harmonics: int, gamma:
             red = coefficient_variance(span, noise.red_harmonics, noise.red_amplitude[a], noise.red_spectral_index[a])
             prior[: 2 * noise.red_harmonics] += np.repeat(red, 2)
         chromatic_columns, chromatic_prior = _chromatic(noise, a, p, times, span)
-        F = np.hstack([F, chromatic_columns])  # the template's columns stay the first 2 * harmonics
-        prior = np.concatenate([prior, chromatic_prior])
+        jitter_columns, jitter_prior = _jitter(noise, a, p)
+        F = np.hstack([F, chromatic_columns, jitter_columns])  # the template's columns stay the first 2 * harmonics
+        prior = np.concatenate([prior, chromatic_prior, jitter_prior])
         inv_n = 1.0 / noise.white_sigma(a, p.errors) ** 2
         kept = prior > 0  # columns without prior power add nothing to the covariance
         T = np.hstack([p.design_matrix, F[:, kept]])

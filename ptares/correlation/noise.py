@@ -37,10 +37,36 @@ class NoiseModel:
     #: chromatic processes, each (name, harmonics, amplitudes (P,), spectral indices (P,), chromatic indices (P,)),
     #: stated at 1400 MHz (PHYSICS.md, "Radio frequency and chromatic noise")
     chromatic: tuple = ()
+    #: per pulsar, each TOA's white-noise standard deviation (s) where it is per observing system (then it
+    #: replaces the pulsar's scale and quadrature); empty when none is
+    toa_white: tuple = ()
+    #: per pulsar, each TOA's epoch jitter (s; the jitter of its system), or None; empty when there is none
+    toa_jitter: tuple = ()
 
     def white_sigma(self, index: int, toa_errors: np.ndarray) -> np.ndarray:
         """White-noise standard deviation (s) of each TOA of pulsar ``index``."""
+        if self.toa_white and self.toa_white[index] is not None:
+            return self.toa_white[index]
         return np.sqrt((self.white_scale[index] * toa_errors) ** 2 + self.white_quadrature[index] ** 2)
+
+    def jitter(self, index: int):
+        """Epoch jitter (s) of each TOA of pulsar ``index``, or None without any."""
+        return self.toa_jitter[index] if self.toa_jitter else None
+
+
+def _per_toa(p):
+    """A pulsar's injected white noise per TOA where it is per observing system, and its jitter per TOA:
+    ``(sigma or None, jitter or None)``, s."""
+    noise = p.noise
+    if p.system is None:
+        jitter = float(noise.get("white_jitter", 0.0))
+        return None, (np.full(p.mjd.size, jitter) if jitter > 0 else None)
+    table = {s: [float(noise.get(f"{key}:{s}", noise.get(key, default)))
+                 for key, default in (("white_scale", 1.0), ("white_quadrature", 0.0), ("white_jitter", 0.0))]
+             for s in p.systems}
+    values = np.array([table[str(s)] for s in p.system]).reshape(p.mjd.size, 3)
+    sigma = np.sqrt((values[:, 0] * p.errors) ** 2 + values[:, 1] ** 2)
+    return sigma, (values[:, 2] if np.any(values[:, 2] > 0) else None)
 
 
 def noise_from_dataset(dataset: Dataset) -> NoiseModel:
@@ -62,7 +88,10 @@ def noise_from_dataset(dataset: Dataset) -> NoiseModel:
             chromatic.append((process, int(dataset.signals.get(process, {}).get("harmonics", 30)), amplitudes,
                               np.array([float(n.get(f"{process}_spectral_index", 13.0 / 3.0)) for n in noise]),
                               np.array([float(n.get(f"{process}_chromatic_index", 2.0)) for n in noise])))
+    per_toa = [_per_toa(p) for p in dataset.pulsars]
     return NoiseModel(
+        toa_white=tuple(w for w, _ in per_toa) if any(w is not None for w, _ in per_toa) else (),
+        toa_jitter=tuple(j for _, j in per_toa) if any(j is not None for _, j in per_toa) else (),
         white_scale=white_scale,
         white_quadrature=white_quadrature,
         red_amplitude=red_amplitude,

@@ -89,9 +89,9 @@ class _Pulsar:
 
     def epoch_sums(self, values: np.ndarray) -> np.ndarray:
         """``U^T values``: the rows of ``values`` (n, k) summed over each epoch, (epochs, k)."""
-        out = np.zeros((self.epoch_system.size, values.shape[1]))
-        np.add.at(out, self.epochs, values)
-        return out
+        order = np.argsort(self.epochs, kind="stable")
+        starts = np.flatnonzero(np.diff(self.epochs[order], prepend=-1))  # every epoch has a TOA
+        return np.add.reduceat(values[order], starts, axis=0)
 
 
 @dataclass

@@ -31,9 +31,11 @@ from ptares.inference.parameters import (
     PER_PULSAR,
     RED_AMPLITUDE,
     RED_INDEX,
+    WHITE_JITTER,
     WHITE_QUADRATURE,
     WHITE_SCALE,
     binary,
+    white_owners,
     for_pulsar,
     is_array_signal,
     quantity,
@@ -55,6 +57,7 @@ DEFAULT_PRIORS = {
     RED_INDEX: prior_module.Uniform(0.0, 7.0),
     WHITE_SCALE: prior_module.Uniform(0.1, 5.0),
     WHITE_QUADRATURE: prior_module.Uniform(-9.0, -4.0),
+    WHITE_JITTER: prior_module.Uniform(-9.0, -4.0),
     **{amplitude: prior_module.Uniform(-20.0, -11.0) for amplitude, _ in CHROMATIC.values()},
     **{index: prior_module.Uniform(0.0, 7.0) for _, index in CHROMATIC.values()},
     binary("orbital_phase"): prior_module.Uniform(0.0, 2.0 * np.pi),
@@ -68,7 +71,7 @@ DEFAULT_PRIORS = {
 VALID = {
     COMMON_AMPLITUDE: (-np.inf, -9.0), RED_AMPLITUDE: (-np.inf, -9.0), binary("lg_strain"): (-np.inf, -9.0),
     COMMON_INDEX: (-10.0, 10.0), RED_INDEX: (-10.0, 10.0),
-    WHITE_SCALE: (1e-6, 1e3), WHITE_QUADRATURE: (-np.inf, -2.0),
+    WHITE_SCALE: (1e-6, 1e3), WHITE_QUADRATURE: (-np.inf, -2.0), WHITE_JITTER: (-np.inf, -2.0),
     **{amplitude: (-np.inf, -9.0) for amplitude, _ in CHROMATIC.values()},
     **{index: (-10.0, 10.0) for _, index in CHROMATIC.values()},
     binary("orbital_phase"): (-1e6, 1e6), binary("inclination_cosine"): (-1.0, 1.0), binary("polarization_angle"): (-1e6, 1e6),
@@ -184,12 +187,21 @@ class FitModel:
                             for process, mode in self.chromatic_modes.items()),
         )
 
+        injected_jitter = any(float(v) > 0 for p in dataset.pulsars for k, v in p.noise.items()
+                              if k.split(":")[0] == "white_jitter")
+        self.jitter_mode = section.jitter or ("injected" if injected_jitter else "none")
         # every parameter the model has, with its default (injected) value
         values = {}
-        for p in dataset.pulsars:
-            values[for_pulsar(WHITE_SCALE, p.name)] = float(p.noise.get("white_scale", 1.0))
-            quadrature = float(p.noise.get("white_quadrature", 0.0))
-            values[for_pulsar(WHITE_QUADRATURE, p.name)] = np.log10(quadrature) if quadrature > 0 else -np.inf
+        self._white_owners = [white_owners(p) for p in dataset.pulsars]
+        for p, owners in zip(dataset.pulsars, self._white_owners):
+            for owner, system in zip(owners, p.systems or [None]):
+                def injected(key, default, system=system):  # the system's own value, else the pulsar's
+                    return float(p.noise.get(f"{key}:{system}", p.noise.get(key, default)))
+
+                values[for_pulsar(WHITE_SCALE, owner)] = injected("white_scale", 1.0)
+                for name, key in ((WHITE_QUADRATURE, "white_quadrature"), (WHITE_JITTER, "white_jitter")):
+                    value = injected(key, 0.0)
+                    values[for_pulsar(name, owner)] = np.log10(value) if value > 0 else -np.inf
             amplitude = float(p.noise.get("red_amplitude", 0.0))
             values[for_pulsar(RED_AMPLITUDE, p.name)] = np.log10(amplitude) if amplitude > 0 else -np.inf
             values[for_pulsar(RED_INDEX, p.name)] = float(p.noise.get("red_spectral_index", 13.0 / 3.0))
@@ -199,7 +211,9 @@ class FitModel:
                 values[for_pulsar(index_name, p.name)] = float(p.noise.get(f"{process}_spectral_index", 13.0 / 3.0))
         free = []
         if section.white == "free":
-            free += [for_pulsar(q, n) for n in pulsars for q in (WHITE_SCALE, WHITE_QUADRATURE)]
+            free += [for_pulsar(q, o) for owners in self._white_owners for o in owners for q in (WHITE_SCALE, WHITE_QUADRATURE)]
+        if self.jitter_mode == "free":
+            free += [for_pulsar(WHITE_JITTER, o) for owners in self._white_owners for o in owners]
         if self.red_mode == "free":
             free += [for_pulsar(q, n) for n in pulsars for q in (RED_AMPLITUDE, RED_INDEX)]
         for process, mode in self.chromatic_modes.items():
@@ -224,6 +238,8 @@ class FitModel:
             used |= {k for k in values if quantity(k) in (RED_AMPLITUDE, RED_INDEX)}
         for process in self.chromatic_modes:
             used |= {k for k in values if quantity(k) in CHROMATIC[process]}
+        if self.jitter_mode != "none":
+            used |= {k for k in values if quantity(k) == WHITE_JITTER}
         self._noise_priors = {}
         if section.pulsar_noise is not None:  # the noise stage's results; [fit] fixed and priors override them
             for name, summary in read_pulsar_noise(section.pulsar_noise, dataset).items():
@@ -350,12 +366,26 @@ class FitModel:
     def physical(self, x, values: dict | None = None) -> dict:
         """The likelihood's arguments at ``x``: per-pulsar ``white_scale``, ``white_quadrature`` (s),
         ``red_amplitude``, ``red_spectral_index``, the common ``amplitude`` and ``gamma``, and per modelled
-        chromatic process its per-pulsar amplitudes and spectral indices (``chromatic``)."""
+        chromatic process its per-pulsar amplitudes and spectral indices (``chromatic``); with observing
+        systems recorded, each pulsar's white values are arrays over its systems, and ``white_jitter`` (s)
+        is given when jitter is modelled."""
         v = self.parameters(x) if values is None else values
         names = self.dataset.names
+
+        def white(quantity_name, transform=float):  # per pulsar a number, or per observing system an array
+            return [transform(v[for_pulsar(quantity_name, owners[0])]) if len(owners) == 1 and owners[0] == name
+                    else np.array([transform(v[for_pulsar(quantity_name, o)]) for o in owners])
+                    for name, owners in zip(names, self._white_owners)]
+
+        def power(value):
+            return 10.0 ** value
+
+        scale, quadrature = white(WHITE_SCALE), white(WHITE_QUADRATURE, power)
+        per_system = any(len(o) > 1 or o[0] != n for n, o in zip(names, self._white_owners))
         return dict(
-            white_scale=np.array([v[for_pulsar(WHITE_SCALE, n)] for n in names]),
-            white_quadrature=np.array([10 ** v[for_pulsar(WHITE_QUADRATURE, n)] for n in names]),
+            white_scale=scale if per_system else np.array(scale),
+            white_quadrature=quadrature if per_system else np.array(quadrature),
+            white_jitter=white(WHITE_JITTER, power) if self.jitter_mode != "none" else None,
             red_amplitude=np.array([10 ** v[for_pulsar(RED_AMPLITUDE, n)] for n in names]),
             red_spectral_index=np.array([v[for_pulsar(RED_INDEX, n)] for n in names]),
             amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,

@@ -20,6 +20,9 @@ __all__ = [
     "WHITE_QUADRATURE",
     "RED_AMPLITUDE",
     "RED_INDEX",
+    "WHITE_JITTER",
+    "SYSTEM_SEPARATOR",
+    "white_owners",
     "CHROMATIC",
     "PER_PULSAR",
     "BINARY_QUANTITIES",
@@ -40,6 +43,9 @@ WHITE_SCALE = "white_scale"  #: factor on the quoted TOA uncertainties
 WHITE_QUADRATURE = "white_lg_quadrature"  #: lg of the white noise added in quadrature, in seconds
 RED_AMPLITUDE = "red_lg_amplitude"  #: lg of a pulsar's red-noise amplitude at 1/yr
 RED_INDEX = "red_spectral_index"  #: a pulsar's red-noise spectral index
+WHITE_JITTER = "white_lg_jitter"  #: lg of the white noise shared by the TOAs of one epoch, in seconds
+#: Separates a pulsar from its observing system where white noise is per system (``white_scale@Birch:Lband``).
+SYSTEM_SEPARATOR = ":"
 
 #: lg of a pulsar's chromatic-noise amplitude at 1/yr, stated at 1400 MHz, and its spectral index, per process
 CHROMATIC = {
@@ -49,9 +55,17 @@ CHROMATIC = {
 assert tuple(q for pair in CHROMATIC.values() for q in pair) == CHROMATIC_QUANTITIES
 
 #: Quantities every pulsar has one of: its white and red noise (the config's list, which ``[fit]
-#: pulsar_noise_quantities`` draws on), then its chromatic processes.
-PER_PULSAR = NOISE_QUANTITIES + CHROMATIC_QUANTITIES
+#: pulsar_noise_quantities`` draws on), its epoch jitter, then its chromatic processes.  White noise and
+#: jitter are per observing system where the dataset records systems: their owner is then
+#: ``pulsar:system`` (:func:`white_owners`).
+PER_PULSAR = NOISE_QUANTITIES + (WHITE_JITTER,) + CHROMATIC_QUANTITIES
 assert PER_PULSAR[:4] == (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX)
+
+def white_owners(pulsar) -> list:
+    """Who owns a pulsar's white-noise parameters: the pulsar (``[name]``), or each of its observing systems
+    (``["Birch:Lband", "Birch:Sband"]``, in the order of ``PulsarData.systems``) where the dataset records them."""
+    return [f"{pulsar.name}{SYSTEM_SEPARATOR}{s}" for s in pulsar.systems] or [pulsar.name]
+
 
 def binary(name: str) -> str:
     """``lg_strain`` -> ``binary_lg_strain``: the parameter name of a continuous-wave quantity."""
@@ -82,6 +96,7 @@ LABELS = {
     WHITE_QUADRATURE: r"$\lg(\sigma_\mathrm{quad}\,/\,\mathrm{s})$",
     RED_AMPLITUDE: r"$\lg A_\mathrm{red}$",
     RED_INDEX: r"$\gamma_\mathrm{red}$",
+    WHITE_JITTER: r"$\lg(J\,/\,\mathrm{s})$",
     "dispersion_lg_amplitude": r"$\lg A_\mathrm{disp}$",
     "dispersion_spectral_index": r"$\gamma_\mathrm{disp}$",
     "scattering_lg_amplitude": r"$\lg A_\mathrm{scat}$",

@@ -18,13 +18,29 @@ from ptares.inference.parameters import (
     COMMON_INDEX,
     RED_AMPLITUDE,
     RED_INDEX,
+    WHITE_JITTER,
     WHITE_QUADRATURE,
     WHITE_SCALE,
     for_pulsar,
+    white_owners,
 )
 from ptares.inference.samplers.chains import saved_draws
 
 __all__ = ["noise_from_chains"]
+
+
+def _per_toa(pulsar, values: dict):
+    """One pulsar's white noise per TOA where it is per observing system, and its jitter per TOA (or None),
+    from a fit's parameter ``values`` (owners as :func:`~ptares.inference.parameters.white_owners`)."""
+    owners = white_owners(pulsar)
+    which = (np.zeros(pulsar.mjd.size, dtype=np.int64) if pulsar.system is None
+             else np.array([pulsar.systems.index(str(s)) for s in pulsar.system]))
+    jitter = np.array([10 ** values.get(for_pulsar(WHITE_JITTER, o), -np.inf) for o in owners])[which]
+    if pulsar.system is None:
+        return None, (jitter if np.any(jitter > 0) else None)
+    scale = np.array([values[for_pulsar(WHITE_SCALE, o)] for o in owners])[which]
+    quadrature = np.array([10 ** values[for_pulsar(WHITE_QUADRATURE, o)] for o in owners])[which]
+    return np.sqrt((scale * pulsar.errors) ** 2 + quadrature**2), (jitter if np.any(jitter > 0) else None)
 
 
 def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) -> list:
@@ -61,9 +77,10 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
     models = []
     for row in picked:
         values = {**held, **dict(zip(names, map(float, row)))}
+        toa_white, toa_jitter = zip(*[_per_toa(p, values) for p in dataset.pulsars])
         per_pulsar = {
-            "white_scale": [values[for_pulsar(WHITE_SCALE, n)] for n in dataset.names],
-            "white_quadrature": [10 ** values[for_pulsar(WHITE_QUADRATURE, n)] for n in dataset.names],
+            "white_scale": [values.get(for_pulsar(WHITE_SCALE, n), 1.0) for n in dataset.names],
+            "white_quadrature": [10 ** values.get(for_pulsar(WHITE_QUADRATURE, n), -np.inf) for n in dataset.names],
             "red_amplitude": [10 ** values[for_pulsar(RED_AMPLITUDE, n)] if red_harmonics else 0.0 for n in dataset.names],
             "red_spectral_index": [values[for_pulsar(RED_INDEX, n)] for n in dataset.names],
         }
@@ -73,6 +90,8 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
                 common_amplitude=10 ** values[COMMON_AMPLITUDE] if common_harmonics and COMMON_AMPLITUDE in values else 0.0,
                 common_spectral_index=values.get(COMMON_INDEX, 13.0 / 3.0),
                 common_harmonics=max(common_harmonics, 1),
+                toa_white=toa_white if any(w is not None for w in toa_white) else (),
+                toa_jitter=toa_jitter if any(j is not None for j in toa_jitter) else (),
                 chromatic=tuple(
                     (name, harmonics,
                      np.array([10 ** values[for_pulsar(CHROMATIC[name][0], n)] for n in dataset.names]),

@@ -666,6 +666,7 @@ class FitSection(_Section):
     red: Optional[Literal["free", "injected", "none"]] = None
     red_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
     white: Literal["injected", "free"] = "injected"
+    jitter: Optional[Literal["free", "injected", "none"]] = None
     dispersion: Optional[Literal["free", "injected", "none"]] = None
     scattering: Optional[Literal["free", "injected", "none"]] = None
     chromatic_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)

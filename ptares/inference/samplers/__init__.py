@@ -19,12 +19,13 @@ GIBBS_ABOVE = 20
 
 
 def choose_sampler(model) -> str:
-    """``"ensemble"`` or ``"gibbs"``: the configured one, or by the number of parameters (continuous waves and
-    chromatic noise: ensemble, which has no Gibbs step yet)."""
+    """``"ensemble"`` or ``"gibbs"``: the configured one, or by the number of parameters (continuous waves,
+    chromatic noise, white noise per observing system and jitter: ensemble, which has no Gibbs step yet)."""
     chosen = model.section.sampler
     if chosen != "auto":
         return chosen
-    gibbs = model.ndim > GIBBS_ABOVE and not model.section.binary and not model.likelihood.chromatic
+    gibbs = (model.ndim > GIBBS_ABOVE and not model.section.binary and not model.likelihood.chromatic
+             and model.jitter_mode == "none" and not any(p.systems for p in model.dataset.pulsars))
     return "gibbs" if gibbs else "ensemble"
 
 

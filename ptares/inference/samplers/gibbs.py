@@ -137,6 +137,9 @@ class GibbsSampler:
         if model.likelihood.chromatic:
             raise InputError("the Gibbs sampler has no step for chromatic noise yet; use sampler = \"ensemble\"",
                              "fit.sampler")
+        if model.jitter_mode != "none" or any(p.systems for p in model.dataset.pulsars):
+            raise InputError("the Gibbs sampler has no step for white noise per observing system or epoch jitter yet; "
+                             "use sampler = \"ensemble\"", "fit.sampler")
         self.model = model
         self.likelihood = model.likelihood
         names = model.dataset.names
