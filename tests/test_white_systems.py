@@ -171,3 +171,24 @@ def test_the_optimal_statistic_noise_model_carries_system_white_noise_and_jitter
     assert abs(values.mean()) < 3 * values.std(ddof=1) / np.sqrt(values.size)
     values, sigmas = np.array(partial).T
     assert values.std(ddof=1) / sigmas.mean() > 1 + 3 * tolerance
+
+
+@pytest.mark.parametrize("with_jitter", [True, False])
+def test_sums_over_epochs_equal_the_toa_by_toa_products(with_jitter):
+    """Sub-bands sharing their epoch's time take the route through sums over epochs; it gives the products of
+    the route TOA by TOA (which the dense checks above and in test_chromatic.py cover) to 1e-9, with chromatic
+    columns, per-system white noise and jitter."""
+    config = systems_config(dispersion={"amplitude": 1e-14, "harmonics": 4}, scattering={"amplitude": 2e-15, "harmonics": 3})
+    data = simulate(config, seed=6)
+    likelihood = Likelihood(data, 4, 5, "hellings-downs", chromatic=(("dispersion", 4, 2.0), ("scattering", 3, 4.4)))
+    assert all(p.epoch_blocks is not None for p in likelihood.pulsars)
+    arguments = dict(white_scale=[np.array([1.1, 1.4])] * 3, white_quadrature=[np.array([2e-7, 0.0])] * 3,
+                     red_amplitude=np.full(3, 2e-15), red_spectral_index=np.full(3, 4.0), amplitude=3e-15, gamma=4.0,
+                     chromatic={"dispersion": (np.full(3, 1e-14), np.full(3, 3.0)),
+                                "scattering": (np.full(3, 2e-15), np.full(3, 4.0))},
+                     white_jitter=[np.array([3e-7, 1e-7])] * 3 if with_jitter else None)
+    by_epoch = likelihood(**arguments)
+    for p in likelihood.pulsars:
+        p.epoch_blocks = None
+    likelihood._white_cache.clear()
+    assert by_epoch == pytest.approx(likelihood(**arguments), rel=1e-9)

@@ -45,7 +45,7 @@ from scipy.linalg import lapack as _lapack
 from ptares.errors import InputError
 from ptares.limits import MEMORY_LIMIT
 from ptares.physics.patterns import correlation_matrix
-from ptares.physics.spectra import chromatic_scale, coefficient_variance, fourier_basis
+from ptares.physics.spectra import chromatic_scale, coefficient_variance, fourier_basis, power_law_factors
 
 __all__ = ["Likelihood", "NotPositiveDefinite", "Projected", "PATTERN_FLOOR"]
 
@@ -86,12 +86,62 @@ class _Pulsar:
     system_index: np.ndarray  #: (n,) each TOA's system, an index into ``systems`` (0 when none)
     epochs: np.ndarray  #: (n,) each TOA's epoch (:func:`ptares.dataset.epoch_indices`)
     epoch_system: np.ndarray  #: (epochs,) each epoch's system index
+    chromatic_factors: list  #: per chromatic block, (1400 MHz / nu)^chi of each TOA
+    _chromatic_widths: list  #: columns of each chromatic block (the last columns of the basis)
+
+    def __post_init__(self):
+        self._order = np.argsort(self.epochs, kind="stable")  # TOAs grouped by epoch
+        self._starts = np.flatnonzero(np.diff(self.epochs[self._order], prepend=-1))  # every epoch has a TOA
+        # Where every epoch's TOAs share one time and one design-matrix row (sub-bands of one observation) and
+        # epochs hold two TOAs or more on average, each column of [F, M] is a function of the epoch, and each
+        # chromatic column such a function times its TOA's factor: the products reduce to sums over epochs
+        # (:meth:`gram`), at a cost in epochs, not TOAs.
+        first = self._order[self._starts]
+        rows = np.hstack([self.times[:, None], self.design])
+        self.epoch_blocks = None
+        if 2 * self._starts.size <= self.times.size and np.array_equal(rows, rows[first][self.epochs]):
+            widths = [self.basis.shape[1] - sum(self._chromatic_widths)] + list(self._chromatic_widths)
+            edges = np.cumsum([0] + widths)
+            columns = self.basis.shape[1] + self.design.shape[1]
+            achromatic = np.r_[edges[0]:edges[1], self.basis.shape[1]:columns]  # F and M: factor 1
+            self.epoch_blocks = [(None, np.hstack([self.basis[first, edges[0]:edges[1]], self.design[first]]), achromatic)]
+            for j, factor in enumerate(self.chromatic_factors):
+                at_epoch = self.basis[first, edges[j + 1]:edges[j + 2]] / factor[first][:, None]
+                self.epoch_blocks.append((factor, at_epoch, np.arange(edges[j + 1], edges[j + 2])))
+            # where each column of [basis, design, r] sits in the block order of :meth:`gram`
+            placed = np.concatenate([columns for _, _, columns in self.epoch_blocks] + [[columns]])
+            self._layout = np.argsort(placed)
 
     def epoch_sums(self, values: np.ndarray) -> np.ndarray:
         """``U^T values``: the rows of ``values`` (n, k) summed over each epoch, (epochs, k)."""
-        order = np.argsort(self.epochs, kind="stable")
-        starts = np.flatnonzero(np.diff(self.epochs[order], prepend=-1))  # every epoch has a TOA
-        return np.add.reduceat(values[order], starts, axis=0)
+        return np.add.reduceat(values[self._order], self._starts, axis=0)
+
+    def gram(self, weights: np.ndarray, c: np.ndarray | None, r: np.ndarray) -> np.ndarray:
+        """``X^T N^-1 X`` for ``X = [basis, design, r]`` with ``N^-1 = W - W U diag(c) U^T W`` (``c`` None: no
+        jitter), from sums over epochs (:attr:`epoch_blocks`): a block of columns ``a_i G[e_i]`` against one of
+        ``b_i H[e_i]`` is ``G^T diag(s) H`` with ``s_e = sum_(i in e) w a b - c_e (sum w a)(sum w b)``."""
+        blocks = self.epoch_blocks
+        count = len(blocks)
+        factors = [np.ones_like(weights) if a is None else a for a, _, _ in blocks]
+        pairs = [(j, k) for j in range(count) for k in range(j, count)]
+        # one pass over the TOAs: sum over each epoch of w a_j, w a_j a_k, w r, w a_j r and w r^2 ... (E, terms)
+        terms = ([weights * a for a in factors] + [weights * factors[j] * factors[k] for j, k in pairs]
+                 + [weights * r * a for a in factors] + [weights * r])
+        sums = self.epoch_sums(np.column_stack(terms))
+        single, double = sums[:, :count], sums[:, count:count + len(pairs)]
+        with_r, wr = sums[:, count + len(pairs):-1], sums[:, -1]
+        edges = np.cumsum([0] + [G.shape[1] for _, G, _ in blocks])
+        out = np.empty((edges[-1] + 1, edges[-1] + 1))  # in block order, r last
+        for n, (j, k) in enumerate(pairs):
+            weight = double[:, n] if c is None else double[:, n] - c * single[:, j] * single[:, k]
+            product = blocks[j][1].T @ (blocks[k][1] * weight[:, None])
+            out[edges[j]:edges[j + 1], edges[k]:edges[k + 1]] = product
+            out[edges[k]:edges[k + 1], edges[j]:edges[j + 1]] = product.T
+        for j in range(count):
+            weight = with_r[:, j] if c is None else with_r[:, j] - c * single[:, j] * wr
+            out[edges[j]:edges[j + 1], -1] = out[-1, edges[j]:edges[j + 1]] = blocks[j][1].T @ weight
+        out[-1, -1] = float(r @ (weights * r)) - (0.0 if c is None else float(c @ wr**2))
+        return out[np.ix_(self._layout, self._layout)]
 
 
 @dataclass
@@ -219,14 +269,15 @@ class Likelihood:
                 raise InputError("the timing-model design matrix is rank-deficient (repeated or dependent columns)",
                                  f"dataset pulsar {p.name}")
             basis = fourier_basis(times, self.span, self.size // 2)
+            factors = []  # each chromatic block's factor per TOA, (1400 MHz / nu)^chi
             if self.chromatic:
                 if p.frequency_mhz is None:
                     raise InputError("has no radio frequencies; chromatic noise cannot be modelled",
                                      f"dataset pulsar {p.name}")
                 index = len(self.pulsars)
-                basis = np.hstack([basis] + [fourier_basis(times, self.span, k)
-                                             * chromatic_scale(p.frequency_mhz, chi[index])[:, None]
-                                             for _, k, chi in self.chromatic])
+                factors = [chromatic_scale(p.frequency_mhz, chi[index]) for _, k, chi in self.chromatic]
+                basis = np.hstack([basis] + [fourier_basis(times, self.span, k) * factor[:, None]
+                                             for (_, k, _), factor in zip(self.chromatic, factors)])
             systems = p.systems
             system_index = (np.zeros(p.mjd.size, dtype=np.int64) if p.system is None
                             else np.unique(p.system, return_inverse=True)[1].ravel())
@@ -248,6 +299,8 @@ class Likelihood:
                     system_index=system_index,
                     epochs=epochs,
                     epoch_system=epoch_system,
+                    chromatic_factors=factors,
+                    _chromatic_widths=[2 * k for _, k, _ in self.chromatic],
                 )
             )
         positions = np.array([p.position for p in dataset.pulsars])
@@ -255,6 +308,7 @@ class Likelihood:
         if self.pattern in ("monopole", "dipole"):
             self.gamma_matrix += PATTERN_FLOOR * np.eye(count)
         self._white_cache = {}
+        self._unit_laws = {}  # harmonics -> power_law_factors(span, harmonics)
         # where S gets its pieces, for the usual case that every common column has nonzero variance
         self._core_index = _core_indices(count, 2 * self.harmonics) if self.correlated and self.harmonics else None
 
@@ -286,7 +340,18 @@ class Likelihood:
         r = p.residuals if signal is None else p.residuals - signal
         F, M = p.basis, p.design
         log_det = -float(np.sum(np.log(weights)))
-        if no_jitter:
+        if p.epoch_blocks is not None:  # sub-bands sharing their epoch's time: sums over epochs
+            c = None
+            if not no_jitter:
+                variance = np.broadcast_to(np.asarray(jitter, dtype=float) ** 2, (len(p.systems) or 1,))[p.epoch_system]
+                total = np.bincount(p.epochs, weights=weights, minlength=variance.size)
+                c = variance / (1.0 + variance * total)
+                log_det += float(np.sum(np.log1p(variance * total)))
+            gram = p.gram(weights, c, r)
+            f, m = F.shape[1], M.shape[1]
+            FNF, FNr, rNr = gram[:f, :f], gram[:f, -1], float(gram[-1, -1])
+            MNM, MNF, MNr = gram[f:f + m, f:f + m], gram[f:f + m, :f], gram[f:f + m, -1]
+        elif no_jitter:
             FN = F.T * weights
             FNF = FN @ F
             FNr = FN @ r
@@ -323,21 +388,29 @@ class Likelihood:
             self._white_cache[key] = result
         return result
 
+    def _power_laws(self, out, harmonics: int, amplitudes, indices) -> None:
+        """Coefficient variances ``S(f_k) / T`` of every pulsar's power law (amplitude > 0) into ``out`` (P, 2 K),
+        sine and cosine alike; all pulsars at once."""
+        amplitudes = np.asarray(amplitudes, dtype=float)
+        present = amplitudes > 0
+        if not present.any():
+            return
+        if harmonics not in self._unit_laws:
+            self._unit_laws[harmonics] = power_law_factors(self.span, harmonics)
+        unit, log_ratio = self._unit_laws[harmonics]
+        indices = np.asarray(indices, dtype=float)[present]
+        variances = amplitudes[present, None] ** 2 * unit * np.exp(-indices[:, None] * log_ratio)
+        out[present] = np.repeat(variances, 2, axis=1)
+
     def _spectra(self, red_amplitude, red_spectral_index, amplitude, gamma, chromatic=None):
         """Per-pulsar variances of their own processes (P, width: red noise, then each chromatic process) and
         the common variances (width,), zero beyond each process's columns."""
         red = np.zeros((len(self.pulsars), self.width))
         for name, k, _ in self.chromatic:
             amplitudes, indices = (chromatic or {}).get(name, (np.zeros(len(self.pulsars)), None))
-            for a in np.flatnonzero(np.asarray(amplitudes) > 0):
-                red[a, self.chromatic_columns[name]] = np.repeat(
-                    coefficient_variance(self.span, k, amplitudes[a], indices[a]), 2)
+            self._power_laws(red[:, self.chromatic_columns[name]], k, amplitudes, indices)
         if self.red_harmonics:
-            for a in range(len(self.pulsars)):
-                if red_amplitude[a] > 0:
-                    red[a, : 2 * self.red_harmonics] = np.repeat(
-                        coefficient_variance(self.span, self.red_harmonics, red_amplitude[a], red_spectral_index[a]), 2
-                    )
+            self._power_laws(red[:, : 2 * self.red_harmonics], self.red_harmonics, red_amplitude, red_spectral_index)
         common = np.zeros(self.width)
         if amplitude > 0 and self.harmonics:
             common[: 2 * self.harmonics] = np.repeat(coefficient_variance(self.span, self.harmonics, amplitude, gamma), 2)
@@ -429,7 +502,9 @@ class Likelihood:
             except np.linalg.LinAlgError:
                 raise NotPositiveDefinite("Sigma = F^T N^-1 F + Phi^-1 of a pulsar is not positive definite") from None
             right = np.concatenate([_select(FNF, members, columns, shared), _select(d, members, columns)[..., None]], axis=2)
-            solved = np.linalg.solve(lower, right)  # L^-1 right (numpy has no batched triangular solve)
+            # L^-1 right, one triangular solve per pulsar (numpy has no batched one; its batched LU solve costs
+            # several times more once a pulsar has many own columns, e.g. chromatic ones)
+            solved = np.stack([_lapack.dtrtrs(lower[g], right[g], lower=1)[0] for g in range(members.size)])
             coupling, whitened = solved[..., :width], solved[..., width]
             quadratic += float((whitened * whitened).sum())
             log_det += float(np.log(variances).sum()) + 2.0 * float(np.log(np.diagonal(lower, axis1=1, axis2=2)).sum())
