@@ -77,6 +77,11 @@ def assert_same_pulsars(first, second):
         assert a.injected.keys() == b.injected.keys()
         for key in a.injected:
             np.testing.assert_array_equal(a.injected[key], b.injected[key])
+        assert a.noise == b.noise
+        for key in ("frequency_mhz", "system"):
+            assert (getattr(a, key) is None) == (getattr(b, key) is None), key
+            if getattr(a, key) is not None:
+                np.testing.assert_array_equal(getattr(a, key), getattr(b, key))
 
 
 def parallel_map(function, items, workers: int = 2) -> list:

@@ -70,6 +70,33 @@ __all__ = ["PulsarRow", "TableArray", "read_tables", "export_tables", "signals_t
 
 _UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "ns": 1e-9}
 _NOISE = {"white_scale": 1.0, "white_quadrature_s": 1.0, "red_amplitude": 1.0, "red_spectral_index": 1.0, "true_distance_kpc": 1.0}
+#: Further injected-noise columns a catalogue may carry (written by :func:`export_tables`, kept by an import):
+#: epoch jitter and the chromatic processes; white noise per observing system as ``white_scale:SYSTEM``,
+#: ``white_quadrature_s:SYSTEM``, ``white_jitter_s:SYSTEM``.
+_MORE_NOISE = ("white_jitter_s", "dispersion_amplitude", "dispersion_spectral_index", "dispersion_chromatic_index",
+               "scattering_amplitude", "scattering_spectral_index", "scattering_chromatic_index")
+_PER_SYSTEM = ("white_scale", "white_quadrature_s", "white_jitter_s")
+#: Dataset noise keys whose catalogue column carries a unit suffix (the rest are the key itself).
+_NOISE_COLUMNS = {"white_quadrature": "white_quadrature_s", "white_jitter": "white_jitter_s", "distance": "true_distance_kpc"}
+
+
+def _noise_column(key: str) -> str:
+    """The catalogue column of a dataset noise key (``white_quadrature:Lband`` -> ``white_quadrature_s:Lband``)."""
+    head, colon, system = key.partition(":")
+    return _NOISE_COLUMNS.get(head, head) + colon + system
+
+
+def _noise_key(column: str) -> str:
+    """The dataset noise key of a catalogue column (the inverse of :func:`_noise_column`)."""
+    head, colon, system = column.partition(":")
+    keys = {c: k for k, c in _NOISE_COLUMNS.items()}
+    return keys.get(head, head) + colon + system
+
+
+def _noise_columns(header) -> list:
+    """The injected-noise columns of a catalogue header, per-system ones included."""
+    return [c for c in header if c in _NOISE or c in _MORE_NOISE
+            or (c.partition(":")[0] in _PER_SYSTEM and NAME_PATTERN.fullmatch(c.partition(":")[2]))]
 #: The rule of :data:`NAME_PATTERN`, in words.
 _NAME_RULE = "1-64 letters, digits, '_', '+', '-', '.', starting with a letter or digit"
 #: Other field separators a spreadsheet writes, recognised in a header of one column.
@@ -236,8 +263,9 @@ def _ignored_note(path, header, reasons: dict) -> str | None:
     return f"{path}: ignoring column(s) {'; '.join(parts)}"
 
 
-def _catalogue(path: Path) -> tuple[list, str | None]:
-    """The catalogue's pulsars and the note on its ignored columns (None without any)."""
+def _catalogue(path: Path, all_noise: bool = True) -> tuple[list, str | None]:
+    """The catalogue's pulsars and the note on its ignored columns (None without any).  ``all_noise``: keep
+    the jitter, chromatic and per-system noise columns (an import); else they are named as unread."""
     header, rows = _rows(path)
     note = earlier_names(header, known=_NOISE)
     if note:
@@ -253,7 +281,12 @@ def _catalogue(path: Path) -> tuple[list, str | None]:
     if distance is None:
         raise InputError("has no distance column (kpc)", str(path))
     angles_used, angles_unused = (("ra_rad", "dec_rad"), ("ra", "dec")) if radians else (("ra", "dec"), ("ra_rad", "dec_rad"))
+    noise_columns = _noise_columns(header)
     reasons = dict.fromkeys(("name", distance, distance_error, *angles_used, *_NOISE))
+    reasons.update(dict.fromkeys([c for c in noise_columns if c not in _NOISE],
+                                 None if all_noise else "read by ptares import only"))
+    if not all_noise:
+        noise_columns = [c for c in noise_columns if c in _NOISE]
     reasons.update(dict.fromkeys(angles_unused, "ra_rad and dec_rad are used" if radians
                                  else "ra_rad and dec_rad go together; ra and dec are used"))
     reasons.update({c: f"{distance} is used" for c in ("distance_kpc", "distance") if c != distance})
@@ -280,14 +313,13 @@ def _catalogue(path: Path) -> tuple[list, str | None]:
             raise InputError(f"row {number}, column {distance}: the distance must be positive", str(path))
         if error < 0:
             raise InputError(f"row {number}, column {distance_error}: the distance error must not be negative", str(path))
-        noise = {key: _number(path, number, key, row[key]) for key in _NOISE if key in header and row.get(key, "") != ""}
+        noise = {key: _number(path, number, key, row[key]) for key in noise_columns if row.get(key, "") != ""}
         for key, value in noise.items():
-            if value < 0 or (key == "white_scale" and value == 0):
+            if "index" in key and key != "red_spectral_index":
+                continue  # spectral and chromatic indices of the chromatic processes may be any finite number
+            if value < 0 or (key.partition(":")[0] == "white_scale" and value == 0):
                 raise InputError(f"row {number}, column {key}: {value} is not allowed (negative or zero scale)", str(path))
-        if "white_quadrature_s" in noise:
-            noise["white_quadrature"] = noise.pop("white_quadrature_s")
-        if "true_distance_kpc" in noise:
-            noise["distance"] = noise.pop("true_distance_kpc")
+        noise = {_noise_key(key): value for key, value in noise.items()}
         pulsars.append(PulsarRow(name, ra, dec, d, error, noise))
     if not pulsars:
         raise InputError("lists no pulsars", str(path))
@@ -320,7 +352,7 @@ def read_tables(table, catalogue, columns_needed: int, need_residuals: bool = Fa
     """
     table, catalogue = Path(table), Path(catalogue)
     need_signals = need_residuals if need_signals is None else need_signals
-    pulsars, catalogue_note = _catalogue(catalogue)
+    pulsars, catalogue_note = _catalogue(catalogue, all_noise=need_signals)
     header, rows = _rows(table)
     for column in ("pulsar", "mjd"):
         if column not in header:
@@ -442,8 +474,8 @@ def export_tables(dataset: Dataset, directory) -> list:
             row += [str(p.system[i])] if has_system else []
             rows.append(row)
     noise_keys = ["white_scale", "white_quadrature", "red_amplitude", "red_spectral_index", "distance"]
-    catalogue_header = ["name", "ra_rad", "dec_rad", "distance_kpc", "distance_error_kpc",
-                        "white_scale", "white_quadrature_s", "red_amplitude", "red_spectral_index", "true_distance_kpc"]
+    noise_keys += [k for k in dict.fromkeys(k for p in dataset.pulsars for k in p.noise) if k not in noise_keys]
+    catalogue_header = ["name", "ra_rad", "dec_rad", "distance_kpc", "distance_error_kpc"] + [_noise_column(k) for k in noise_keys]
     catalogue_rows = [
         [p.name, repr(float(p.ra)), repr(float(p.dec)), repr(float(p.distance)), repr(float(p.distance_error))]
         + [repr(float(p.noise[k])) if k in p.noise else "" for k in noise_keys]
