@@ -266,6 +266,14 @@ def test_chromatic_noise_is_modelled_when_injected_and_refused_by_the_gibbs_samp
         GibbsSampler(model)
     with pytest.raises(InputError, match="fit.fixed.scattering_lg_amplitude"):
         FitModel(data, FitSection(fixed={"scattering_lg_amplitude": -14}))
+    # the chromatic index of the model's columns: the injected one, or [fit] chromatic_indices for every pulsar
+    # (cosine columns: the sine of the first frequency vanishes at the first TOA)
+    scale = model.likelihood.pulsars[0].basis[:, model.likelihood.size + 1] / model.likelihood.pulsars[0].basis[:, 1]
+    np.testing.assert_allclose(scale, (1400.0 / data.pulsars[0].frequency_mhz) ** 2.0)
+    other = FitModel(data, FitSection(scattering="free", chromatic_indices={"scattering": 3.5}))
+    column = other.likelihood.chromatic_columns["scattering"].start
+    scale = other.likelihood.pulsars[1].basis[:, column + 1] / other.likelihood.pulsars[1].basis[:, 1]
+    np.testing.assert_allclose(scale, (1400.0 / data.pulsars[1].frequency_mhz) ** 3.5)
 
 
 # --- the optimal statistic and the common process with chromatic noise ---------------------------

@@ -140,8 +140,11 @@ def _check_support(prior, key: str, where: str) -> None:
 CHROMATIC_DEFAULT_INDEX = {"dispersion": 2.0, "scattering": 4.0}
 
 
-def _chromatic_indices(dataset: Dataset, process: str) -> np.ndarray:
-    """Each pulsar's chromatic index of ``process``: the injected one, else the process's usual one."""
+def _chromatic_indices(dataset: Dataset, process: str, section: FitSection) -> np.ndarray:
+    """Each pulsar's chromatic index of ``process``: ``[fit] chromatic_indices``', else the injected one, else the
+    process's usual one."""
+    if process in section.chromatic_indices:
+        return np.full(len(dataset.pulsars), float(section.chromatic_indices[process]))
     return np.array([float(p.noise.get(f"{process}_chromatic_index", CHROMATIC_DEFAULT_INDEX[process]))
                      for p in dataset.pulsars])
 
@@ -183,7 +186,7 @@ class FitModel:
             harmonics=self.harmonics if section.common != "none" else 0,
             red_harmonics=red_harmonics if self.red_mode != "none" else 0,
             correlated=section.common if section.common not in ("uncorrelated", "none") else None,
-            chromatic=tuple((process, self._chromatic_harmonics(dataset, process, mode), _chromatic_indices(dataset, process))
+            chromatic=tuple((process, self._chromatic_harmonics(dataset, process, mode), _chromatic_indices(dataset, process, section))
                             for process, mode in self.chromatic_modes.items()),
         )
 

@@ -670,6 +670,7 @@ class FitSection(_Section):
     dispersion: Optional[Literal["free", "injected", "none"]] = None
     scattering: Optional[Literal["free", "injected", "none"]] = None
     chromatic_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
+    chromatic_indices: dict[Literal[CHROMATIC_PROCESSES], Quantity(None, ChromaticIndex)] = {}
     binary: bool = False
     binary_free: Annotated[tuple[Literal[BINARY_QUANTITIES], ...], _listed_once("a quantity")] = (
         "lg_strain", "orbital_phase", "inclination_cosine", "polarization_angle")
