@@ -75,6 +75,10 @@ class Observations:
     frequency_mhz: tuple = ()  #: per pulsar, (n_a,) MHz or None (not recorded); empty: none recorded
     system: tuple = ()  #: per pulsar, (n_a,) observing-system names or None; empty: none recorded
 
+    def systems_of(self, index: int):
+        """Observing-system name of each TOA of pulsar ``index``, or None where none are recorded."""
+        return self.system[index] if self.system else None
+
     def radio_frequencies(self, index: int) -> np.ndarray:
         """Radio frequency (MHz) of each TOA of pulsar ``index``; the reference frequency where none is recorded."""
         recorded = self.frequency_mhz[index] if self.frequency_mhz else None

@@ -125,7 +125,7 @@ def simulate(config: Config, seed: int | None = None, progress: bool = False) ->
     for a, p in enumerate(pulsars):
         mjd, errors = observations.mjd[a], observations.toa_errors[a]
         total = np.sum([injected[name][a] for name in injected], axis=0) if injected else np.zeros(mjd.size)
-        scale, quadrature, _ = toa_white(p, observations.system[a] if observations.system else None, mjd.size)
+        scale, quadrature, _ = toa_white(p, observations.systems_of(a), mjd.size)
         weights = effective_uncertainties(errors, scale, quadrature)
         fitted, _ = fit_timing_model(total, designs[a], weights)
         # an injection keeps the measured part exactly; only the injected signals pass through the fit
@@ -153,7 +153,7 @@ def _dataset(config, seed, pulsars, observations, context, components, designs, 
                 injected={name: series[a] for name, series in injected.items()},
                 measured=tables.residuals[p.name] if inject else None,
                 frequency_mhz=observations.frequency_mhz[a] if observations.frequency_mhz else None,
-                system=observations.system[a] if observations.system else None,
+                system=observations.systems_of(a),
                 noise={
                     "white_scale": p.white_scale,
                     "white_quadrature": p.white_quadrature,

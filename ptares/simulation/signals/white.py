@@ -42,12 +42,9 @@ class WhiteNoise:
 
     def draw(self, context: Context) -> list[np.ndarray]:
         out = []
-        observations = context.observations
-        for a, (pulsar, errors) in enumerate(zip(context.pulsars, observations.toa_errors)):
-            system = observations.system[a] if observations.system else None
-            scale, quadrature, _ = toa_white(pulsar, system, errors.size)
-            sigma = effective_uncertainties(errors, scale, quadrature)
-            out.append(stream(context.seed, self.name, pulsar.name).normal(0.0, sigma))
+        for a, (pulsar, errors) in enumerate(zip(context.pulsars, context.observations.toa_errors)):
+            scale, quadrature, _ = toa_white(pulsar, context.observations.systems_of(a), errors.size)
+            out.append(stream(context.seed, self.name, pulsar.name).normal(0.0, effective_uncertainties(errors, scale, quadrature)))
         return out
 
     def describe(self, context: Context) -> dict:
@@ -62,10 +59,8 @@ class Jitter:
 
     def draw(self, context: Context) -> list[np.ndarray]:
         out = []
-        observations = context.observations
         for a, pulsar in enumerate(context.pulsars):
-            mjd = observations.mjd[a]
-            system = observations.system[a] if observations.system else None
+            mjd, system = context.observations.mjd[a], context.observations.systems_of(a)
             _, _, jitter = toa_white(pulsar, system, mjd.size)
             epochs = epoch_indices(mjd, system)
             values = stream(context.seed, self.name, pulsar.name).standard_normal(int(epochs.max()) + 1 if mjd.size else 0)
