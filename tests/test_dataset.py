@@ -27,7 +27,8 @@ def test_layout_matches_documentation(dataset, tmp_path):
         assert f.attrs["seed"] == 11
         assert f.attrs["ptares_version"] == ptares.__version__
         for name, g in f["pulsars"].items():
-            assert set(g) == {"mjd", "residuals", "errors", "design_matrix", "injected"}
+            assert set(g) == {"mjd", "residuals", "errors", "design_matrix", "injected", "frequency_mhz"}  # one band
+            assert g["frequency_mhz"].attrs["unit"] == "MHz" and np.all(g["frequency_mhz"][()] == 1400.0)
             assert set(g.attrs) == {"ra", "dec", "distance", "distance_error"}
             assert set(g["injected"]) == {"white", "red", "gwb"}
             assert g["design_matrix"].shape == (g["mjd"].size, 3)
