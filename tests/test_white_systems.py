@@ -192,3 +192,28 @@ def test_sums_over_epochs_equal_the_toa_by_toa_products(with_jitter):
         p.epoch_blocks = None
     likelihood._white_cache.clear()
     assert by_epoch == pytest.approx(likelihood(**arguments), rel=1e-9)
+
+
+@pytest.mark.parametrize("common", ["uncorrelated", "hellings-downs"])
+def test_gibbs_holds_system_white_noise_and_jitter_and_agrees_with_the_model(common):
+    """White noise per observing system and jitter held at the injection, red noise, chromatic noise and the
+    common process free: each Gibbs iteration's log posterior equals the model's (whose likelihood is checked
+    against the dense density above) at the new point; a free jitter is refused in one line."""
+    from ptares.inference.model import FitModel
+    from ptares.inference.samplers.gibbs import GibbsSampler
+    from ptares.inputs.config import FitSection
+    from ptares.errors import InputError
+
+    data = simulate(systems_config(dispersion={"amplitude": 1e-14, "harmonics": 4}), seed=4)
+    model = FitModel(data, FitSection(common=common, red="free", dispersion="free", red_harmonics=5,
+                                      chromatic_harmonics=4, harmonics=4))
+    assert model.jitter_mode == "injected"
+    sampler = GibbsSampler(model)
+    rng = np.random.default_rng(1)
+    x = np.array([model.values[n] if np.isfinite(model.values[n]) else -15.0 for n in model.names])
+    proposals = sampler.proposals()
+    for _ in range(3):
+        value, _ = sampler.iterate(x, rng, proposals)
+        assert value == pytest.approx(model(x), rel=1e-9, abs=1e-6)
+    with pytest.raises(InputError, match="fit.sampler"):
+        GibbsSampler(FitModel(data, FitSection(jitter="free", sampler="gibbs")))

@@ -19,13 +19,14 @@ GIBBS_ABOVE = 20
 
 
 def choose_sampler(model) -> str:
-    """``"ensemble"`` or ``"gibbs"``: the configured one, or by the number of parameters (continuous waves,
-    chromatic noise, white noise per observing system and jitter: ensemble, which has no Gibbs step yet)."""
+    """``"ensemble"`` or ``"gibbs"``: the configured one, or by the number of parameters (continuous waves, and
+    free jitter or white noise beside jitter or per observing system: ensemble, which has no Gibbs step yet)."""
     chosen = model.section.sampler
     if chosen != "auto":
         return chosen
-    gibbs = (model.ndim > GIBBS_ABOVE and not model.section.binary and not model.likelihood.chromatic
-             and model.jitter_mode == "none" and not any(p.systems for p in model.dataset.pulsars))
+    from ptares.inference.samplers.gibbs import gibbs_can_sample
+
+    gibbs = model.ndim > GIBBS_ABOVE and not model.section.binary and gibbs_can_sample(model)
     return "gibbs" if gibbs else "ensemble"
 
 

@@ -15,14 +15,19 @@ parameters split into small blocks.  One iteration of each chain:
       ``a_p`` integrated out (Metropolis steps on a per-pulsar Woodbury likelihood:
       the prior of ``a_p`` given the other pulsars' coefficients is Gaussian,
       zero-mean for an uncorrelated common process);
-   c. ``a_p | everything`` exactly;
+   c. each of its chromatic processes (dispersion, scattering) the same way as b;
+   d. ``a_p | everything`` exactly;
 
 3. the common process's parameters with all coefficients integrated out
    (Metropolis steps on the full marginalised likelihood).  With correlations each
    step factorises the whole array; the factors at the chain's new point are kept,
    and step 1 of the next iteration draws the coefficients from them.
 
-Steps 2b and 3 integrate coefficients out and draw them afresh right after
+White noise per observing system and epoch jitter are held at their given values (their
+products enter through :meth:`~ptares.inference.likelihood.Likelihood.projected`); a model with
+them free is refused, as is a continuous wave.
+
+Steps 2b, 2c and 3 integrate coefficients out and draw them afresh right after
 (a partially collapsed Gibbs sampler, van Dyk & Park 2008, JASA 103, 790): the
 chain keeps the posterior invariant and does not suffer the slow "funnel" mixing
 of amplitude and coefficients where the data constrain the coefficients weakly.
@@ -48,6 +53,7 @@ from ptares.errors import InputError
 from ptares.inference import kernels
 from ptares.inference.likelihood import NotPositiveDefinite
 from ptares.inference.parameters import (
+    CHROMATIC,
     COMMON_AMPLITUDE,
     COMMON_INDEX,
     RED_AMPLITUDE,
@@ -134,17 +140,17 @@ class GibbsSampler:
         if model.section.binary:
             raise InputError("the Gibbs sampler has no step for a continuous wave; use sampler = \"ensemble\"",
                              "fit.sampler")
-        if model.likelihood.chromatic:
-            raise InputError("the Gibbs sampler has no step for chromatic noise yet; use sampler = \"ensemble\"",
+        if not gibbs_can_sample(model):
+            raise InputError("the Gibbs sampler has no step for free white noise per observing system or epoch jitter "
+                             "yet; hold them (white = \"injected\", jitter = \"injected\") or use sampler = \"ensemble\"",
                              "fit.sampler")
-        if model.jitter_mode != "none" or any(p.systems for p in model.dataset.pulsars):
-            raise InputError("the Gibbs sampler has no step for white noise per observing system or epoch jitter yet; "
-                             "use sampler = \"ensemble\"", "fit.sampler")
         self.model = model
         self.likelihood = model.likelihood
         names = model.dataset.names
         index = {name: i for i, name in enumerate(model.names)}
         self.white_blocks, self.red_blocks = [], []
+        self.processes = list(model.chromatic_modes)  # chromatic processes, in the likelihood's column order
+        self.chromatic_blocks = {process: [] for process in self.processes}
         used = set()
         for pulsar in names:
             white = [index[k] for k in (for_pulsar(WHITE_SCALE, pulsar), for_pulsar(WHITE_QUADRATURE, pulsar)) if k in index]
@@ -152,6 +158,10 @@ class GibbsSampler:
             self.white_blocks.append(_Block(white, model.priors, "white") if white else None)
             self.red_blocks.append(_Block(red, model.priors, "red") if red else None)
             used |= set(white) | set(red)
+            for process in self.processes:  # a chromatic process is stepped like red noise
+                own = [index[k] for k in (for_pulsar(q, pulsar) for q in CHROMATIC[process]) if k in index]
+                self.chromatic_blocks[process].append(_Block(own, model.priors, "red") if own else None)
+                used |= set(own)
         common = [index[k] for k in (COMMON_AMPLITUDE, COMMON_INDEX) if k in index]
         self.common_block = _Block(common, model.priors, "common") if common else None
         used |= set(common)
@@ -159,38 +169,60 @@ class GibbsSampler:
         if left:
             raise InputError(f"the Gibbs sampler has no step for {', '.join(left)}; use sampler = \"ensemble\"",
                              "fit.sampler")
-        self.blocks = [b for b in self.white_blocks + self.red_blocks + [self.common_block] if b is not None]
+        chromatic_blocks = [b for process in self.processes for b in self.chromatic_blocks[process]]
+        self.blocks = [b for b in self.white_blocks + self.red_blocks + chromatic_blocks + [self.common_block]
+                       if b is not None]
         for number, block in enumerate(self.blocks):
             block.number = number
         self._index = index
         # per pulsar, where each noise quantity is: (position in x, or -1 and its held value)
-        self._slots = [[(index[k], 0.0) if k in index else (-1, float(model.values[k]))
+        self._slots = [[(index[k], 0.0) if k in index else (-1, float(model.values.get(k, np.nan)))
                         for k in (for_pulsar(q, pulsar) for q in (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX))]
                        for pulsar in names]
+        # held white noise per observing system and jitter (s), per pulsar: (scales, quadratures, jitters or None),
+        # or None where the pulsar has one white noise and no jitter
+        physical = model.physical(np.array([model.values.get(n, 0.0) for n in model.names]))
+        jitters = physical["white_jitter"] or [None] * len(names)
+        self._held_white = [None if np.ndim(scale) == 0 and jitter is None else (scale, quadrature, jitter)
+                            for scale, quadrature, jitter in zip(physical["white_scale"], physical["white_quadrature"], jitters)]
         self._names = names
         self._correlated = model.likelihood.correlated
         lk = model.likelihood
         # (point, likelihood factors) of the latest correlated likelihood evaluation and of the chain's point
         self._latest = self._kept = None
-        self._red_unit, self._red_log_ratio = _unit_power_law(lk.span, lk.red_harmonics, lk.size)
-        self._common_unit, self._common_log_ratio = _unit_power_law(lk.span, lk.harmonics, lk.size)
+        self._red_unit, self._red_log_ratio = _unit_power_law(lk.span, lk.red_harmonics, lk.width)
+        self._common_unit, self._common_log_ratio = _unit_power_law(lk.span, lk.harmonics, lk.width)
+        # per chromatic process: its power-law factors on its own columns, and where each pulsar's values are
+        self._chromatic_laws, self._chromatic_slots = {}, {}
+        for process, k, _ in lk.chromatic:
+            unit, log_ratio = np.zeros(lk.width), np.zeros(lk.width)
+            columns = lk.chromatic_columns[process]
+            unit[columns], log_ratio[columns] = (np.repeat(f, 2) for f in power_law_factors(lk.span, k))
+            self._chromatic_laws[process] = (unit, log_ratio)
+            self._chromatic_slots[process] = [[(index[k], 0.0) if k in index else (-1, float(model.values[k]))
+                                               for k in (for_pulsar(q, pulsar) for q in CHROMATIC[process])]
+                                              for pulsar in names]
 
     # --- parameters ----------------------------------------------------------
     def _red_variance(self, amplitude, index):
-        """Prior variance of one pulsar's coefficients from its red noise, zero beyond its frequencies (size,)."""
+        """Prior variance of one pulsar's coefficients from its red noise, zero beyond its frequencies (width,)."""
         return _power_law(self._red_unit, self._red_log_ratio, amplitude, index)
 
+    def _chromatic_values(self, x, p, process):
+        """Pulsar p's amplitude and spectral index of a chromatic process at ``x``."""
+        (amplitude, fixed_amplitude), (index, fixed_index) = self._chromatic_slots[process][p]
+        return 10 ** (x[amplitude] if amplitude >= 0 else fixed_amplitude), (x[index] if index >= 0 else fixed_index)
+
+    def _chromatic_law(self, x, p, process):
+        """Prior variance of pulsar p's coefficients from one chromatic process at ``x`` (width,)."""
+        return _power_law(*self._chromatic_laws[process], *self._chromatic_values(x, p, process))
+
     def _common_variance(self, x):
-        """Prior variance of each pulsar's coefficients from the common process (size,; zero without one)."""
+        """Prior variance of each pulsar's coefficients from the common process (width,; zero without one)."""
         if COMMON_AMPLITUDE not in self.model.values:  # common = "none"
             return np.zeros_like(self._common_unit)
         amplitude, index = 10 ** self._value(x, COMMON_AMPLITUDE), self._value(x, COMMON_INDEX)
         return _power_law(self._common_unit, self._common_log_ratio, amplitude, index)
-
-    def _white_arrays(self, x):
-        """Every pulsar's white scale and quadrature (s) at ``x``."""
-        values = [self._white_values(x, p) for p in range(len(self._names))]
-        return np.array([v[0] for v in values]), np.array([v[1] for v in values])
 
     # --- the blocks' densities ------------------------------------------------
     def _white_log_likelihood(self, p, scale, quadrature, residual) -> float:
@@ -216,8 +248,8 @@ class GibbsSampler:
         return np.linalg.inv(phi)
 
     def _conditional_prior(self, p, coefficients, red, common, inverse):
-        """Mean and variance (size,) of pulsar p's coefficients given the other pulsars', without p's own red noise."""
-        size = self.likelihood.size
+        """Mean and variance (width,) of pulsar p's coefficients given the other pulsars', without p's own red noise."""
+        size = self.likelihood.width
         mean, variance = np.zeros(size), np.zeros(size)
         if not self._correlated or inverse is None:
             variance[:] = common
@@ -295,6 +327,11 @@ class GibbsSampler:
         lk = self.likelihood
         theta = self.model.physical(x)
         red = np.stack([self._red_variance(a, i) for a, i in zip(theta["red_amplitude"], theta["red_spectral_index"])])
+        # each chromatic process's variances (on its own columns, beyond the common ones)
+        parts = {process: np.stack([self._chromatic_law(x, p, process) for p in range(len(self._names))])
+                 for process in self.processes}
+        chromatic = sum(parts.values()) if parts else np.zeros_like(red)
+        red += chromatic  # every pulsar's own variance: red and chromatic noise
         common = self._common_variance(x)
         coefficients = lk.draw_coefficients(rng, **theta, factors=self._factors_at(x))
         self._kept = None
@@ -315,23 +352,38 @@ class GibbsSampler:
                 _, hits = self._metropolis(white, x, white_density, current, proposals[white.number], rng)
                 accepted, proposed = accepted + hits, proposed + white.moves
                 scale, quadrature = self._white_values(x, p)
-            pieces = lk.projected(p, scale, quadrature)
+            pieces = self._pieces(p, scale, quadrature)
             mean, base = self._conditional_prior(p, coefficients, red, common, inverse)
             if red_block is not None:
 
                 def red_density(y, p=p, pieces=pieces, mean=mean, base=base):
                     amplitude, index = self._red_values(y, p)
-                    return self._collapsed(pieces, mean, base + self._red_variance(amplitude, index))[0]
+                    return self._collapsed(pieces, mean, base + chromatic[p] + self._red_variance(amplitude, index))[0]
 
                 current = red_density(x)
                 _, hits = self._metropolis(red_block, x, red_density, current, proposals[red_block.number], rng)
                 accepted, proposed = accepted + hits, proposed + red_block.moves
                 amplitude, index = self._red_values(x, p)
-                new_red = self._red_variance(amplitude, index)
+                new_red = self._red_variance(amplitude, index) + chromatic[p]  # chromatic: beyond the common columns
                 change = (new_red - red[p])[0: 2 * lk.harmonics: 2]
                 red[p] = new_red
                 if inverse is not None:
                     self._update_inverse(inverse, p, change, red, common)
+            for process in self.processes:  # its chromatic processes, the same way (columns beyond the common)
+                block = self.chromatic_blocks[process][p]
+                if block is None:
+                    continue
+                # everything else on pulsar p's coefficients, summed afresh (not subtracted: no cancellation)
+                others = self._red_variance(*self._red_values(x, p)) + sum(parts[q][p] for q in self.processes if q != process)
+
+                def chromatic_density(y, p=p, pieces=pieces, mean=mean, base=base, others=others, process=process):
+                    return self._collapsed(pieces, mean, base + others + self._chromatic_law(y, p, process))[0]
+
+                current = chromatic_density(x)
+                _, hits = self._metropolis(block, x, chromatic_density, current, proposals[block.number], rng)
+                accepted, proposed = accepted + hits, proposed + block.moves
+                parts[process][p] = self._chromatic_law(x, p, process)
+                red[p] = others + parts[process][p]
             _, draw = self._collapsed(pieces, mean, base + red[p], rng)
             if draw is None:
                 raise NotPositiveDefinite(f"the coefficients of pulsar {self._names[p]} have no valid conditional")
@@ -378,8 +430,7 @@ class GibbsSampler:
     def _uncorrelated(self, red, x):
         """The uncorrelated model's likelihood as a function of the common process alone (noise held)."""
         lk = self.likelihood
-        pieces = [lk.projected(p, scale, quadrature)
-                  for p, (scale, quadrature) in enumerate(zip(*self._white_arrays(x)))]
+        pieces = [self._pieces(p, *self._white_values(x, p)) for p in range(len(self._names))]
         FNF = np.stack([piece.FNF for piece in pieces])
         FNr = np.stack([piece.FNr for piece in pieces])
         rNr = np.array([piece.rNr for piece in pieces])
@@ -391,8 +442,16 @@ class GibbsSampler:
 
         return log_likelihood
 
+    def _pieces(self, p, scale, quadrature):
+        """Pulsar p's projected pieces for a white noise, with its held jitter."""
+        held = self._held_white[p]
+        return self.likelihood.projected(p, scale, quadrature, jitter=None if held is None else held[2])
+
     def _white_values(self, x, p):
-        """Pulsar p's white scale and quadrature (s) at ``x``."""
+        """Pulsar p's white scale and quadrature (s) at ``x`` (each an array over its observing systems, held,
+        where it has several)."""
+        if self._held_white[p] is not None:
+            return self._held_white[p][:2]
         (scale, fixed_scale), (quadrature, fixed_quadrature) = self._slots[p][:2]
         return (x[scale] if scale >= 0 else fixed_scale), 10 ** (x[quadrature] if quadrature >= 0 else fixed_quadrature)
 
@@ -436,6 +495,14 @@ class GibbsSampler:
             values[i], acceptance[i] = self.iterate(x, rng, proposals)
             points[i] = x
         return points, values, acceptance, json.dumps(rng.bit_generator.state)
+
+
+def gibbs_can_sample(model) -> bool:
+    """Whether the sampler has a step for every free noise parameter of ``model``: not for a free jitter, nor for
+    free white noise beside jitter or per observing system (its white step has neither yet)."""
+    per_system = any(p.systems for p in model.dataset.pulsars)
+    return model.jitter_mode != "free" and not (model.section.white == "free"
+                                               and (per_system or model.jitter_mode != "none"))
 
 
 def adaptation_steps(section) -> int:
