@@ -217,3 +217,14 @@ def test_gibbs_holds_system_white_noise_and_jitter_and_agrees_with_the_model(com
         assert value == pytest.approx(model(x), rel=1e-9, abs=1e-6)
     with pytest.raises(InputError, match="fit.sampler"):
         GibbsSampler(FitModel(data, FitSection(jitter="free", sampler="gibbs")))
+
+
+def test_the_noise_stage_keeps_a_pulsars_per_system_settings():
+    """`ptares noise` fits each pulsar alone: it keeps that pulsar's fixed values of its observing systems' white
+    noise and jitter, and drops other pulsars'."""
+    from ptares.campaign.noise_stage import _single_pulsar_section
+    from ptares.inputs.config import FitSection
+
+    section = FitSection(fixed={"white_scale@Aa:Lo": 1.2, "white_scale@Bb:Lo": 1.0, "white_lg_jitter": -7.0},
+                         pulsar_noise_quantities=("white_lg_jitter",))
+    assert _single_pulsar_section(section, "Aa").fixed == {"white_scale@Aa:Lo": 1.2, "white_lg_jitter": -7.0}

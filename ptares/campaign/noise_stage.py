@@ -16,7 +16,7 @@ from pathlib import Path
 
 from ptares.dataset import Dataset, atomic_path
 from ptares.errors import InputError
-from ptares.inference.parameters import PER_PULSAR, split
+from ptares.inference.parameters import PER_PULSAR, SYSTEM_SEPARATOR, split
 from ptares.inference.pulsar_noise import NOISE_FILE, pulsar_fingerprint, summary_of_draws
 from ptares.inputs.config import FitSection
 
@@ -38,9 +38,9 @@ def _single_pulsar_section(section: FitSection, name: str) -> FitSection:
     settings = section.model_dump(exclude={"pulsars", "common", "binary", "sampler", "pulsar_noise", "fixed", "priors",
                                            "workers"})
 
-    def own(key: str) -> bool:  # this pulsar's noise, or every pulsar's
-        quantity, pulsar = split(key)
-        return quantity in PER_PULSAR and pulsar in (None, name)
+    def own(key: str) -> bool:  # this pulsar's noise (or one of its observing systems'), or every pulsar's
+        quantity, owner = split(key)
+        return quantity in PER_PULSAR and (owner is None or owner.partition(SYSTEM_SEPARATOR)[0] == name)
 
     fixed = {k: v for k, v in section.fixed.items() if own(k)}
     priors = {k: v for k, v in section.priors.items() if own(k)}

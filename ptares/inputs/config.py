@@ -690,7 +690,8 @@ class FitSection(_Section):
     priors: dict[str, Prior] = {}
     pulsar_noise: Optional[str] = None
     pulsar_noise_use: Literal["fix", "prior"] = "fix"
-    pulsar_noise_quantities: Annotated[tuple[Literal[NOISE_QUANTITIES], ...], _listed_once("a quantity")] = (
+    pulsar_noise_quantities: Annotated[tuple[Literal[NOISE_QUANTITIES + ("white_lg_jitter",) + CHROMATIC_QUANTITIES], ...],
+                                       _listed_once("a quantity")] = (
         "white_scale", "white_lg_quadrature")
     pulsars: Optional[tuple[str, ...]] = None
     sampler: Literal["auto", "ensemble", "gibbs"] = "auto"
