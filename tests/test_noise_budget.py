@@ -244,3 +244,31 @@ def test_noise_budget_pages():
     (red,) = [line for line in panels[0].lines if line.get_gid() == "psd:red"]
     y = red.get_ydata()
     assert np.mean(y[:3]) > 100 * np.mean(y[-10:])  # a random walk: steep red spectrum
+
+
+def test_injected_spectrum_is_what_the_estimate_averages_to():
+    """200 realisations of one pulsar's red noise (evenly sampled, white noise negligible): at the frequencies
+    k/T the mean of the Lomb-Scargle estimate equals the injected power law A^2 / (12 pi^2) f_yr^-3
+    (f / f_yr)^-gamma written out here (PHYSICS.md), within 4 standard errors (each estimate is an
+    exponential variable, so its standard deviation equals its mean: 1/sqrt(200) relative)."""
+    from conftest import small_config
+
+    from ptares.figures.dataset import injected_spectrum, one_sided_psd
+    from ptares.simulation.simulate import simulate
+
+    config = small_config(array={"random": {"count": 1}},
+                          observing={"start": 53000.0, "span": 8.0, "cadence": 20.0, "toa_error": 0.001},
+                          noise={"red": {"amplitude": 3e-14, "spectral_index": 3.0, "harmonics": 10}}, gwb=None)
+    year = 365.25 * 86400.0
+    ratios = []
+    for seed in range(200):
+        data = simulate(config, seed=seed)
+        p = data.pulsars[0]
+        frequency, psd = one_sided_psd(p.mjd, p.injected["red"], data.span, data.start_mjd)
+        model_frequency, model = injected_spectrum(data, p, "red")
+        written = 3e-14**2 / (12 * np.pi**2) * year**3 * (model_frequency * year) ** -3.0
+        np.testing.assert_allclose(model, written, rtol=1e-12)
+        np.testing.assert_allclose(frequency[:10], model_frequency, rtol=1e-12)
+        ratios.append(psd[1:6] / model[1:6])  # k = 2..6
+    mean = np.mean(ratios, axis=0)
+    assert np.all(np.abs(mean - 1) < 4 / np.sqrt(200)), mean

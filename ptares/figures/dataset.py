@@ -22,6 +22,7 @@ from matplotlib.lines import Line2D  # noqa: E402
 from ptares.dataset import Dataset  # noqa: E402
 from ptares.figures.common import COMPONENT_COLOURS, RESIDUAL_COLOUR, save_figure
 from ptares.physics.patterns import pattern_function  # noqa: E402
+from ptares.physics.spectra import chromatic_scale, residual_psd  # noqa: E402
 from ptares.physics.sky import separation_matrix  # noqa: E402
 from ptares.physics.timing_model import fit_timing_model  # noqa: E402
 from ptares.simulation.signals.white import effective_uncertainties  # noqa: E402
@@ -317,6 +318,30 @@ def _budget_span(dataset: Dataset, p) -> float:
     return float(np.ptp(p.mjd) * 86400.0) if p.toa_count else 0.0
 
 
+def injected_spectrum(dataset: Dataset, pulsar, name: str):
+    """``(frequencies Hz, one-sided PSD s^2/Hz)`` of an injected power-law component of ``pulsar`` on its
+    frequencies k/T, k = 1..harmonics (PHYSICS.md: S(f) = A^2 / (12 pi^2) f_yr^-3 (f / f_yr)^-gamma; the
+    expectation of :func:`one_sided_psd` at those frequencies), or None for a component without one.  A
+    chromatic process's is averaged over the pulsar's TOAs: times the mean of (1400 MHz / nu)^(2 chi)."""
+    span = dataset.span
+    signal = dataset.signals.get(name, {})
+    if name == "red":
+        amplitude, gamma = pulsar.noise.get("red_amplitude", 0.0), pulsar.noise.get("red_spectral_index", 13 / 3)
+        factor = 1.0
+    elif name == "gwb" and signal.get("source") != "binaries":
+        amplitude, gamma, factor = signal.get("amplitude", 0.0), signal.get("spectral_index", 13 / 3), 1.0
+    elif name in ("dispersion", "scattering") and pulsar.frequency_mhz is not None:
+        amplitude = pulsar.noise.get(f"{name}_amplitude", 0.0)
+        gamma = pulsar.noise.get(f"{name}_spectral_index", 13 / 3)
+        factor = float(np.mean(chromatic_scale(pulsar.frequency_mhz, pulsar.noise.get(f"{name}_chromatic_index", 2.0)) ** 2))
+    else:
+        return None
+    if not amplitude or not span or "harmonics" not in signal:
+        return None
+    frequency = np.arange(1, int(signal["harmonics"]) + 1) / span
+    return frequency, factor * residual_psd(frequency, float(amplitude), float(gamma))
+
+
 def noise_budget_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE):
     """The noise budget of pulsars ``first`` to ``first + count``: one panel a pulsar, in rows of
     :data:`BUDGET_COLUMNS`, with the power spectral density of each injected component.
@@ -324,7 +349,9 @@ def noise_budget_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE)
     Each line is :func:`one_sided_psd` of one series of ``p.injected`` (before the timing-model fit,
     so it shows what went in, including the power the fit later absorbs) against Fourier frequency
     in nHz, on log-log axes shared by all panels, in the colours of
-    :data:`~ptares.figures.common.COMPONENT_COLOURS`.  Components that are zero are left out.
+    :data:`~ptares.figures.common.COMPONENT_COLOURS`.  Components that are zero are left out.  Over
+    each power-law component, dashed, its injected spectrum (:func:`injected_spectrum`): the estimate
+    scatters about it at its frequencies and leaks power above them (uneven sampling).
     """
     pulsars = dataset.pulsars[first : first + count]
     columns = max(1, min(BUDGET_COLUMNS, len(pulsars)))
@@ -343,8 +370,14 @@ def noise_budget_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE)
             keep = psd > 0
             if not keep.any():
                 continue
-            ax.loglog(frequency[keep] * 1e9, psd[keep], lw=0.9, color=COMPONENT_COLOURS.get(name, "#7b2cbf"),
+            colour = COMPONENT_COLOURS.get(name, "#7b2cbf")
+            ax.loglog(frequency[keep] * 1e9, psd[keep], lw=0.9, color=colour,
                       label=name if name not in labelled else None, gid=f"psd:{name}")
+            expected = injected_spectrum(dataset, p, name)
+            if expected is not None:
+                ax.loglog(expected[0] * 1e9, expected[1], lw=1.6, ls=(0, (3, 2)), color=colour, alpha=0.9,
+                          gid=f"model:{name}")
+                labelled.add("model")
             labelled.add(name)
             values.append(psd[keep])
             drawn = True
@@ -375,7 +408,16 @@ def noise_budget_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE)
     fig.supxlabel("Fourier frequency (nHz)", fontsize=8, y=0.06 / height, va="bottom")
     fig.supylabel("one-sided PSD (s$^2$/Hz; Lomb-Scargle)", fontsize=8, x=0.08 / width, ha="left")
     if labelled:
-        fig.legend(loc="upper right", fontsize=7, ncol=min(6, len(labelled)), frameon=False,
+        handles, names = [], []
+        for ax in axes.flat:
+            for handle, label in zip(*ax.get_legend_handles_labels()):
+                if label not in names:
+                    handles.append(handle)
+                    names.append(label)
+        if "model" in labelled:  # one grey key for every component's dashed spectrum
+            handles.append(Line2D([], [], lw=1.6, ls=(0, (3, 2)), color="#555555"))
+            names.append("injected power law")
+        fig.legend(handles, names, loc="upper right", fontsize=7, ncol=min(7, len(names)), frameon=False,
                    bbox_to_anchor=(1 - 0.1 / width, 1 - 0.62 / height), handlelength=1.6, columnspacing=1.2)
     fig.subplots_adjust(hspace=0.08, wspace=0.06, left=0.8 / width, right=1 - 0.2 / width,
                         top=1 - 0.95 / height, bottom=0.5 / height)
