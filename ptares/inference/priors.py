@@ -1,8 +1,10 @@
-"""Prior distributions of fit parameters: uniform, log-uniform and (truncated) normal.
+"""Prior distributions of fit parameters: uniform, log-uniform, uniform in the value of an lg
+parameter, and (truncated) normal.
 
 Each prior gives its log density (``-inf`` outside its support), draws from
 itself, and its support.  Built from the config's ``{uniform = [...]}``,
-``{log_uniform = [...]}`` or ``{normal = [mean, sd], bounds = [...]}`` tables.
+``{log_uniform = [...]}``, ``{uniform_in_value = [...]}`` or
+``{normal = [mean, sd], bounds = [...]}`` tables.
 """
 
 from __future__ import annotations
@@ -13,7 +15,7 @@ from functools import cached_property
 import numpy as np
 from scipy import stats
 
-__all__ = ["Uniform", "LogUniform", "Normal", "from_config"]
+__all__ = ["Uniform", "LogUniform", "UniformInValue", "Normal", "from_config"]
 
 
 @dataclass(frozen=True)
@@ -46,6 +48,27 @@ class LogUniform:
 
     def ppf(self, q):
         return self.low * (self.high / self.low) ** q
+
+
+@dataclass(frozen=True)
+class UniformInValue:
+    """For an lg parameter x (``common_lg_amplitude``): uniform in 10^x between 10^low and 10^high, so the density
+    of x is ln(10) 10^x / (10^high - 10^low).  The prior upper limits are usually quoted with (see
+    :mod:`ptares.inference.upper_limits`)."""
+
+    low: float
+    high: float
+
+    def log_pdf(self, x: float) -> float:
+        if not self.low <= x <= self.high:
+            return -np.inf
+        return float(np.log(np.log(10.0)) + (x - self.high) * np.log(10.0) - np.log1p(-10.0 ** (self.low - self.high)))
+
+    def sample(self, rng, size):
+        return self.ppf(rng.uniform(0.0, 1.0, size))
+
+    def ppf(self, q):
+        return self.high + np.log10(10.0 ** (self.low - self.high) + np.asarray(q) * (1.0 - 10.0 ** (self.low - self.high)))
 
 
 @dataclass(frozen=True)
@@ -82,5 +105,7 @@ def from_config(prior) -> object:
         return Uniform(*prior.uniform)
     if prior.log_uniform is not None:
         return LogUniform(*prior.log_uniform)
+    if prior.uniform_in_value is not None:
+        return UniformInValue(*prior.uniform_in_value)
     low, high = prior.bounds if prior.bounds is not None else (-np.inf, np.inf)
     return Normal(prior.normal[0], prior.normal[1], low, high)

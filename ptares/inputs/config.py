@@ -588,19 +588,21 @@ class CorrelateSection(_Section):
 
 class Prior(BaseModel):
     """A prior: exactly one of ``uniform = [low, high]``, ``log_uniform = [low, high]``
-    (density 1/x) or ``normal = [mean, sd]`` (optionally truncated to ``bounds = [low, high]``)."""
+    (density 1/x), ``uniform_in_value = [low, high]`` (for an lg parameter: uniform in 10^x) or
+    ``normal = [mean, sd]`` (optionally truncated to ``bounds = [low, high]``)."""
 
     model_config = ConfigDict(extra="forbid", frozen=True)
     uniform: Optional[tuple[float, float]] = None
     log_uniform: Optional[tuple[float, float]] = None
+    uniform_in_value: Optional[tuple[float, float]] = None
     normal: Optional[tuple[float, float]] = None
     bounds: Optional[tuple[float, float]] = None
 
     @model_validator(mode="after")
     def _one_kind(self):
-        given = [k for k in ("uniform", "log_uniform", "normal") if getattr(self, k) is not None]
+        given = [k for k in ("uniform", "log_uniform", "uniform_in_value", "normal") if getattr(self, k) is not None]
         if len(given) != 1:
-            raise ValueError("a prior is exactly one of uniform, log_uniform or normal")
+            raise ValueError("a prior is exactly one of uniform, log_uniform, uniform_in_value or normal")
         kind = given[0]
         first, second = getattr(self, kind)
         if kind == "normal":
