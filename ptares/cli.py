@@ -88,6 +88,17 @@ def _fit(args) -> int:
         entry = result.parameters[name]
         low, high = entry["interval68"]
         print(f"  {name:28s} {entry['median']:+.4g}  68%: [{low:+.4g}, {high:+.4g}]")
+    common = summary.get("common_process") or {}
+    if common:
+        limit, evidence = common["upper_limit"], common["savage_dickey"]
+        error = f" +/- {limit['error']:.2g}" if limit.get("error") is not None else ""
+        print(f"  95% upper limit: lg A < {limit['value']:.3f}{error} (A < {limit['amplitude']:.3g}; it depends on the prior)")
+        if evidence["ln_bayes_factor"] is not None:
+            print(f"  common process against none (Savage-Dickey at lg A = {evidence['edge'][0]:g}): "
+                  f"ln B = {evidence['ln_bayes_factor']:.2f} +/- {evidence['ln_bayes_factor_error']:.2f}")
+        else:
+            print(f"  common process against none (Savage-Dickey): ln B > {evidence['ln_bayes_factor_lower_bound']:.2f} "
+                  "(no posterior draw near the prior's lower edge)")
     return 0
 
 

@@ -175,6 +175,10 @@ def test_fit_command_outputs(tmp_path, capsys):
     entry = summary["parameters"]["common_lg_amplitude"]
     assert set(entry) >= {"median", "interval68", "interval95", "autocorr_time", "injected"}
     assert set(summary) >= {"acceptance_fraction", "effective_samples", "converged"}
+    limit = summary["common_process"]["upper_limit"]
+    assert limit["level"] == 0.95 and limit["value"] > entry["interval68"][1] and "prior" in limit["caveat"]
+    printed = capsys.readouterr().out
+    assert "95% upper limit: lg A < " in printed and "Savage-Dickey" in printed
     for name in ("corner.png", "trace.png"):
         assert (out / name).read_bytes()[:4] == b"\x89PNG"
     assert (out / "dataset.h5").exists()

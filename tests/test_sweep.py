@@ -246,3 +246,18 @@ def test_bayes_factor_detection_needs_the_compare_stage(tmp_path, capsys):
     assert main(["sweep", str(tmp_path / "bad.toml"), "--out", str(tmp_path / "o")]) == 2
     error = capsys.readouterr().err.strip()
     assert "sweep" in error and "'compare' stage" in error and len(error.splitlines()) == 1
+
+
+def test_a_task_with_a_fit_stage_records_the_upper_limit_and_the_savage_dickey_ratio():
+    """The fit stage's row holds the 95% upper limit of lg A (the fit summary's) and the Savage–Dickey ln B
+    (None where only a bound exists), in results.csv's columns."""
+    from ptares.campaign.tasks import COLUMNS, Task, run_task
+
+    raw = {"run": {"seed": 3}, "array": {"random": {"count": 3}},
+           "observing": {"span": 6.0, "cadence": "30 d", "toa_error": 0.5}, "gwb": {"amplitude": 3e-15, "harmonics": 5},
+           "fit": {"red": "none", "fixed": {"common_spectral_index": 13 / 3}, "max_steps": 300}}
+    row = run_task(Task(0, 0, 1, (), raw, ("simulate", "fit")))
+    assert row["status"] == "ok", row
+    assert {"common_lg_amplitude.upper95", "common_ln_savage_dickey"} <= set(COLUMNS)
+    assert row["common_lg_amplitude.upper95"] > row["common_lg_amplitude.median"]
+    assert "common_ln_savage_dickey" in row

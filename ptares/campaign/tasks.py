@@ -39,7 +39,8 @@ COLUMNS = [
     "hd_amplitude2", "hd_sigma", "hd_snr", "hd_p_value", "hd_sigma_signal", "hd_p_exact", "monopole_snr", "dipole_snr",
     "hd_curve_chi2", "hd_curve_p_calibrated",
     "common_lg_amplitude.median", "common_lg_amplitude.low68", "common_lg_amplitude.high68",
-    "common_lg_amplitude.quantile", "common_spectral_index.median", "common_spectral_index.quantile", "fit_converged",
+    "common_lg_amplitude.quantile", "common_lg_amplitude.upper95", "common_ln_savage_dickey",
+    "common_spectral_index.median", "common_spectral_index.quantile", "fit_converged",
     "ln_bayes_factor", "ln_bayes_factor_error", "bayes_effective_samples", "bayes_reliable",
     "status", "error", "run_time",
 ]
@@ -172,6 +173,10 @@ def _summary_of_fit(model, run, summary) -> dict:
                 row[f"{name}.low68"], row[f"{name}.high68"] = entry["interval68"]
             if name in model.injected:
                 row[f"{name}.quantile"] = float(np.mean(samples[:, model.names.index(name)] < model.injected[name]))
+    common = summary.get("common_process") or {}
+    if common:  # the 95% upper limit (prior-dependent) and the Savage-Dickey ln B (None when only bounded)
+        row[f"{COMMON_AMPLITUDE}.upper95"] = common["upper_limit"]["value"]
+        row["common_ln_savage_dickey"] = common["savage_dickey"]["ln_bayes_factor"]
     return row
 
 
