@@ -402,7 +402,7 @@ class Likelihood:
         variances = amplitudes[present, None] ** 2 * unit * np.exp(-indices[:, None] * log_ratio)
         out[present] = np.repeat(variances, 2, axis=1)
 
-    def _spectra(self, red_amplitude, red_spectral_index, amplitude, gamma, chromatic=None):
+    def _spectra(self, red_amplitude, red_spectral_index, amplitude, gamma, chromatic=None, common_variances=None):
         """Per-pulsar variances of their own processes (P, width: red noise, then each chromatic process) and
         the common variances (width,), zero beyond each process's columns."""
         red = np.zeros((len(self.pulsars), self.width))
@@ -412,28 +412,32 @@ class Likelihood:
         if self.red_harmonics:
             self._power_laws(red[:, : 2 * self.red_harmonics], self.red_harmonics, red_amplitude, red_spectral_index)
         common = np.zeros(self.width)
-        if amplitude > 0 and self.harmonics:
+        if common_variances is not None:  # a free spectrum: the variance of each frequency's coefficients
+            common[: 2 * self.harmonics] = np.repeat(np.asarray(common_variances, dtype=float), 2)
+        elif amplitude > 0 and self.harmonics:
             common[: 2 * self.harmonics] = np.repeat(coefficient_variance(self.span, self.harmonics, amplitude, gamma), 2)
         return red, common
 
     # --- the likelihood -------------------------------------------------------
     def __call__(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
-                 signal=None, chromatic=None, white_jitter=None) -> float:
+                 signal=None, chromatic=None, white_jitter=None, common_variances=None) -> float:
         return self.evaluate(white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude, gamma, signal,
-                             chromatic, white_jitter)[0]
+                             chromatic, white_jitter, common_variances)[0]
 
     def evaluate(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
-                 signal=None, chromatic=None, white_jitter=None):
+                 signal=None, chromatic=None, white_jitter=None, common_variances=None):
         """``(log likelihood, factors)``: the factors let :meth:`draw_coefficients` draw at the same
-        parameters without factorising again."""
+        parameters without factorising again.  ``common_variances`` (harmonics,): a free spectrum of the
+        common process (each frequency's coefficient variance, s^2) in place of ``amplitude`` and ``gamma``."""
         pieces = self._pieces(white_scale, white_quadrature, signal, white_jitter)
-        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic)
+        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic, common_variances)
         constant = sum(-0.5 * (piece.log_det + piece.dof * _LOG_2PI) - 0.5 * piece.rNr for piece in pieces)
         factors = self._factorise(pieces, red, common)
         return constant + 0.5 * factors.quadratic - 0.5 * factors.log_det, factors
 
     def draw_coefficients(self, rng, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0,
-                          gamma=13.0 / 3.0, signal=None, factors=None, chromatic=None, white_jitter=None) -> np.ndarray:
+                          gamma=13.0 / 3.0, signal=None, factors=None, chromatic=None, white_jitter=None,
+                          common_variances=None) -> np.ndarray:
         """One draw of every pulsar's Fourier coefficients (P, width) in s from ``p(a | parameters, residuals)``.
 
         The timing model is marginalised: ``a ~ N(Sigma^-1 d, Sigma^-1)`` with
@@ -446,7 +450,7 @@ class Likelihood:
         """
         if factors is None:
             pieces = self._pieces(white_scale, white_quadrature, signal, white_jitter)
-            red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic)
+            red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic, common_variances)
             factors = self._factorise(pieces, red, common)
         coefficients = np.zeros((len(self.pulsars), self.width))
         shared = None

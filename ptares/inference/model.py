@@ -26,6 +26,9 @@ from ptares.inference.pulsar_noise import read_pulsar_noise
 from ptares.inference.parameters import (
     BINARY_QUANTITIES,
     CHROMATIC,
+    COMMON_VARIANCE,
+    bin_of,
+    spectrum_bin,
     COMMON_AMPLITUDE,
     COMMON_INDEX,
     PER_PULSAR,
@@ -42,6 +45,7 @@ from ptares.inference.parameters import (
     split,
 )
 from ptares.inputs.config import FitSection
+from ptares.physics.spectra import coefficient_variance
 from ptares.simulation.signals.continuous import Binary, PulsarLayout
 
 __all__ = ["FitModel", "DEFAULT_PRIORS", "binary_frequency_prior", "binary_strain_prior"]
@@ -53,6 +57,7 @@ __all__ = ["FitModel", "DEFAULT_PRIORS", "binary_frequency_prior", "binary_strai
 DEFAULT_PRIORS = {
     COMMON_AMPLITUDE: prior_module.Uniform(-18.0, -12.0),
     COMMON_INDEX: prior_module.Uniform(0.0, 7.0),
+    COMMON_VARIANCE: prior_module.Uniform(-20.0, -8.0),  # lg of s^2: coefficient rms from 0.1 ns to 0.1 ms
     RED_AMPLITUDE: prior_module.Uniform(-20.0, -11.0),
     RED_INDEX: prior_module.Uniform(0.0, 7.0),
     WHITE_SCALE: prior_module.Uniform(0.1, 5.0),
@@ -70,7 +75,7 @@ DEFAULT_PRIORS = {
 #: Values each quantity may take (fixed values and prior supports must lie inside).
 VALID = {
     COMMON_AMPLITUDE: (-np.inf, -9.0), RED_AMPLITUDE: (-np.inf, -9.0), binary("lg_strain"): (-np.inf, -9.0),
-    COMMON_INDEX: (-10.0, 10.0), RED_INDEX: (-10.0, 10.0),
+    COMMON_INDEX: (-10.0, 10.0), RED_INDEX: (-10.0, 10.0), COMMON_VARIANCE: (-np.inf, -2.0),
     WHITE_SCALE: (1e-6, 1e3), WHITE_QUADRATURE: (-np.inf, -2.0), WHITE_JITTER: (-np.inf, -2.0),
     **{amplitude: (-np.inf, -9.0) for amplitude, _ in CHROMATIC.values()},
     **{index: (-10.0, 10.0) for _, index in CHROMATIC.values()},
@@ -225,7 +230,16 @@ class FitModel:
         if section.common != "none":
             values[COMMON_AMPLITUDE] = np.log10(gwb["amplitude"]) if gwb.get("amplitude", 0) > 0 else -np.inf
             values[COMMON_INDEX] = float(gwb.get("spectral_index", 13.0 / 3.0))
-            free += [COMMON_AMPLITUDE, COMMON_INDEX]
+            if section.common_spectrum == "free":  # one variance per frequency in place of the power law
+                injected = (coefficient_variance(dataset.span, self.harmonics, 10 ** values[COMMON_AMPLITUDE],
+                                                 values[COMMON_INDEX]) if np.isfinite(values[COMMON_AMPLITUDE])
+                            else np.zeros(self.harmonics))
+                for k in range(1, self.harmonics + 1):
+                    values[spectrum_bin(k)] = np.log10(injected[k - 1]) if injected[k - 1] > 0 else -np.inf
+                    free.append(spectrum_bin(k))
+                del values[COMMON_AMPLITUDE], values[COMMON_INDEX]
+            else:
+                free += [COMMON_AMPLITUDE, COMMON_INDEX]
         self.default_priors = dict(DEFAULT_PRIORS)
         if section.binary:
             self.default_priors[binary("lg_frequency")] = binary_frequency_prior(dataset)
@@ -393,6 +407,8 @@ class FitModel:
             red_spectral_index=np.array([v[for_pulsar(RED_INDEX, n)] for n in names]),
             amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
             gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
+            common_variances=(10.0 ** np.array([v[spectrum_bin(k)] for k in range(1, self.harmonics + 1)])
+                              if self.section.common_spectrum == "free" and self.section.common != "none" else None),
             chromatic={process: (np.array([10 ** v[for_pulsar(CHROMATIC[process][0], n)] for n in names]),
                                  np.array([v[for_pulsar(CHROMATIC[process][1], n)] for n in names]))
                        for process in self.chromatic_modes},

@@ -16,6 +16,9 @@ __all__ = [
     "SEPARATOR",
     "COMMON_AMPLITUDE",
     "COMMON_INDEX",
+    "COMMON_VARIANCE",
+    "spectrum_bin",
+    "bin_of",
     "WHITE_SCALE",
     "WHITE_QUADRATURE",
     "RED_AMPLITUDE",
@@ -39,6 +42,9 @@ SEPARATOR = "@"
 
 COMMON_AMPLITUDE = "common_lg_amplitude"  #: lg of the common process's characteristic strain at 1/yr
 COMMON_INDEX = "common_spectral_index"  #: residual spectral index of the common process
+#: Prefix of a free spectrum's parameters: ``common_lg_variance_<k>``, lg of the variance (s^2) of the common
+#: process's sine and cosine coefficients at frequency k/T, S(f_k) / T
+COMMON_VARIANCE = "common_lg_variance"
 WHITE_SCALE = "white_scale"  #: factor on the quoted TOA uncertainties
 WHITE_QUADRATURE = "white_lg_quadrature"  #: lg of the white noise added in quadrature, in seconds
 RED_AMPLITUDE = "red_lg_amplitude"  #: lg of a pulsar's red-noise amplitude at 1/yr
@@ -60,6 +66,17 @@ assert tuple(q for pair in CHROMATIC.values() for q in pair) == CHROMATIC_QUANTI
 #: ``pulsar:system`` (:func:`white_owners`).
 PER_PULSAR = NOISE_QUANTITIES + (WHITE_JITTER,) + CHROMATIC_QUANTITIES
 assert PER_PULSAR[:4] == (WHITE_SCALE, WHITE_QUADRATURE, RED_AMPLITUDE, RED_INDEX)
+
+def spectrum_bin(k: int) -> str:
+    """``3`` -> ``common_lg_variance_3``: the free-spectrum parameter at frequency k/T."""
+    return f"{COMMON_VARIANCE}_{k}"
+
+
+def bin_of(name: str):
+    """The frequency number k of a free-spectrum parameter, else None."""
+    head, _, k = name.rpartition("_")
+    return int(k) if head == COMMON_VARIANCE and k.isdigit() else None
+
 
 def white_owners(pulsar) -> list:
     """Who owns a pulsar's white-noise parameters: the pulsar (``[name]``), or each of its observing systems
@@ -84,8 +101,9 @@ def split(name: str) -> tuple:
 
 
 def quantity(name: str) -> str:
-    """The quantity a parameter measures, without its pulsar."""
-    return split(name)[0]
+    """The quantity a parameter measures, without its pulsar (``common_lg_variance`` for every frequency of a
+    free spectrum)."""
+    return COMMON_VARIANCE if bin_of(name) is not None else split(name)[0]
 
 
 #: Axis label (matplotlib math text) of each quantity, with its unit.
@@ -113,11 +131,14 @@ LABELS = {
 
 def is_array_signal(name: str) -> bool:
     """Whether a parameter belongs to a signal shared by the array (the common process, a binary)."""
-    return name in (COMMON_AMPLITUDE, COMMON_INDEX) or name in {binary(q) for q in BINARY_QUANTITIES}
+    return (name in (COMMON_AMPLITUDE, COMMON_INDEX) or bin_of(name) is not None
+            or name in {binary(q) for q in BINARY_QUANTITIES})
 
 
 def label(name: str) -> str:
     """Axis label of a parameter: its quantity's math text, and the pulsar in brackets for a pulsar's own."""
+    if bin_of(name) is not None:
+        return rf"$\lg(\sigma^2_{{{bin_of(name)}}}\,/\,\mathrm{{s}}^2)$"
     head, pulsar = split(name)
     text = LABELS.get(head, head)
     return f"{text} [{pulsar}]" if pulsar else text

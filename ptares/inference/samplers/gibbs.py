@@ -54,6 +54,8 @@ from ptares.inference import kernels
 from ptares.inference.likelihood import NotPositiveDefinite
 from ptares.inference.parameters import (
     CHROMATIC,
+    bin_of,
+    spectrum_bin,
     COMMON_AMPLITUDE,
     COMMON_INDEX,
     RED_AMPLITUDE,
@@ -165,6 +167,9 @@ class GibbsSampler:
         common = [index[k] for k in (COMMON_AMPLITUDE, COMMON_INDEX) if k in index]
         self.common_block = _Block(common, model.priors, "common") if common else None
         used |= set(common)
+        # a free spectrum: (frequency number k, position in x) of each free variance, drawn given the coefficients
+        self.spectrum = [(bin_of(name), i) for i, name in enumerate(model.names) if bin_of(name) is not None]
+        used |= {i for _, i in self.spectrum}
         left = [model.names[i] for i in range(model.ndim) if i not in used]
         if left:
             raise InputError(f"the Gibbs sampler has no step for {', '.join(left)}; use sampler = \"ensemble\"",
@@ -190,6 +195,7 @@ class GibbsSampler:
         lk = model.likelihood
         # (point, likelihood factors) of the latest correlated likelihood evaluation and of the chain's point
         self._latest = self._kept = None
+        self._gamma_factor = None  # Cholesky factor of the correlation matrix, for a free spectrum's draws
         self._red_unit, self._red_log_ratio = _unit_power_law(lk.span, lk.red_harmonics, lk.width)
         self._common_unit, self._common_log_ratio = _unit_power_law(lk.span, lk.harmonics, lk.width)
         # per chromatic process: its power-law factors on its own columns, and where each pulsar's values are
@@ -219,6 +225,11 @@ class GibbsSampler:
 
     def _common_variance(self, x):
         """Prior variance of each pulsar's coefficients from the common process (width,; zero without one)."""
+        if self.model.section.common_spectrum == "free" and self.model.section.common != "none":
+            variances = np.zeros_like(self._common_unit)
+            bins = [self._value(x, spectrum_bin(k)) for k in range(1, self.likelihood.harmonics + 1)]
+            variances[: 2 * len(bins)] = np.repeat(10.0 ** np.array(bins), 2)
+            return variances
         if COMMON_AMPLITUDE not in self.model.values:  # common = "none"
             return np.zeros_like(self._common_unit)
         amplitude, index = 10 ** self._value(x, COMMON_AMPLITUDE), self._value(x, COMMON_INDEX)
@@ -388,6 +399,8 @@ class GibbsSampler:
             if draw is None:
                 raise NotPositiveDefinite(f"the coefficients of pulsar {self._names[p]} have no valid conditional")
             coefficients[p] = draw
+        if self.spectrum:  # a free spectrum: each frequency's variance given every pulsar's coefficients
+            self._spectrum_step(x, coefficients, red, rng)
         block = self.common_block
         if not self._correlated:
             log_likelihood = self._uncorrelated(red, x)
@@ -404,6 +417,41 @@ class GibbsSampler:
             accepted, proposed = accepted + hits, proposed + CORRELATED_MOVES
         self._latest = None
         return current + self.model.log_prior(x), accepted / max(proposed, 1)
+
+    def _spectrum_step(self, x, coefficients, red, rng) -> None:
+        """Draw each free-spectrum variance rho_k given the coefficients a (PHYSICS.md, "Gibbs sampling"): with a
+        prior uniform in lg rho and no other process on those coefficients, rho_k | a is an inverse gamma of
+        shape P and scale (sum of a^T G^-1 a over sine and cosine) / 2 (G the correlation matrix; the identity
+        without correlations), truncated to the prior's range, drawn exactly; otherwise (a pulsar's red noise
+        sharing the frequency, another prior) one slice-sampling update (Neal 2003, Ann. Stat. 31, 705) of
+        lg rho_k under ln N(a_sin; 0, rho G + D) + ln N(a_cos; 0, rho G + D) + ln prior, D the pulsars' own
+        variances there."""
+        correlation = self.likelihood.gamma_matrix if self._correlated else np.eye(len(self._names))
+        if self._gamma_factor is None:
+            self._gamma_factor = np.linalg.cholesky(correlation)
+        for k, i in self.spectrum:
+            prior = self.model.priors[i]
+            pair = coefficients[:, 2 * k - 2: 2 * k]  # (P, 2): sine and cosine
+            own = red[:, 2 * k - 2]
+            if isinstance(prior, Uniform) and not np.any(own > 0):
+                whitened = np.linalg.solve(self._gamma_factor, pair)
+                scale = 0.5 * float(np.sum(whitened * whitened))
+                drawn = _truncated_inverse_gamma(rng, len(self._names), scale, 10.0 ** prior.low, 10.0 ** prior.high)
+                if drawn is not None:
+                    x[i] = np.log10(drawn)
+                    continue
+
+            def log_density(y, pair=pair, own=own, prior=prior):
+                covariance = 10.0**y * correlation + np.diag(own)
+                try:
+                    lower = np.linalg.cholesky(covariance)
+                except np.linalg.LinAlgError:
+                    return -np.inf
+                whitened = np.linalg.solve(lower, pair)
+                return (-float(np.sum(whitened * whitened)) / 2 - 2.0 * float(np.log(np.diag(lower)).sum())
+                        + prior.log_pdf(y))
+
+            x[i] = _slice_step(log_density, float(x[i]), rng, *_support_of(prior))
 
     def _correlated_log_likelihood(self, x) -> float:
         """The full likelihood at ``x``; ``(x, its factors)`` are held as the latest evaluation."""
@@ -495,6 +543,52 @@ class GibbsSampler:
             values[i], acceptance[i] = self.iterate(x, rng, proposals)
             points[i] = x
         return points, values, acceptance, json.dumps(rng.bit_generator.state)
+
+
+def _truncated_inverse_gamma(rng, shape: float, scale: float, low: float, high: float):
+    """One draw of an inverse gamma (``shape``, ``scale``) truncated to [low, high], as ``scale / g`` with g a
+    gamma(``shape``) variable truncated to [scale / high, scale / low], drawn by inverting the regularised
+    incomplete gamma function (scipy.special); None where that range holds no representable probability."""
+    from scipy import special
+
+    if scale <= 0:
+        return None
+    lower, upper = special.gammainc(shape, scale / high), special.gammainc(shape, scale / low)
+    if not upper > lower:
+        return None
+    value = scale / float(special.gammaincinv(shape, rng.uniform(lower, upper)))
+    return value if low <= value <= high and np.isfinite(value) else None
+
+
+def _support_of(prior) -> tuple:
+    """The range of a prior (its 0 and 1 quantiles)."""
+    return float(prior.ppf(0.0)), float(prior.ppf(1.0))
+
+
+def _slice_step(log_density, start: float, rng, low: float, high: float, width: float = 1.0, steps: int = 30) -> float:
+    """One slice-sampling update of a one-dimensional density from ``start`` (Neal 2003: stepping out by
+    ``width``, then shrinking), within [low, high]."""
+    level = log_density(start) + np.log(rng.uniform())
+    left = start - width * rng.uniform()
+    right = left + width
+    for _ in range(steps):
+        if left <= low or log_density(left) < level:
+            break
+        left -= width
+    for _ in range(steps):
+        if right >= high or log_density(right) < level:
+            break
+        right += width
+    left, right = max(left, low), min(right, high)
+    for _ in range(200):
+        trial = rng.uniform(left, right)
+        if log_density(trial) >= level:
+            return float(trial)
+        if trial < start:
+            left = trial
+        else:
+            right = trial
+    return float(start)
 
 
 def gibbs_can_sample(model) -> bool:
