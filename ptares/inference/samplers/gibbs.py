@@ -404,11 +404,15 @@ class GibbsSampler:
         block = self.common_block
         if not self._correlated:
             log_likelihood = self._uncorrelated(red, x)
+            if self.spectrum:  # then with the coefficients integrated out, where the data say little
+                self._spectrum_collapsed(x, log_likelihood, rng)
             current = log_likelihood(x)
             if block is not None:
                 current, hits = self._metropolis(block, x, log_likelihood, current, proposals[block.number], rng)
                 accepted, proposed = accepted + hits, proposed + block.moves
             return current + self.model.log_prior(x), accepted / max(proposed, 1)
+        if self.spectrum:
+            self._spectrum_collapsed(x, self._correlated_log_likelihood, rng)
         current = self._correlated_log_likelihood(x)
         self._keep_latest()
         if block is not None:  # coefficients integrated out: a factorisation of the whole array per step
@@ -450,6 +454,23 @@ class GibbsSampler:
                 whitened = np.linalg.solve(lower, pair)
                 return (-float(np.sum(whitened * whitened)) / 2 - 2.0 * float(np.log(np.diag(lower)).sum())
                         + prior.log_pdf(y))
+
+            x[i] = _slice_step(log_density, float(x[i]), rng, *_support_of(prior))
+
+    def _spectrum_collapsed(self, x, log_likelihood, rng) -> None:
+        """One slice update of each free-spectrum variance with every coefficient integrated out (the
+        likelihood of the data given all parameters, ``log_likelihood(x)``), as the red-noise and power-law
+        steps do.  Given the coefficients alone, a variance the noise swamps and its coefficients pin each
+        other down and the chain crawls (autocorrelation times of hundreds of iterations); integrated out, it
+        moves freely.  The coefficients are drawn afresh at the next iteration (partially collapsed Gibbs, van
+        Dyk & Park 2008)."""
+        for _, i in self.spectrum:
+            prior = self.model.priors[i]
+
+            def log_density(y, i=i, prior=prior):
+                trial = x.copy()
+                trial[i] = y
+                return log_likelihood(trial) + prior.log_pdf(y)
 
             x[i] = _slice_step(log_density, float(x[i]), rng, *_support_of(prior))
 
