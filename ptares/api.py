@@ -580,6 +580,16 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
             save_figure(trace_figure(run.chain, model.names, summary["burn"], model.injected, converged=summary["converged"],
                                      independent=summary["sampler"] == "gibbs"),
                         out / "trace.png")
+        if model.section.common_spectrum == "free" and model.section.common != "none":
+            from ptares.inference.spectral_models import spectrum_content
+
+            samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
+            content, refit_draws = spectrum_content(model, samples, seed=model.section.seed)
+            write_json(out / "spectrum.json", content)
+            if figures:
+                from ptares.figures.inference import spectrum_figure
+
+                save_figure(spectrum_figure(content, refit_draws, converged=summary["converged"]), out / "spectrum.png")
     except OSError as exc:
         raise _cannot_write(exc, out) from None
     return FitResult(summary, list(model.names), chains, out, dict(model.injected))

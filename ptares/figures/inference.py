@@ -345,3 +345,55 @@ def pulsar_noise_figure(rows: dict):
     fig.suptitle(note, fontsize=8.5, x=0.01, ha="left")
     fig.tight_layout()
     return fig
+
+
+#: Colours of refitted spectral models in ``spectrum.png``.
+_MODEL_COLOURS = {"power_law": "#2a9d8f", "turnover": "#8d5fd3"}
+
+
+def spectrum_figure(content: dict, refit_draws: dict, converged: bool = True):
+    """``spectrum.png``: the free spectrum of the common process, in residual power S(f_k) = T rho_k (s^2/Hz)
+    against frequency, each frequency's posterior median with its 68% (thick) and 95% (thin) intervals; the
+    injected spectrum (orange crosses) when known; each refitted model's median curve with its 68% band."""
+    from ptares.inference.spectral_models import MODELS
+
+    span = content["span"]
+    bins = content["bins"]
+    frequency = np.array([b["frequency"] for b in bins])
+    fig, ax = plt.subplots(figsize=(6.4, 4.4))
+    power = lambda lg_rho: span * 10.0 ** np.asarray(lg_rho)  # noqa: E731 - S(f_k) = T rho_k
+    medians = power([b["median"] for b in bins])
+    for f, b in zip(frequency * 1e9, bins):
+        ax.plot([f, f], power(b["interval95"]), color=_DARK, lw=0.8, solid_capstyle="butt")
+        ax.plot([f, f], power(b["interval68"]), color=_DARK, lw=3.0, solid_capstyle="butt")
+    ax.plot(frequency * 1e9, medians, "o", color="white", markeredgecolor=_DARK, markersize=4.5, zorder=3,
+            label="free spectrum (median, 68%, 95%)")
+    if any("injected" in b for b in bins):
+        known = [(f, b["injected"]) for f, b in zip(frequency, bins) if "injected" in b]
+        ax.plot([f * 1e9 for f, _ in known], power([v for _, v in known]), "x", color=_INJECTED, markersize=6,
+                mew=1.5, zorder=4, label="injected")
+    grid = np.geomspace(frequency[0] * 0.8, frequency[-1] * 1.25, 200)
+    for name, draws in refit_draws.items():
+        spec = MODELS[name]
+        picked = draws[:: max(1, len(draws) // 300)]
+        curves = np.array([spec.psd(grid, theta) for theta in picked])
+        low, middle, high = np.percentile(curves, [15.865, 50, 84.135], axis=0)
+        colour = _MODEL_COLOURS.get(name, "#555555")
+        ax.fill_between(grid * 1e9, low, high, color=colour, alpha=0.25, lw=0)
+        ax.plot(grid * 1e9, middle, color=colour, lw=1.6, label=f"{name.replace('_', ' ')} refit (median, 68%)")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    from matplotlib.ticker import FormatStrFormatter
+
+    ax.xaxis.set_major_formatter(FormatStrFormatter("%g"))
+    ax.xaxis.set_minor_formatter(FormatStrFormatter("%g"))
+    ax.tick_params(axis="x", which="minor", labelsize=7)
+    ax.set_xlabel("frequency (nHz)")
+    ax.set_ylabel(r"residual power $S(f_k) = T\,\rho_k$ (s$^2$/Hz)")
+    ax.set_title("Common-process spectrum: one power per frequency", fontsize=10)
+    ax.grid(which="major", alpha=0.3)
+    ax.legend(fontsize=7, frameon=False, loc="lower left")
+    if not converged:
+        _stamp(fig, 0.72, 0.85, 20)
+    fig.tight_layout()
+    return fig

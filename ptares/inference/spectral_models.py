@@ -30,7 +30,7 @@ from scipy import stats
 
 from ptares.physics.spectra import residual_psd
 
-__all__ = ["MODELS", "SpectralModel", "refit", "bin_likelihood"]
+__all__ = ["MODELS", "SpectralModel", "refit", "bin_likelihood", "spectrum_content"]
 
 
 @dataclass(frozen=True)
@@ -123,3 +123,33 @@ def refit(draws: np.ndarray, priors, span: float, model: str, seed: int = 0, ste
     return {"model": model, "parameters": summary, "draws": samples,
             "max_ln_likelihood": float(np.max(sampler.get_log_prob(discard=burn))),
             "autocorr_time": autocorr, "steps": steps, "walkers": walkers, "burn": burn}
+
+
+def spectrum_content(model, draws: np.ndarray, seed: int = 0) -> tuple:
+    """``(spectrum.json's content, {model: refit draws})`` of a free-spectrum fit (a
+    :class:`~ptares.inference.model.FitModel` and its posterior ``draws`` over its free parameters): each
+    frequency's posterior of lg rho_k (and the injected value), and every model of ``[fit] spectral_models``
+    refitted from them."""
+    from ptares.inference.parameters import bin_of
+
+    columns = [(bin_of(name), i) for i, name in enumerate(model.names) if bin_of(name) is not None]
+    span = model.dataset.span
+    bins = []
+    for k, i in columns:
+        values = draws[:, i]
+        name = model.names[i]
+        bins.append({"k": k, "frequency": k / span, "median": float(np.median(values)),
+                     "interval68": [float(v) for v in np.percentile(values, [15.865, 84.135])],
+                     "interval95": [float(v) for v in np.percentile(values, [2.5, 97.5])],
+                     **({"injected": float(model.injected[name])} if name in model.injected else {})})
+    spectrum = draws[:, [i for _, i in columns]]
+    priors = [model.priors[i] for _, i in columns]
+    refits, refit_draws = {}, {}
+    for name in model.section.spectral_models:
+        result = refit(spectrum, priors, span, name, seed=seed)
+        refits[name] = {key: value for key, value in result.items() if key != "draws"}
+        refit_draws[name] = result["draws"]
+    return {"quantity": "lg of the coefficient variance rho_k = S(f_k) / T, s^2", "span": span, "bins": bins,
+            "refits": refits,
+            "method": "refits from the per-frequency marginals (Lamb, Taylor & van Haasteren 2023; kernel density "
+                      "estimates divided by the free spectrum's prior)"}, refit_draws
