@@ -206,6 +206,8 @@ def describe_signal(name: str, values: dict, red_pulsars: int = 0) -> str:
         words = f"background A = {float(values.get('amplitude', float('nan'))):.3g}"
         if "spectral_index" in values:
             words += f", spectral index {float(values['spectral_index']):.3g}"
+        if values.get("bend_frequency") is not None:
+            words += f", turning over below {float(values['bend_frequency']) * 1e9:.3g} nHz"
         words += frequencies + (f", {values['correlation']}" if "correlation" in values else "")
         if values.get("source") == "binaries" and values.get("sources") is not None:
             return words + f", {len(values['sources'])} binaries"

@@ -121,3 +121,52 @@ def test_fit_command_writes_the_free_spectrum_and_its_refits(tmp_path, capsys):
                                                                  "bend_index"}
     assert (out / "spectrum.png").read_bytes()[:4] == b"\x89PNG"
     assert "power law refitted from the free spectrum" in capsys.readouterr().out
+
+
+def _turnover_evidence(tmp_path, bend):
+    """ln B of a turnover against a pure power law (Savage–Dickey at the lower edge of lg f_bend, where the
+    turnover lies below every frequency and the model is the power law; common practice for nested models),
+    from the turnover refitted to a free-spectrum fit of a loud background."""
+    from ptares.inference.priors import Uniform
+    from ptares.inference.samplers import run_sampler
+    from ptares.inference.samplers.chains import posterior_draws, summarise
+    from ptares.inference.spectral_models import MODELS, refit
+    from ptares.inference.upper_limits import savage_dickey
+
+    gwb = {"amplitude": 3e-14, "harmonics": 8, **({"bend_frequency": bend, "bend_index": 4.0} if bend else {})}
+    data = simulate(small_config(array={"random": {"count": 6}},
+                                 observing={"start": 53000, "span": 10.0, "cadence": 30.0, "toa_error": 0.1},
+                                 gwb=gwb), seed=5)
+    model = FitModel(data, FitSection(common_spectrum="free", harmonics=8, red="none", sampler="gibbs", seed=2,
+                                      effective_samples=200))
+    run = run_sampler(model, tmp_path / f"free-{bend}.h5")
+    summary = summarise(model, run)
+    assert summary["converged"]
+    result = refit(posterior_draws(run.chain, summary["burn"], summary["thin"]), model.priors, data.span, "turnover",
+                   steps=2000)
+    bend_range = MODELS["turnover"].ranges[2]
+    effective = len(result["draws"]) / max(result["autocorr_time"][2], 1.0)
+    return savage_dickey(result["draws"][:, 2], Uniform(*bend_range), effective, width=0.25)
+
+
+@pytest.mark.statistical
+def test_a_loud_turnover_is_preferred_over_a_power_law_and_a_power_law_is_not(tmp_path):
+    """A background turning over below 10 nHz (kappa = 4; [gwb] bend_frequency) is preferred over a pure power law
+    by ln B > 3 (Jeffreys' "strong"; or a lower bound above it); a pure power-law background gives ln B < 1."""
+    bent = _turnover_evidence(tmp_path, "10 nHz")
+    value = bent["ln_bayes_factor"] if bent["ln_bayes_factor"] is not None else bent["ln_bayes_factor_lower_bound"]
+    assert value > 3, bent
+    straight = _turnover_evidence(tmp_path, None)
+    assert straight["ln_bayes_factor"] is not None and straight["ln_bayes_factor"] < 1, straight
+
+
+def test_a_turnover_injection_bends_the_injected_variances():
+    """The injected free-spectrum variances of a background with [gwb] bend_frequency are
+    S(f_k) / T / (1 + (f_bend / f_k)^kappa), the power law written out here (PHYSICS.md)."""
+    data = simulate(small_config(gwb={"amplitude": 5e-15, "harmonics": 5, "bend_frequency": "8 nHz", "bend_index": 3}),
+                    seed=1)
+    model = FitModel(data, FitSection(common_spectrum="free", harmonics=5, red="none"))
+    year = 365.25 * 86400.0
+    f = np.arange(1, 6) / data.span
+    expected = 5e-15**2 / (12 * np.pi**2) * year**3 * (f * year) ** (-13 / 3) / data.span / (1 + (8e-9 / f) ** 3)
+    np.testing.assert_allclose([10 ** model.values[f"common_lg_variance_{k}"] for k in range(1, 6)], expected, rtol=1e-10)

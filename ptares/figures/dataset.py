@@ -22,7 +22,7 @@ from matplotlib.lines import Line2D  # noqa: E402
 from ptares.dataset import Dataset  # noqa: E402
 from ptares.figures.common import COMPONENT_COLOURS, RESIDUAL_COLOUR, save_figure
 from ptares.physics.patterns import pattern_function  # noqa: E402
-from ptares.physics.spectra import chromatic_scale, residual_psd  # noqa: E402
+from ptares.physics.spectra import chromatic_scale, residual_psd, turnover  # noqa: E402
 from ptares.physics.sky import separation_matrix  # noqa: E402
 from ptares.physics.timing_model import fit_timing_model  # noqa: E402
 from ptares.simulation.signals.white import effective_uncertainties  # noqa: E402
@@ -339,6 +339,8 @@ def injected_spectrum(dataset: Dataset, pulsar, name: str):
     if not amplitude or not span or "harmonics" not in signal:
         return None
     frequency = np.arange(1, int(signal["harmonics"]) + 1) / span
+    if name == "gwb" and "bend_frequency" in signal:  # an injected turnover
+        factor = factor * turnover(frequency, float(signal["bend_frequency"]), float(signal["bend_index"]))
     return frequency, factor * residual_psd(frequency, float(amplitude), float(gamma))
 
 

@@ -45,7 +45,7 @@ from ptares.inference.parameters import (
     split,
 )
 from ptares.inputs.config import FitSection
-from ptares.physics.spectra import coefficient_variance
+from ptares.physics.spectra import coefficient_variance, turnover
 from ptares.simulation.signals.continuous import Binary, PulsarLayout
 
 __all__ = ["FitModel", "DEFAULT_PRIORS", "binary_frequency_prior", "binary_strain_prior"]
@@ -234,6 +234,9 @@ class FitModel:
                 injected = (coefficient_variance(dataset.span, self.harmonics, 10 ** values[COMMON_AMPLITUDE],
                                                  values[COMMON_INDEX]) if np.isfinite(values[COMMON_AMPLITUDE])
                             else np.zeros(self.harmonics))
+                if "bend_frequency" in gwb:  # an injected turnover
+                    injected = injected * turnover(np.arange(1, self.harmonics + 1) / dataset.span,
+                                                   float(gwb["bend_frequency"]), float(gwb["bend_index"]))
                 for k in range(1, self.harmonics + 1):
                     values[spectrum_bin(k)] = np.log10(injected[k - 1]) if injected[k - 1] > 0 else -np.inf
                     free.append(spectrum_bin(k))

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from ptares.physics.spectra import residual_psd
+from ptares.physics.spectra import residual_psd, turnover
 
 __all__ = ["MODELS", "SpectralModel", "refit", "bin_likelihood", "spectrum_content"]
 
@@ -47,7 +47,7 @@ class SpectralModel:
             lg_amplitude, gamma = values
             return residual_psd(frequency, 10.0**lg_amplitude, gamma)
         lg_amplitude, gamma, lg_bend, kappa = values
-        return residual_psd(frequency, 10.0**lg_amplitude, gamma) / (1.0 + (10.0**lg_bend / frequency) ** kappa)
+        return residual_psd(frequency, 10.0**lg_amplitude, gamma) * turnover(frequency, 10.0**lg_bend, kappa)
 
 
 MODELS = {

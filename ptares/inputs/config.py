@@ -452,6 +452,8 @@ class Background(_Section):
     ``source = "binaries"`` builds it from about ``binaries`` circular binaries
     across the band instead of Gaussian Fourier coefficients;
     ``loudness_spread`` (dex) scatters their amplitudes log-normally.
+    ``bend_frequency`` (nHz) turns a Gaussian background's power law over below it,
+    dividing it by ``1 + (bend_frequency / f)^bend_index`` (:func:`ptares.physics.spectra.turnover`).
     """
 
     amplitude: Quantity(None, NonNegative, MaxAmplitude)
@@ -461,11 +463,15 @@ class Background(_Section):
     source: Literal["gaussian", "binaries"] = "gaussian"
     binaries: Count = Field(default=1000, ge=1, le=1_000_000)
     loudness_spread: Quantity("dex", NonNegative) = 0.0
+    bend_frequency: Optional[Quantity("nHz", Positive)] = None
+    bend_index: Quantity(None, NonNegative, AfterValidator(_at_most(8.0))) = 2.0
 
     @model_validator(mode="after")
     def _binaries_are_hellings_downs(self):
         if self.source == "binaries" and self.correlation != "hellings-downs":
             raise ValueError("a background of binaries has the hellings-downs correlation; drop 'correlation'")
+        if self.source == "binaries" and self.bend_frequency is not None:
+            raise ValueError("bend_frequency shapes a Gaussian background; a background of binaries has its own spectrum")
         return self
 
 

@@ -26,6 +26,7 @@ __all__ = [
     "alpha_from_gamma",
     "fourier_basis",
     "chromatic_scale",
+    "turnover",
     "characteristic_strain",
     "residual_psd",
     "residual_psd_from_strain",
@@ -108,6 +109,13 @@ def fourier_basis(times, span: float, harmonics: int) -> np.ndarray:
     basis[:, 0::2] = np.sin(phase)
     basis[:, 1::2] = np.cos(phase)
     return basis
+
+
+def turnover(frequency, bend_frequency: float, bend_index: float) -> np.ndarray:
+    """``1 / (1 + (f_bend / f)^kappa)``: the factor on a power law that turns over below ``bend_frequency`` (Hz), as
+    binaries driven by their environment lose low-frequency power (Sampson, Cornish & McWilliams 2015, PRD 91,
+    084055; the form from memory)."""
+    return 1.0 / (1.0 + (bend_frequency / np.asarray(frequency, dtype=float)) ** bend_index)
 
 
 def chromatic_scale(frequency_mhz, chromatic_index: float) -> np.ndarray:

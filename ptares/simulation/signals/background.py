@@ -2,7 +2,8 @@
 
 On the basis ``f_k = k / T`` the coefficients of pulsars a and b obey
 ``<a_k,a a_k,b> = <b_k,a b_k,b> = Gamma_ab S(f_k) / T`` (PHYSICS.md,
-"Stochastic background").  They are drawn as ``L z`` with ``L L^T = Gamma``
+"Stochastic background").  With a bend frequency the power law is divided by
+``1 + (f_bend / f)^kappa``: the turnover of :mod:`ptares.inference.spectral_models`.  They are drawn as ``L z`` with ``L L^T = Gamma``
 lower triangular and ``z`` independent per pulsar, each pulsar's ``z`` from its
 own stream: the first pulsars' background is unchanged when more are appended.
 Patterns of low rank (monopole, dipole) have a semi-definite ``Gamma``; the
@@ -16,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ptares.physics.patterns import correlation_matrix
-from ptares.physics.spectra import coefficient_variance
+from ptares.physics.spectra import coefficient_variance, turnover
 from ptares.rng import stream
 from ptares.simulation.signals.base import Context, synthesise_array
 
@@ -51,12 +52,18 @@ class GaussianBackground:
     harmonics: int
     correlation: str
     name: str = "gwb"
+    bend_frequency: float | None = None  #: Hz: a turnover below it (None: a pure power law)
+    bend_index: float = 2.0
 
     def draw(self, context: Context) -> list[np.ndarray]:
         positions = np.array([p.position for p in context.pulsars])
         factor = lower_factor(correlation_matrix(positions, self.correlation))
         z = np.array([stream(context.seed, self.name, p.name).standard_normal((2, self.harmonics)) for p in context.pulsars])
-        sd = np.sqrt(coefficient_variance(context.observations.span, self.harmonics, self.amplitude, self.spectral_index))
+        span = context.observations.span
+        variance = coefficient_variance(span, self.harmonics, self.amplitude, self.spectral_index)
+        if self.bend_frequency is not None:
+            variance = variance * turnover(np.arange(1, self.harmonics + 1) / span, self.bend_frequency, self.bend_index)
+        sd = np.sqrt(variance)
         coefficients = np.einsum("ab,bck->cak", factor, z) * sd
         return synthesise_array(context.observations, coefficients[0], coefficients[1])
 
@@ -67,6 +74,8 @@ class GaussianBackground:
             "harmonics": self.harmonics,
             "correlation": self.correlation,
             "source": "gaussian",
+            **({"bend_frequency": self.bend_frequency, "bend_index": self.bend_index}
+               if self.bend_frequency is not None else {}),
         }
 
 
@@ -79,4 +88,6 @@ def from_config(config, pulsars):
         from ptares.simulation.signals import population
 
         return population.from_config(config, pulsars)
-    return GaussianBackground(gwb.amplitude, gwb.spectral_index, gwb.harmonics, gwb.correlation)
+    return GaussianBackground(gwb.amplitude, gwb.spectral_index, gwb.harmonics, gwb.correlation,
+                              bend_frequency=None if gwb.bend_frequency is None else gwb.bend_frequency * 1e-9,
+                              bend_index=gwb.bend_index)
