@@ -343,7 +343,8 @@ def test_the_common_amplitude_is_biased_when_chromatic_noise_is_injected_but_not
     data = simulate(_chromatic_array(2e-15), seed=5)
     intervals = {}
     for mode in ("injected", "none"):
-        model = FitModel(data, FitSection(common="uncorrelated", dispersion=mode, max_steps=6000, seed=2))
+        model = FitModel(data, FitSection(common="uncorrelated", dispersion=mode, max_steps=6000, seed=2,
+                                          effective_samples=200, autocorr_factor=30))
         summary = summarise(model, run_sampler(model, tmp_path / f"{mode}.h5"))
         assert summary["converged"], mode
         intervals[mode] = summary["parameters"]["common_lg_amplitude"]["interval95"]

@@ -81,13 +81,13 @@ def test_a_power_law_refitted_from_the_free_spectrum_agrees_with_a_direct_fit(tm
                                  observing={"start": 53000, "span": 10.0, "cadence": 30.0, "toa_error": 0.2},
                                  gwb={"amplitude": 5e-15, "harmonics": 6}), seed=3)
     free = FitModel(data, FitSection(common_spectrum="free", harmonics=6, red="none", sampler="gibbs", seed=1,
-                                     effective_samples=1000))
+                                     effective_samples=500))
     run = run_sampler(free, tmp_path / "free.h5")
     summary = summarise(free, run)
     assert summary["converged"]
     refitted = refit(posterior_draws(run.chain, summary["burn"], summary["thin"]), free.priors, data.span, "power_law",
                      steps=2000)
-    direct = FitModel(data, FitSection(harmonics=6, red="none", seed=1, effective_samples=1000))
+    direct = FitModel(data, FitSection(harmonics=6, red="none", seed=1, effective_samples=500))
     direct_summary = summarise(direct, run_sampler(direct, tmp_path / "direct.h5"))
     assert direct_summary["converged"]
     for ours, theirs in (("lg_amplitude", "common_lg_amplitude"), ("spectral_index", "common_spectral_index")):
@@ -177,7 +177,7 @@ PRIOR_RANGE = (-15.5, -13.5)  #: of lg rho_k in the calibration test: injections
 
 def _calibration_run(seed):
     """One injection drawn from the prior (each lg rho_k uniform on PRIOR_RANGE, coefficients N(0, rho_k) for every
-    pulsar, uncorrelated), its fit by the free-spectrum Gibbs sampler (300 iterations after 60 burnt, every 4th
+    pulsar, uncorrelated), its fit by the free-spectrum Gibbs sampler (240 iterations after 60 burnt, every 4th
     kept), and the share of draws below each injected lg rho_k."""
     from ptares.inference.samplers.gibbs import GibbsSampler
     from ptares.physics.spectra import fourier_basis
@@ -200,7 +200,7 @@ def _calibration_run(seed):
     x = rng.uniform(*PRIOR_RANGE, 3)
     proposals = sampler.proposals()
     draws = []
-    for i in range(360):
+    for i in range(300):
         sampler.iterate(x, rng, proposals)
         if i >= 60 and i % 4 == 0:
             draws.append(x.copy())
@@ -209,14 +209,14 @@ def _calibration_run(seed):
 
 @pytest.mark.statistical
 def test_free_spectrum_intervals_cover_injections_drawn_from_the_prior():
-    """Simulation-based calibration (Cook, Gelman & Rubin 2006; Talts et al. 2018): over 100 injections drawn from
+    """Simulation-based calibration (Cook, Gelman & Rubin 2006; Talts et al. 2018): over 80 injections drawn from
     the prior, the share of posterior draws below the truth is uniform, so each frequency's central 68% and 95%
-    intervals cover at their nominal rates, within 4 binomial standard errors over the 300 (frequency,
+    intervals cover at their nominal rates, within 4 binomial standard errors over the 240 (frequency,
     injection) pairs; a Kolmogorov–Smirnov test of uniformity (scipy.stats) does not reject at 1e-3."""
     import scipy.stats
     from conftest import parallel_map
 
-    quantiles = np.concatenate(parallel_map(_calibration_run, list(range(100))))
+    quantiles = np.concatenate(parallel_map(_calibration_run, list(range(80))))
     for level in (0.68, 0.95):
         inside = np.mean(np.abs(quantiles - 0.5) < level / 2)
         assert abs(inside - level) < 4 * np.sqrt(level * (1 - level) / quantiles.size), (level, inside)
