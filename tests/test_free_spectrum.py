@@ -221,3 +221,30 @@ def test_free_spectrum_intervals_cover_injections_drawn_from_the_prior():
         inside = np.mean(np.abs(quantiles - 0.5) < level / 2)
         assert abs(inside - level) < 4 * np.sqrt(level * (1 - level) / quantiles.size), (level, inside)
     assert scipy.stats.kstest(quantiles, "uniform").pvalue > 1e-3
+
+
+@pytest.mark.parametrize("common", ["uncorrelated", "hellings-downs"])
+def test_the_turnover_model_is_the_free_spectrum_at_its_variances(common):
+    """``common_spectrum = "turnover"`` fitted directly: its likelihood at (lg A, gamma, lg f_bend, kappa) equals the
+    free-spectrum likelihood at the variances A^2 / (12 pi^2) f_yr^-3 (f_k / f_yr)^-gamma / T / (1 + (f_bend / f_k)^kappa),
+    written out here (PHYSICS.md's power law; the turnover from memory, Sampson, Cornish & McWilliams 2015); the
+    Gibbs sampler's log posterior equals the model's at each new point."""
+    data = simulate(small_config(array={"random": {"count": 5}},
+                                 gwb={"amplitude": 5e-15, "harmonics": 5, "bend_frequency": "8 nHz", "bend_index": 3}),
+                    seed=1)
+    bent = FitModel(data, FitSection(common=common, common_spectrum="turnover", harmonics=5, red="none"))
+    assert bent.names == ["common_lg_amplitude", "common_spectral_index", "common_lg_bend_frequency", "common_bend_index"]
+    assert bent.values["common_lg_bend_frequency"] == pytest.approx(np.log10(8e-9))
+    free = FitModel(data, FitSection(common=common, common_spectrum="free", harmonics=5, red="none"))
+    year = 365.25 * 86400.0
+    f = np.arange(1, 6) / data.span
+    theta = np.array([-14.5, 3.5, -8.3, 2.5])
+    variances = ((10**theta[0]) ** 2 / (12 * np.pi**2) * year**3 * (f * year) ** -theta[1] / data.span
+                 / (1 + (10**theta[2] / f) ** theta[3]))
+    assert bent.log_likelihood(theta) == pytest.approx(free.log_likelihood(np.log10(variances)), rel=1e-12)
+    sampler = GibbsSampler(bent)
+    rng = np.random.default_rng(3)
+    proposals = sampler.proposals()
+    for _ in range(3):
+        value, _ = sampler.iterate(theta, rng, proposals)
+        assert value == pytest.approx(bent(theta), rel=1e-10)

@@ -26,6 +26,8 @@ from ptares.inference.pulsar_noise import read_pulsar_noise
 from ptares.inference.parameters import (
     BINARY_QUANTITIES,
     CHROMATIC,
+    COMMON_BEND,
+    COMMON_BEND_INDEX,
     COMMON_VARIANCE,
     bin_of,
     spectrum_bin,
@@ -58,6 +60,8 @@ DEFAULT_PRIORS = {
     COMMON_AMPLITUDE: prior_module.Uniform(-18.0, -12.0),
     COMMON_INDEX: prior_module.Uniform(0.0, 7.0),
     COMMON_VARIANCE: prior_module.Uniform(-20.0, -8.0),  # lg of s^2: coefficient rms from 0.1 ns to 0.1 ms
+    COMMON_BEND: prior_module.Uniform(-9.5, -7.0),  # the refit's turnover ranges (ptares.inference.spectral_models)
+    COMMON_BEND_INDEX: prior_module.Uniform(0.0, 8.0),
     RED_AMPLITUDE: prior_module.Uniform(-20.0, -11.0),
     RED_INDEX: prior_module.Uniform(0.0, 7.0),
     WHITE_SCALE: prior_module.Uniform(0.1, 5.0),
@@ -76,6 +80,7 @@ DEFAULT_PRIORS = {
 VALID = {
     COMMON_AMPLITUDE: (-np.inf, -9.0), RED_AMPLITUDE: (-np.inf, -9.0), binary("lg_strain"): (-np.inf, -9.0),
     COMMON_INDEX: (-10.0, 10.0), RED_INDEX: (-10.0, 10.0), COMMON_VARIANCE: (-np.inf, -2.0),
+    COMMON_BEND: (-12.0, -5.0), COMMON_BEND_INDEX: (0.0, 20.0),
     WHITE_SCALE: (1e-6, 1e3), WHITE_QUADRATURE: (-np.inf, -2.0), WHITE_JITTER: (-np.inf, -2.0),
     **{amplitude: (-np.inf, -9.0) for amplitude, _ in CHROMATIC.values()},
     **{index: (-10.0, 10.0) for _, index in CHROMATIC.values()},
@@ -243,6 +248,10 @@ class FitModel:
                 del values[COMMON_AMPLITUDE], values[COMMON_INDEX]
             else:
                 free += [COMMON_AMPLITUDE, COMMON_INDEX]
+            if section.common_spectrum == "turnover":  # the power law divided by 1 + (f_bend / f)^kappa
+                values[COMMON_BEND] = float(np.log10(gwb["bend_frequency"])) if "bend_frequency" in gwb else -9.5
+                values[COMMON_BEND_INDEX] = float(gwb.get("bend_index", 2.0))
+                free += [COMMON_BEND, COMMON_BEND_INDEX]
         self.default_priors = dict(DEFAULT_PRIORS)
         if section.binary:
             self.default_priors[binary("lg_frequency")] = binary_frequency_prior(dataset)
@@ -315,6 +324,17 @@ class FitModel:
         if head == COMMON_INDEX:
             return bool(np.isfinite(values.get(COMMON_AMPLITUDE, -np.inf)))
         return True
+
+    def _common_variances(self, v: dict):
+        """The common process's coefficient variances (harmonics,) where its spectrum is not a plain power law
+        (a free spectrum, a turnover), else None."""
+        if self.section.common == "none" or self.section.common_spectrum == "power_law":
+            return None
+        if self.section.common_spectrum == "free":
+            return 10.0 ** np.array([v[spectrum_bin(k)] for k in range(1, self.harmonics + 1)])
+        frequency = np.arange(1, self.harmonics + 1) / self.dataset.span
+        power_law = coefficient_variance(self.dataset.span, self.harmonics, 10 ** v[COMMON_AMPLITUDE], v[COMMON_INDEX])
+        return power_law * turnover(frequency, 10 ** v[COMMON_BEND], v[COMMON_BEND_INDEX])
 
     def _chromatic_harmonics(self, dataset, process: str, mode: str) -> int:
         """Frequencies of a chromatic process: the injected ones when held at the injection, else ``[fit]``'s."""
@@ -410,8 +430,7 @@ class FitModel:
             red_spectral_index=np.array([v[for_pulsar(RED_INDEX, n)] for n in names]),
             amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
             gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
-            common_variances=(10.0 ** np.array([v[spectrum_bin(k)] for k in range(1, self.harmonics + 1)])
-                              if self.section.common_spectrum == "free" and self.section.common != "none" else None),
+            common_variances=self._common_variances(v),
             chromatic={process: (np.array([10 ** v[for_pulsar(CHROMATIC[process][0], n)] for n in names]),
                                  np.array([v[for_pulsar(CHROMATIC[process][1], n)] for n in names]))
                        for process in self.chromatic_modes},

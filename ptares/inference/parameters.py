@@ -17,6 +17,8 @@ __all__ = [
     "COMMON_AMPLITUDE",
     "COMMON_INDEX",
     "COMMON_VARIANCE",
+    "COMMON_BEND",
+    "COMMON_BEND_INDEX",
     "spectrum_bin",
     "bin_of",
     "WHITE_SCALE",
@@ -42,6 +44,8 @@ SEPARATOR = "@"
 
 COMMON_AMPLITUDE = "common_lg_amplitude"  #: lg of the common process's characteristic strain at 1/yr
 COMMON_INDEX = "common_spectral_index"  #: residual spectral index of the common process
+COMMON_BEND = "common_lg_bend_frequency"  #: lg of a turning-over common process's bend frequency, in Hz
+COMMON_BEND_INDEX = "common_bend_index"  #: how sharply it turns over (kappa)
 #: Prefix of a free spectrum's parameters: ``common_lg_variance_<k>``, lg of the variance (s^2) of the common
 #: process's sine and cosine coefficients at frequency k/T, S(f_k) / T
 COMMON_VARIANCE = "common_lg_variance"
@@ -110,6 +114,8 @@ def quantity(name: str) -> str:
 LABELS = {
     COMMON_AMPLITUDE: r"$\lg A_\mathrm{common}$",
     COMMON_INDEX: r"$\gamma_\mathrm{common}$",
+    COMMON_BEND: r"$\lg(f_\mathrm{bend}\,/\,\mathrm{Hz})$",
+    COMMON_BEND_INDEX: r"$\kappa_\mathrm{bend}$",
     WHITE_SCALE: r"$s_\mathrm{white}$",
     WHITE_QUADRATURE: r"$\lg(\sigma_\mathrm{quad}\,/\,\mathrm{s})$",
     RED_AMPLITUDE: r"$\lg A_\mathrm{red}$",
@@ -131,7 +137,7 @@ LABELS = {
 
 def is_array_signal(name: str) -> bool:
     """Whether a parameter belongs to a signal shared by the array (the common process, a binary)."""
-    return (name in (COMMON_AMPLITUDE, COMMON_INDEX) or bin_of(name) is not None
+    return (name in (COMMON_AMPLITUDE, COMMON_INDEX, COMMON_BEND, COMMON_BEND_INDEX) or bin_of(name) is not None
             or name in {binary(q) for q in BINARY_QUANTITIES})
 
 

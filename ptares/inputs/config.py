@@ -670,7 +670,7 @@ class FitSection(_Section):
     """
 
     common: Literal["uncorrelated", "hellings-downs", "monopole", "dipole", "none"] = "uncorrelated"
-    common_spectrum: Literal["power_law", "free"] = "power_law"
+    common_spectrum: Literal["power_law", "turnover", "free"] = "power_law"
     spectral_models: Annotated[tuple[Literal["power_law", "turnover"], ...], _listed_once("a model")] = ("power_law",)
     harmonics: Optional[Count] = Field(default=None, ge=1, le=MAX_HARMONICS)
     red: Optional[Literal["free", "injected", "none"]] = None

@@ -54,6 +54,8 @@ from ptares.inference import kernels
 from ptares.inference.likelihood import NotPositiveDefinite
 from ptares.inference.parameters import (
     CHROMATIC,
+    COMMON_BEND,
+    COMMON_BEND_INDEX,
     bin_of,
     spectrum_bin,
     COMMON_AMPLITUDE,
@@ -164,7 +166,7 @@ class GibbsSampler:
                 own = [index[k] for k in (for_pulsar(q, pulsar) for q in CHROMATIC[process]) if k in index]
                 self.chromatic_blocks[process].append(_Block(own, model.priors, "red") if own else None)
                 used |= set(own)
-        common = [index[k] for k in (COMMON_AMPLITUDE, COMMON_INDEX) if k in index]
+        common = [index[k] for k in (COMMON_AMPLITUDE, COMMON_INDEX, COMMON_BEND, COMMON_BEND_INDEX) if k in index]
         self.common_block = _Block(common, model.priors, "common") if common else None
         used |= set(common)
         # a free spectrum: (frequency number k, position in x) of each free variance, drawn given the coefficients
@@ -225,10 +227,10 @@ class GibbsSampler:
 
     def _common_variance(self, x):
         """Prior variance of each pulsar's coefficients from the common process (width,; zero without one)."""
-        if self.model.section.common_spectrum == "free" and self.model.section.common != "none":
+        if self.model.section.common_spectrum != "power_law" and self.model.section.common != "none":
             variances = np.zeros_like(self._common_unit)
-            bins = [self._value(x, spectrum_bin(k)) for k in range(1, self.likelihood.harmonics + 1)]
-            variances[: 2 * len(bins)] = np.repeat(10.0 ** np.array(bins), 2)
+            given = self.model._common_variances(self.model.parameters(x))  # a free spectrum or a turnover
+            variances[: 2 * given.size] = np.repeat(given, 2)
             return variances
         if COMMON_AMPLITUDE not in self.model.values:  # common = "none"
             return np.zeros_like(self._common_unit)
