@@ -248,3 +248,35 @@ def test_the_turnover_model_is_the_free_spectrum_at_its_variances(common):
     for _ in range(3):
         value, _ = sampler.iterate(theta, rng, proposals)
         assert value == pytest.approx(bent(theta), rel=1e-10)
+
+
+def test_a_pulsars_free_red_spectrum_sampled_by_gibbs_matches_quadrature(tmp_path):
+    """One pulsar's red noise as a free spectrum on 2 frequencies (``[fit] red_spectrum = "free"``: the Gibbs sampler
+    takes a slice step of each variance with the pulsar's coefficients integrated out), nothing else free: the
+    marginal of the first variance against likelihood x prior integrated on a 2-D grid (numpy trapezoid rule),
+    its 16th, 50th and 84th percentiles within 4 Monte Carlo standard errors."""
+    from ptares.inference.samplers import run_sampler
+    from ptares.inference.samplers.chains import posterior_draws, summarise
+
+    data = simulate(small_config(array={"random": {"count": 1}},
+                                 observing={"start": 53000, "span": 6.0, "cadence": 20.0, "toa_error": 0.3},
+                                 noise={"red": {"amplitude": 1e-14, "spectral_index": 3.0, "harmonics": 2}}, gwb=None),
+                    seed=6)
+    model = FitModel(data, FitSection(common="none", red="free", red_spectrum="free", red_harmonics=2, sampler="gibbs",
+                                      seed=4, priors={"red_lg_variance": {"uniform": [-17.0, -11.0]}}))
+    name = data.pulsars[0].name
+    assert model.names == [f"red_lg_variance_1@{name}", f"red_lg_variance_2@{name}"]
+    run = run_sampler(model, tmp_path / "c.h5")
+    summary = summarise(model, run)
+    assert summary["converged"]
+    draws = posterior_draws(run.chain, summary["burn"], summary["thin"])[:, 0]
+    first, second = np.linspace(-17, -11, 241), np.linspace(-17, -11, 97)
+    log_posterior = np.array([[model.log_likelihood(np.array([a, b])) for b in second] for a in first])
+    density = np.trapezoid(np.exp(log_posterior - log_posterior.max()), second, axis=1)
+    density /= np.trapezoid(density, first)
+    cumulative = np.concatenate([[0.0], np.cumsum((density[1:] + density[:-1]) / 2 * np.diff(first))])
+    cumulative /= cumulative[-1]
+    for q in (0.16, 0.5, 0.84):
+        exact = float(np.interp(q, cumulative, first))
+        error = np.sqrt(q * (1 - q) / summary["effective_samples"]) / float(np.interp(exact, first, density))
+        assert abs(np.quantile(draws, q) - exact) < 4 * error, (q, np.quantile(draws, q), exact, error)

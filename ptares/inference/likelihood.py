@@ -402,14 +402,17 @@ class Likelihood:
         variances = amplitudes[present, None] ** 2 * unit * np.exp(-indices[:, None] * log_ratio)
         out[present] = np.repeat(variances, 2, axis=1)
 
-    def _spectra(self, red_amplitude, red_spectral_index, amplitude, gamma, chromatic=None, common_variances=None):
+    def _spectra(self, red_amplitude, red_spectral_index, amplitude, gamma, chromatic=None, common_variances=None,
+                 red_variances=None):
         """Per-pulsar variances of their own processes (P, width: red noise, then each chromatic process) and
         the common variances (width,), zero beyond each process's columns."""
         red = np.zeros((len(self.pulsars), self.width))
         for name, k, _ in self.chromatic:
             amplitudes, indices = (chromatic or {}).get(name, (np.zeros(len(self.pulsars)), None))
             self._power_laws(red[:, self.chromatic_columns[name]], k, amplitudes, indices)
-        if self.red_harmonics:
+        if red_variances is not None:  # each pulsar's free red-noise spectrum
+            red[:, : 2 * self.red_harmonics] = np.repeat(np.asarray(red_variances, dtype=float), 2, axis=1)
+        elif self.red_harmonics:
             self._power_laws(red[:, : 2 * self.red_harmonics], self.red_harmonics, red_amplitude, red_spectral_index)
         common = np.zeros(self.width)
         if common_variances is not None:  # a free spectrum: the variance of each frequency's coefficients
@@ -420,24 +423,26 @@ class Likelihood:
 
     # --- the likelihood -------------------------------------------------------
     def __call__(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
-                 signal=None, chromatic=None, white_jitter=None, common_variances=None) -> float:
+                 signal=None, chromatic=None, white_jitter=None, common_variances=None, red_variances=None) -> float:
         return self.evaluate(white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude, gamma, signal,
-                             chromatic, white_jitter, common_variances)[0]
+                             chromatic, white_jitter, common_variances, red_variances)[0]
 
     def evaluate(self, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0, gamma=13.0 / 3.0,
-                 signal=None, chromatic=None, white_jitter=None, common_variances=None):
+                 signal=None, chromatic=None, white_jitter=None, common_variances=None, red_variances=None):
         """``(log likelihood, factors)``: the factors let :meth:`draw_coefficients` draw at the same
         parameters without factorising again.  ``common_variances`` (harmonics,): a free spectrum of the
-        common process (each frequency's coefficient variance, s^2) in place of ``amplitude`` and ``gamma``."""
+        common process (each frequency's coefficient variance, s^2) in place of ``amplitude`` and ``gamma``;
+        ``red_variances`` (P, red_harmonics) the same for every pulsar's red noise."""
         pieces = self._pieces(white_scale, white_quadrature, signal, white_jitter)
-        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic, common_variances)
+        red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic, common_variances,
+                                    red_variances)
         constant = sum(-0.5 * (piece.log_det + piece.dof * _LOG_2PI) - 0.5 * piece.rNr for piece in pieces)
         factors = self._factorise(pieces, red, common)
         return constant + 0.5 * factors.quadratic - 0.5 * factors.log_det, factors
 
     def draw_coefficients(self, rng, white_scale, white_quadrature, red_amplitude, red_spectral_index, amplitude=0.0,
                           gamma=13.0 / 3.0, signal=None, factors=None, chromatic=None, white_jitter=None,
-                          common_variances=None) -> np.ndarray:
+                          common_variances=None, red_variances=None) -> np.ndarray:
         """One draw of every pulsar's Fourier coefficients (P, width) in s from ``p(a | parameters, residuals)``.
 
         The timing model is marginalised: ``a ~ N(Sigma^-1 d, Sigma^-1)`` with
@@ -450,7 +455,8 @@ class Likelihood:
         """
         if factors is None:
             pieces = self._pieces(white_scale, white_quadrature, signal, white_jitter)
-            red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic, common_variances)
+            red, common = self._spectra(red_amplitude, red_spectral_index, amplitude, gamma, chromatic, common_variances,
+                                        red_variances)
             factors = self._factorise(pieces, red, common)
         coefficients = np.zeros((len(self.pulsars), self.width))
         shared = None

@@ -29,7 +29,9 @@ from ptares.inference.parameters import (
     COMMON_BEND,
     COMMON_BEND_INDEX,
     COMMON_VARIANCE,
+    RED_VARIANCE,
     bin_of,
+    red_bin,
     spectrum_bin,
     COMMON_AMPLITUDE,
     COMMON_INDEX,
@@ -60,6 +62,7 @@ DEFAULT_PRIORS = {
     COMMON_AMPLITUDE: prior_module.Uniform(-18.0, -12.0),
     COMMON_INDEX: prior_module.Uniform(0.0, 7.0),
     COMMON_VARIANCE: prior_module.Uniform(-20.0, -8.0),  # lg of s^2: coefficient rms from 0.1 ns to 0.1 ms
+    RED_VARIANCE: prior_module.Uniform(-20.0, -8.0),
     COMMON_BEND: prior_module.Uniform(-9.5, -7.0),  # the refit's turnover ranges (ptares.inference.spectral_models)
     COMMON_BEND_INDEX: prior_module.Uniform(0.0, 8.0),
     RED_AMPLITUDE: prior_module.Uniform(-20.0, -11.0),
@@ -79,7 +82,7 @@ DEFAULT_PRIORS = {
 #: Values each quantity may take (fixed values and prior supports must lie inside).
 VALID = {
     COMMON_AMPLITUDE: (-np.inf, -9.0), RED_AMPLITUDE: (-np.inf, -9.0), binary("lg_strain"): (-np.inf, -9.0),
-    COMMON_INDEX: (-10.0, 10.0), RED_INDEX: (-10.0, 10.0), COMMON_VARIANCE: (-np.inf, -2.0),
+    COMMON_INDEX: (-10.0, 10.0), RED_INDEX: (-10.0, 10.0), COMMON_VARIANCE: (-np.inf, -2.0), RED_VARIANCE: (-np.inf, -2.0),
     COMMON_BEND: (-12.0, -5.0), COMMON_BEND_INDEX: (0.0, 20.0),
     WHITE_SCALE: (1e-6, 1e3), WHITE_QUADRATURE: (-np.inf, -2.0), WHITE_JITTER: (-np.inf, -2.0),
     **{amplitude: (-np.inf, -9.0) for amplitude, _ in CHROMATIC.values()},
@@ -227,7 +230,17 @@ class FitModel:
             free += [for_pulsar(q, o) for owners in self._white_owners for o in owners for q in (WHITE_SCALE, WHITE_QUADRATURE)]
         if self.jitter_mode == "free":
             free += [for_pulsar(WHITE_JITTER, o) for owners in self._white_owners for o in owners]
-        if self.red_mode == "free":
+        self.red_spectrum = section.red_spectrum if self.red_mode == "free" else "power_law"
+        if self.red_spectrum == "free":  # one variance per frequency per pulsar in place of its power law
+            for p in dataset.pulsars:
+                amplitude = float(p.noise.get("red_amplitude", 0.0))
+                injected = (coefficient_variance(dataset.span, red_harmonics, amplitude,
+                                                 float(p.noise.get("red_spectral_index", 13.0 / 3.0)))
+                            if amplitude > 0 else np.zeros(red_harmonics))
+                for k in range(1, red_harmonics + 1):
+                    values[red_bin(k, p.name)] = np.log10(injected[k - 1]) if injected[k - 1] > 0 else -np.inf
+                    free.append(red_bin(k, p.name))
+        elif self.red_mode == "free":
             free += [for_pulsar(q, n) for n in pulsars for q in (RED_AMPLITUDE, RED_INDEX)]
         for process, mode in self.chromatic_modes.items():
             if mode == "free":
@@ -264,7 +277,7 @@ class FitModel:
         used = set(free) | {k for k in values if quantity(k) in (COMMON_AMPLITUDE, COMMON_INDEX, WHITE_SCALE, WHITE_QUADRATURE)
                             or is_array_signal(k)}
         if self.red_mode != "none":
-            used |= {k for k in values if quantity(k) in (RED_AMPLITUDE, RED_INDEX)}
+            used |= {k for k in values if quantity(k) in (RED_AMPLITUDE, RED_INDEX, RED_VARIANCE)}
         for process in self.chromatic_modes:
             used |= {k for k in values if quantity(k) in CHROMATIC[process]}
         if self.jitter_mode != "none":
@@ -431,6 +444,8 @@ class FitModel:
             amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
             gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
             common_variances=self._common_variances(v),
+            red_variances=(10.0 ** np.array([[v[red_bin(k, n)] for k in range(1, self.likelihood.red_harmonics + 1)]
+                                             for n in names]) if self.red_spectrum == "free" else None),
             chromatic={process: (np.array([10 ** v[for_pulsar(CHROMATIC[process][0], n)] for n in names]),
                                  np.array([v[for_pulsar(CHROMATIC[process][1], n)] for n in names]))
                        for process in self.chromatic_modes},

@@ -17,6 +17,9 @@ __all__ = [
     "COMMON_AMPLITUDE",
     "COMMON_INDEX",
     "COMMON_VARIANCE",
+    "RED_VARIANCE",
+    "red_bin",
+    "red_bin_of",
     "COMMON_BEND",
     "COMMON_BEND_INDEX",
     "spectrum_bin",
@@ -49,6 +52,8 @@ COMMON_BEND_INDEX = "common_bend_index"  #: how sharply it turns over (kappa)
 #: Prefix of a free spectrum's parameters: ``common_lg_variance_<k>``, lg of the variance (s^2) of the common
 #: process's sine and cosine coefficients at frequency k/T, S(f_k) / T
 COMMON_VARIANCE = "common_lg_variance"
+#: Prefix of a pulsar's free red-noise spectrum: ``red_lg_variance_<k>@<pulsar>``
+RED_VARIANCE = "red_lg_variance"
 WHITE_SCALE = "white_scale"  #: factor on the quoted TOA uncertainties
 WHITE_QUADRATURE = "white_lg_quadrature"  #: lg of the white noise added in quadrature, in seconds
 RED_AMPLITUDE = "red_lg_amplitude"  #: lg of a pulsar's red-noise amplitude at 1/yr
@@ -77,9 +82,20 @@ def spectrum_bin(k: int) -> str:
 
 
 def bin_of(name: str):
-    """The frequency number k of a free-spectrum parameter, else None."""
+    """The frequency number k of a common free-spectrum parameter, else None."""
     head, _, k = name.rpartition("_")
     return int(k) if head == COMMON_VARIANCE and k.isdigit() else None
+
+
+def red_bin(k: int, pulsar: str) -> str:
+    """``(3, "Birch")`` -> ``red_lg_variance_3@Birch``: a pulsar's free red-noise spectrum at frequency k/T."""
+    return for_pulsar(f"{RED_VARIANCE}_{k}", pulsar)
+
+
+def red_bin_of(name: str):
+    """The frequency number k of a pulsar's free red-noise parameter, else None."""
+    head, _, k = split(name)[0].rpartition("_")
+    return int(k) if head == RED_VARIANCE and k.isdigit() else None
 
 
 def white_owners(pulsar) -> list:
@@ -107,7 +123,9 @@ def split(name: str) -> tuple:
 def quantity(name: str) -> str:
     """The quantity a parameter measures, without its pulsar (``common_lg_variance`` for every frequency of a
     free spectrum)."""
-    return COMMON_VARIANCE if bin_of(name) is not None else split(name)[0]
+    if bin_of(name) is not None:
+        return COMMON_VARIANCE
+    return RED_VARIANCE if red_bin_of(name) is not None else split(name)[0]
 
 
 #: Axis label (matplotlib math text) of each quantity, with its unit.
@@ -145,6 +163,8 @@ def label(name: str) -> str:
     """Axis label of a parameter: its quantity's math text, and the pulsar in brackets for a pulsar's own."""
     if bin_of(name) is not None:
         return rf"$\lg(\sigma^2_{{{bin_of(name)}}}\,/\,\mathrm{{s}}^2)$"
+    if red_bin_of(name) is not None:
+        return rf"$\lg(\sigma^2_{{\mathrm{{red}},{red_bin_of(name)}}}\,/\,\mathrm{{s}}^2)$ [{split(name)[1]}]"
     head, pulsar = split(name)
     text = LABELS.get(head, head)
     return f"{text} [{pulsar}]" if pulsar else text

@@ -675,6 +675,7 @@ class FitSection(_Section):
     harmonics: Optional[Count] = Field(default=None, ge=1, le=MAX_HARMONICS)
     red: Optional[Literal["free", "injected", "none"]] = None
     red_harmonics: Count = Field(default=30, ge=1, le=MAX_HARMONICS)
+    red_spectrum: Literal["power_law", "free"] = "power_law"
     white: Literal["injected", "free"] = "injected"
     jitter: Optional[Literal["free", "injected", "none"]] = None
     dispersion: Optional[Literal["free", "injected", "none"]] = None

@@ -54,17 +54,19 @@ from ptares.inference import kernels
 from ptares.inference.likelihood import NotPositiveDefinite
 from ptares.inference.parameters import (
     CHROMATIC,
+    COMMON_AMPLITUDE,
     COMMON_BEND,
     COMMON_BEND_INDEX,
-    bin_of,
-    spectrum_bin,
-    COMMON_AMPLITUDE,
     COMMON_INDEX,
     RED_AMPLITUDE,
     RED_INDEX,
     WHITE_QUADRATURE,
     WHITE_SCALE,
+    bin_of,
     for_pulsar,
+    red_bin_of,
+    spectrum_bin,
+    split,
 )
 from ptares.inference.priors import Uniform
 from ptares.physics.spectra import power_law_factors
@@ -152,7 +154,7 @@ class GibbsSampler:
         self.likelihood = model.likelihood
         names = model.dataset.names
         index = {name: i for i, name in enumerate(model.names)}
-        self.white_blocks, self.red_blocks = [], []
+        self.white_blocks, self.red_blocks, self.red_bins = [], [], []
         self.processes = list(model.chromatic_modes)  # chromatic processes, in the likelihood's column order
         self.chromatic_blocks = {process: [] for process in self.processes}
         used = set()
@@ -162,6 +164,10 @@ class GibbsSampler:
             self.white_blocks.append(_Block(white, model.priors, "white") if white else None)
             self.red_blocks.append(_Block(red, model.priors, "red") if red else None)
             used |= set(white) | set(red)
+            # a free red-noise spectrum: (position in x, column) of each frequency's variance
+            self.red_bins.append([(index[k], 2 * (red_bin_of(k) - 1)) for k in model.names
+                                  if red_bin_of(k) is not None and split(k)[1] == pulsar])
+            used |= {i for i, _ in self.red_bins[-1]}
             for process in self.processes:  # a chromatic process is stepped like red noise
                 own = [index[k] for k in (for_pulsar(q, pulsar) for q in CHROMATIC[process]) if k in index]
                 self.chromatic_blocks[process].append(_Block(own, model.priors, "red") if own else None)
@@ -215,6 +221,16 @@ class GibbsSampler:
     def _red_variance(self, amplitude, index):
         """Prior variance of one pulsar's coefficients from its red noise, zero beyond its frequencies (width,)."""
         return _power_law(self._red_unit, self._red_log_ratio, amplitude, index)
+
+    def _red_of(self, x, p):
+        """Prior variance of pulsar p's coefficients from its red noise at ``x`` (width,): its power law, or its
+        free spectrum's variances."""
+        if self.red_bins[p]:
+            variances = np.zeros_like(self._red_unit)
+            for i, column in self.red_bins[p]:
+                variances[column: column + 2] = 10.0 ** x[i]
+            return variances
+        return self._red_variance(*self._red_values(x, p))
 
     def _chromatic_values(self, x, p, process):
         """Pulsar p's amplitude and spectral index of a chromatic process at ``x``."""
@@ -339,7 +355,7 @@ class GibbsSampler:
         """One Gibbs iteration from ``x`` (changed in place); returns (log posterior at the new x, acceptance)."""
         lk = self.likelihood
         theta = self.model.physical(x)
-        red = np.stack([self._red_variance(a, i) for a, i in zip(theta["red_amplitude"], theta["red_spectral_index"])])
+        red = np.stack([self._red_of(x, p) for p in range(len(self._names))])
         # each chromatic process's variances (on its own columns, beyond the common ones)
         parts = {process: np.stack([self._chromatic_law(x, p, process) for p in range(len(self._names))])
                  for process in self.processes}
@@ -382,12 +398,28 @@ class GibbsSampler:
                 red[p] = new_red
                 if inverse is not None:
                     self._update_inverse(inverse, p, change, red, common)
+            if self.red_bins[p]:  # a free red spectrum: a slice step of each frequency, coefficients integrated out
+                for i, column in self.red_bins[p]:
+                    prior = self.model.priors[i]
+
+                    def red_bin_density(y, p=p, i=i, pieces=pieces, mean=mean, base=base, prior=prior):
+                        trial = x.copy()
+                        trial[i] = y
+                        return (self._collapsed(pieces, mean, base + chromatic[p] + self._red_of(trial, p))[0]
+                                + prior.log_pdf(y))
+
+                    x[i] = _slice_step(red_bin_density, float(x[i]), rng, *_support_of(prior))
+                new_red = self._red_of(x, p) + chromatic[p]
+                change = (new_red - red[p])[0: 2 * lk.harmonics: 2]
+                red[p] = new_red
+                if inverse is not None:
+                    self._update_inverse(inverse, p, change, red, common)
             for process in self.processes:  # its chromatic processes, the same way (columns beyond the common)
                 block = self.chromatic_blocks[process][p]
                 if block is None:
                     continue
                 # everything else on pulsar p's coefficients, summed afresh (not subtracted: no cancellation)
-                others = self._red_variance(*self._red_values(x, p)) + sum(parts[q][p] for q in self.processes if q != process)
+                others = self._red_of(x, p) + sum(parts[q][p] for q in self.processes if q != process)
 
                 def chromatic_density(y, p=p, pieces=pieces, mean=mean, base=base, others=others, process=process):
                     return self._collapsed(pieces, mean, base + others + self._chromatic_law(y, p, process))[0]
