@@ -383,6 +383,7 @@ class FitResult:
     out: Path | None
     injected: dict = field(default_factory=dict)
     _chain: np.ndarray | None = None  #: (steps, walkers, parameters), kept only when there is no chains file
+    spectrum: dict | None = None  #: ``spectrum.json`` of a free-spectrum fit with an output folder, else None
 
     @property
     def converged(self) -> bool:
@@ -571,28 +572,28 @@ def fit(source, out=None, *, settings=None, overwrite: bool = False, figures: bo
             raise Interrupted(chains) from None
         summary = summarise(model, run)
         write_json(out / "posterior.json", summary)
+        samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
         if figures:
             from ptares.figures.common import save_figure
             from ptares.figures.inference import corner_figure, trace_figure
 
-            samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
             save_figure(corner_figure(samples, model.names, model.injected, converged=summary["converged"]), out / "corner.png")
             save_figure(trace_figure(run.chain, model.names, summary["burn"], model.injected, converged=summary["converged"],
                                      independent=summary["sampler"] == "gibbs"),
                         out / "trace.png")
+        spectrum = None
         if model.section.common_spectrum == "free" and model.section.common != "none":
             from ptares.inference.spectral_models import spectrum_content
 
-            samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
-            content, refit_draws = spectrum_content(model, samples, seed=model.section.seed)
-            write_json(out / "spectrum.json", content)
+            spectrum, refit_draws = spectrum_content(model, samples, seed=model.section.seed)
+            write_json(out / "spectrum.json", spectrum)
             if figures:
                 from ptares.figures.inference import spectrum_figure
 
-                save_figure(spectrum_figure(content, refit_draws, converged=summary["converged"]), out / "spectrum.png")
+                save_figure(spectrum_figure(spectrum, refit_draws, converged=summary["converged"]), out / "spectrum.png")
     except OSError as exc:
         raise _cannot_write(exc, out) from None
-    return FitResult(summary, list(model.names), chains, out, dict(model.injected))
+    return FitResult(summary, list(model.names), chains, out, dict(model.injected), spectrum=spectrum)
 
 
 # ---------------------------------------------------------------- compare

@@ -88,16 +88,12 @@ def _fit(args) -> int:
         entry = result.parameters[name]
         low, high = entry["interval68"]
         print(f"  {name:28s} {entry['median']:+.4g}  68%: [{low:+.4g}, {high:+.4g}]")
-    spectrum = result.out / "spectrum.json"
-    if spectrum.exists():
-        import json
-
-        refits = json.loads(spectrum.read_text())["refits"]
-        for name, entry in refits.items():
+    if result.spectrum is not None:
+        for name, entry in result.spectrum["refits"].items():
             text = ", ".join(f"{key} {value['median']:.3g} [{value['interval68'][0]:.3g}, {value['interval68'][1]:.3g}]"
                              for key, value in entry["parameters"].items())
             print(f"  {name.replace('_', ' ')} refitted from the free spectrum: {text} (68%)")
-        print(f"wrote {spectrum}, spectrum.png")
+        print(f"wrote {result.out / 'spectrum.json'}, spectrum.png")
     common = summary.get("common_process") or {}
     if common:
         limit, evidence = common["upper_limit"], common["savage_dickey"]

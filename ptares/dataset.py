@@ -37,7 +37,7 @@ from ptares.limits import MAX_TOAS, MAX_TOTAL_TOAS, MEMORY_LIMIT, NAME_PATTERN
 from ptares.physics.sky import unit_vector
 from ptares.version import earlier_names
 
-__all__ = ["PulsarData", "Dataset", "epoch_indices", "EPOCH_WINDOW", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint",
+__all__ = ["PulsarData", "Dataset", "epoch_indices", "system_indices", "jitter_weights", "EPOCH_WINDOW", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint",
            "describe_signal"]
 
 
@@ -64,6 +64,22 @@ def epoch_indices(mjd: np.ndarray, system: np.ndarray | None = None) -> np.ndarr
     return rank[labels]
 
 
+def jitter_weights(weights: np.ndarray, epochs: np.ndarray, variances: np.ndarray) -> tuple:
+    """Epoch jitter by Sherman–Morrison, one epoch at a time (PHYSICS.md, "Epoch jitter"): for white noise
+    ``W = diag(weights)`` (inverse variances) and a variance ``variances[e]`` shared by the TOAs of epoch e
+    (``epochs``: each TOA's), ``N^-1 = W - W U diag(c) U^T W`` with ``c_e = J_e^2 / (1 + J_e^2 sum_(i in e) w_i)``
+    and ``ln|N| = -sum ln w_i + sum_e ln(1 + J_e^2 sum_(i in e) w_i)``.  Returns ``(c, the second sum)``."""
+    total = np.bincount(epochs, weights=weights, minlength=variances.size)  # sum of w_i over each epoch
+    return variances / (1.0 + variances * total), float(np.sum(np.log1p(variances * total)))
+
+
+def system_indices(system: np.ndarray, names) -> np.ndarray:
+    """Each TOA's observing system (``system``, names) as an index into ``names``."""
+    unique, inverse = np.unique(np.asarray(system, dtype=str), return_inverse=True)
+    position = {str(name): i for i, name in enumerate(names)}
+    return np.array([position[str(u)] for u in unique], dtype=np.int64)[inverse.ravel()]
+
+
 @dataclass
 class PulsarData:
     """One pulsar's timing data and injected truth."""
@@ -87,6 +103,12 @@ class PulsarData:
     def epochs(self) -> np.ndarray:
         """The epoch of each TOA (:func:`epoch_indices`): the TOAs that share an epoch jitter."""
         return epoch_indices(self.mjd, self.system)
+
+    def system_indices(self) -> np.ndarray:
+        """Each TOA's observing system as an index into :attr:`systems` (all 0 when none are recorded)."""
+        if self.system is None:
+            return np.zeros(self.mjd.size, dtype=np.int64)
+        return system_indices(self.system, self.systems)
 
     @property
     def systems(self) -> list:

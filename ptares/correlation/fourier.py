@@ -16,7 +16,7 @@ import numpy as np
 import scipy.linalg
 
 from ptares.correlation.noise import NoiseModel
-from ptares.dataset import Dataset
+from ptares.dataset import Dataset, jitter_weights
 from ptares.errors import InputError
 from ptares.limits import MEMORY_LIMIT
 from ptares.physics.spectra import chromatic_scale, coefficient_variance, fourier_basis
@@ -89,18 +89,23 @@ def _chromatic(noise: NoiseModel, a: int, pulsar, times, span: float):
     return np.hstack(columns), np.concatenate(variances)
 
 
-def _jitter(noise: NoiseModel, a: int, pulsar):
-    """Pulsar ``a``'s epoch jitter as columns: the TOA-to-epoch indicator U (n, epochs) and the epochs'
-    variances J^2, so that U diag(J^2) U^T is the jitter covariance (PHYSICS.md, "Epoch jitter")."""
+def _jitter(noise: NoiseModel, a: int, pulsar, weights: np.ndarray):
+    """``inner(A, B)``: ``A^T N^-1 B`` for pulsar ``a``'s white noise ``N`` (inverse variances ``weights``) and its
+    epoch jitter, by Sherman–Morrison per epoch (:func:`ptares.dataset.jitter_weights`), as the likelihood does."""
     jitter = noise.jitter(a)
     if jitter is None:
-        return np.empty((pulsar.mjd.size, 0)), np.empty(0)
+        return lambda A, B: A.T @ (B * weights[:, None])
     epochs = pulsar.epochs()
-    indicator = np.zeros((pulsar.mjd.size, int(epochs.max()) + 1))
-    indicator[np.arange(pulsar.mjd.size), epochs] = 1.0
-    variance = np.zeros(indicator.shape[1])
-    variance[epochs] = jitter**2
-    return indicator, variance
+    variances = np.zeros(int(epochs.max()) + 1)
+    variances[epochs] = jitter**2
+    c, _ = jitter_weights(weights, epochs, variances)
+    order = np.argsort(epochs, kind="stable")
+    starts = np.flatnonzero(np.diff(epochs[order], prepend=-1))
+
+    def sums(A):  # U^T W A: the weighted rows of A summed over each epoch
+        return np.add.reduceat((A * weights[:, None])[order], starts, axis=0)
+
+    return lambda A, B: A.T @ (B * weights[:, None]) - sums(A).T @ (sums(B) * c[:, None])
 
 
 def fourier_products(dataset: Dataset, noise: NoiseModel, harmonics: int, gamma: float) -> FourierProducts:
@@ -127,13 +132,12 @@ def fourier_products(dataset: Dataset, noise: NoiseModel, harmonics: int, gamma:
             red = coefficient_variance(span, noise.red_harmonics, noise.red_amplitude[a], noise.red_spectral_index[a])
             prior[: 2 * noise.red_harmonics] += np.repeat(red, 2)
         chromatic_columns, chromatic_prior = _chromatic(noise, a, p, times, span)
-        jitter_columns, jitter_prior = _jitter(noise, a, p)
-        F = np.hstack([F, chromatic_columns, jitter_columns])  # the template's columns stay the first 2 * harmonics
-        prior = np.concatenate([prior, chromatic_prior, jitter_prior])
-        inv_n = 1.0 / noise.white_sigma(a, p.errors) ** 2
+        F = np.hstack([F, chromatic_columns])  # the template's columns stay the first 2 * harmonics
+        prior = np.concatenate([prior, chromatic_prior])
+        inner = _jitter(noise, a, p, 1.0 / noise.white_sigma(a, p.errors) ** 2)  # A^T N^-1 B, white noise and jitter
         kept = prior > 0  # columns without prior power add nothing to the covariance
         T = np.hstack([p.design_matrix, F[:, kept]])
-        sigma = T.T @ (T * inv_n[:, None])
+        sigma = inner(T, T)
         fourier = np.arange(p.design_matrix.shape[1], T.shape[1])
         sigma[fourier, fourier] += 1.0 / prior[kept]  # the timing model has a flat prior: nothing added
         try:
@@ -141,8 +145,8 @@ def fourier_products(dataset: Dataset, noise: NoiseModel, harmonics: int, gamma:
         except np.linalg.LinAlgError:
             raise InputError("noise covariance is not positive definite (degenerate timing model?)", f"pulsar {p.name}") from None
         Ft = F[:, : 2 * harmonics]
-        tnf = T.T @ (Ft * inv_n[:, None])
-        tnr = T.T @ (p.residuals * inv_n)
-        X[a] = Ft.T @ (p.residuals * inv_n) - tnf.T @ scipy.linalg.cho_solve(factor, tnr)
-        Z[a] = Ft.T @ (Ft * inv_n[:, None]) - tnf.T @ scipy.linalg.cho_solve(factor, tnf)
+        r = p.residuals[:, None]
+        tnf, tnr = inner(T, Ft), inner(T, r)[:, 0]
+        X[a] = inner(Ft, r)[:, 0] - tnf.T @ scipy.linalg.cho_solve(factor, tnr)
+        Z[a] = inner(Ft, Ft) - tnf.T @ scipy.linalg.cho_solve(factor, tnf)
     return FourierProducts(X=X, Z=Z, phi=phi)

@@ -19,7 +19,7 @@ from ptares.dataset import Dataset
 from ptares.errors import InputError
 from ptares.inputs.config import CHROMATIC_PROCESSES
 
-__all__ = ["NoiseModel", "noise_from_dataset", "noise_from_values"]
+__all__ = ["NoiseModel", "noise_from_dataset", "noise_from_values", "per_system_white"]
 
 
 @dataclass(frozen=True)
@@ -54,19 +54,28 @@ class NoiseModel:
         return self.toa_jitter[index] if self.toa_jitter else None
 
 
+def per_system_white(pulsar, scales, quadratures, jitters) -> tuple:
+    """``(sigma, jitter)`` of each TOA (s; each None where it is not needed) from the white-noise ``scales``,
+    ``quadratures`` and ``jitters`` (s) of each of the pulsar's observing systems (in the order of
+    ``pulsar.systems``; one value each without systems): sigma only where white noise is per system (else
+    the pulsar's scale and quadrature serve), jitter only where some is not zero."""
+    which = pulsar.system_indices()
+    jitter = np.asarray(jitters, dtype=float)[which]
+    jitter = jitter if np.any(jitter > 0) else None
+    if pulsar.system is None:
+        return None, jitter
+    scale, quadrature = np.asarray(scales, dtype=float)[which], np.asarray(quadratures, dtype=float)[which]
+    return np.sqrt((scale * pulsar.errors) ** 2 + quadrature**2), jitter
+
+
 def _per_toa(p):
     """A pulsar's injected white noise per TOA where it is per observing system, and its jitter per TOA:
-    ``(sigma or None, jitter or None)``, s."""
-    noise = p.noise
-    if p.system is None:
-        jitter = float(noise.get("white_jitter", 0.0))
-        return None, (np.full(p.mjd.size, jitter) if jitter > 0 else None)
-    table = {s: [float(noise.get(f"{key}:{s}", noise.get(key, default)))
-                 for key, default in (("white_scale", 1.0), ("white_quadrature", 0.0), ("white_jitter", 0.0))]
-             for s in p.systems}
-    values = np.array([table[str(s)] for s in p.system]).reshape(p.mjd.size, 3)
-    sigma = np.sqrt((values[:, 0] * p.errors) ** 2 + values[:, 1] ** 2)
-    return sigma, (values[:, 2] if np.any(values[:, 2] > 0) else None)
+    ``(sigma or None, jitter or None)``, s (the system's own values, else the pulsar's)."""
+    def injected(key, default):
+        return [float(p.noise.get(f"{key}:{s}", p.noise.get(key, default))) for s in p.systems or [None]]
+
+    return per_system_white(p, injected("white_scale", 1.0), injected("white_quadrature", 0.0),
+                            injected("white_jitter", 0.0))
 
 
 def noise_from_dataset(dataset: Dataset) -> NoiseModel:

@@ -42,6 +42,7 @@ from typing import NamedTuple
 import numpy as np
 from scipy.linalg import lapack as _lapack
 
+from ptares.dataset import jitter_weights
 from ptares.errors import InputError
 from ptares.limits import MEMORY_LIMIT
 from ptares.physics.patterns import correlation_matrix
@@ -278,12 +279,7 @@ class Likelihood:
                 factors = [chromatic_scale(p.frequency_mhz, chi[index]) for _, k, chi in self.chromatic]
                 basis = np.hstack([basis] + [fourier_basis(times, self.span, k) * factor[:, None]
                                              for (_, k, _), factor in zip(self.chromatic, factors)])
-            systems = p.systems
-            system_index = (np.zeros(p.mjd.size, dtype=np.int64) if p.system is None
-                            else np.unique(p.system, return_inverse=True)[1].ravel())
-            if p.system is not None:  # np.unique sorts the names: map to the order of first use
-                sorted_names = list(np.unique(p.system))
-                system_index = np.array([systems.index(sorted_names[i]) for i in range(len(sorted_names))])[system_index]
+            system_index = p.system_indices()
             epochs = p.epochs()
             epoch_system = np.zeros(int(epochs.max()) + 1, dtype=np.int64)
             epoch_system[epochs] = system_index
@@ -295,7 +291,7 @@ class Likelihood:
                     basis=basis,
                     times=times,
                     log_det_mtm=float(np.linalg.slogdet(design.T @ design)[1]) if design.shape[1] else 0.0,
-                    systems=systems,
+                    systems=p.systems,
                     system_index=system_index,
                     epochs=epochs,
                     epoch_system=epoch_system,
@@ -320,8 +316,8 @@ class Likelihood:
         order of ``PulsarData.systems``); ``jitter`` (s): None, one number or one per system, the standard
         deviation shared by the TOAs of an epoch, handled per epoch by Sherman–Morrison (PHYSICS.md, "Epoch
         jitter"): with W = diag(1 / sigma_i^2) and U the TOA-to-epoch indicator,
-        ``X^T N^-1 Y = X^T W Y - (U^T W X)^T diag(c) (U^T W Y)``, ``c_e = J_e^2 / (1 + J_e^2 sum_(i in e) w_i)``,
-        and ``ln|N| = -sum ln w_i + sum_e ln(1 + J_e^2 sum_(i in e) w_i)``: linear in the TOAs.
+        ``X^T N^-1 Y = X^T W Y - (U^T W X)^T diag(c) (U^T W Y)`` (:func:`ptares.dataset.jitter_weights`):
+        linear in the TOAs.
         """
         scalar = np.ndim(scale) == 0 and np.ndim(quadrature) == 0
         no_jitter = jitter is None or not np.any(jitter)
@@ -340,36 +336,23 @@ class Likelihood:
         r = p.residuals if signal is None else p.residuals - signal
         F, M = p.basis, p.design
         log_det = -float(np.sum(np.log(weights)))
-        if p.epoch_blocks is not None:  # sub-bands sharing their epoch's time: sums over epochs
-            c = None
-            if not no_jitter:
-                variance = np.broadcast_to(np.asarray(jitter, dtype=float) ** 2, (len(p.systems) or 1,))[p.epoch_system]
-                total = np.bincount(p.epochs, weights=weights, minlength=variance.size)
-                c = variance / (1.0 + variance * total)
-                log_det += float(np.sum(np.log1p(variance * total)))
-            gram = p.gram(weights, c, r)
-            f, m = F.shape[1], M.shape[1]
-            FNF, FNr, rNr = gram[:f, :f], gram[:f, -1], float(gram[-1, -1])
-            MNM, MNF, MNr = gram[f:f + m, f:f + m], gram[f:f + m, :f], gram[f:f + m, -1]
-        elif no_jitter:
-            FN = F.T * weights
-            FNF = FN @ F
-            FNr = FN @ r
-            rNr = float(r @ (weights * r))
-            MN = M.T * weights
-            MNM, MNF, MNr = MN @ M, MN @ F, MN @ r
-        else:
+        c = None  # the per-epoch Sherman–Morrison weights c_e, without jitter none
+        if not no_jitter:
             variance = np.broadcast_to(np.asarray(jitter, dtype=float) ** 2, (len(p.systems) or 1,))[p.epoch_system]
-            total = np.bincount(p.epochs, weights=weights, minlength=variance.size)  # sum of w_i over each epoch
-            c = variance / (1.0 + variance * total)
-            log_det += float(np.sum(np.log1p(variance * total)))
+            c, jitter_log_det = jitter_weights(weights, p.epochs, variance)
+            log_det += jitter_log_det
+        if p.epoch_blocks is not None:  # sub-bands sharing their epoch's time: sums over epochs
+            gram = p.gram(weights, c, r)
+        else:  # TOA by TOA: X^T W X, less the jitter's (U^T W X)^T diag(c) (U^T W X)
             X = np.hstack([F, M, r[:, None]])
             WX = X * weights[:, None]
-            sums = p.epoch_sums(WX)  # U^T W X, (epochs, columns)
-            gram = X.T @ WX - sums.T @ (sums * c[:, None])
-            f, m = F.shape[1], M.shape[1]
-            FNF, FNr, rNr = gram[:f, :f], gram[:f, -1], float(gram[-1, -1])
-            MNM, MNF, MNr = gram[f:f + m, f:f + m], gram[f:f + m, :f], gram[f:f + m, -1]
+            gram = X.T @ WX
+            if c is not None:
+                sums = p.epoch_sums(WX)
+                gram -= sums.T @ (sums * c[:, None])
+        f, m = F.shape[1], M.shape[1]  # gram's blocks: [basis, design, residuals]
+        FNF, FNr, rNr = gram[:f, :f], gram[:f, -1], float(gram[-1, -1])
+        MNM, MNF, MNr = gram[f:f + m, f:f + m], gram[f:f + m, :f], gram[f:f + m, -1]
         if M.shape[1]:
             lower, info = _lapack.dpotrf(MNM, lower=1, clean=1)
             if info:

@@ -30,7 +30,6 @@ from ptares.inference.parameters import (
     COMMON_BEND_INDEX,
     COMMON_VARIANCE,
     RED_VARIANCE,
-    bin_of,
     red_bin,
     spectrum_bin,
     COMMON_AMPLITUDE,
@@ -136,13 +135,9 @@ def _check_value(key: str, value: float, where: str) -> None:
         raise InputError(f"{value} is outside the allowed range [{low:g}, {high:g}]", where)
 
 
-def _support(prior) -> tuple:
-    return getattr(prior, "low", -np.inf), getattr(prior, "high", np.inf)
-
-
 def _check_support(prior, key: str, where: str) -> None:
     low, high = VALID[quantity(key)]
-    bounds = _support(prior)
+    bounds = prior_module.support(prior)
     if bounds[0] < low or bounds[1] > high:
         hint = "; give the normal prior 'bounds' inside it" if isinstance(prior, prior_module.Normal) else ""
         raise InputError(f"the prior reaches [{bounds[0]:g}, {bounds[1]:g}], outside the allowed [{low:g}, {high:g}]{hint}",
@@ -160,6 +155,18 @@ def _chromatic_indices(dataset: Dataset, process: str, section: FitSection) -> n
         return np.full(len(dataset.pulsars), float(section.chromatic_indices[process]))
     return np.array([float(p.noise.get(f"{process}_chromatic_index", CHROMATIC_DEFAULT_INDEX[process]))
                      for p in dataset.pulsars])
+
+
+def _bent_power_law(span: float, harmonics: int, lg_amplitude: float, gamma: float, bend_frequency: float,
+                    bend_index: float) -> np.ndarray:
+    """Coefficient variances S(f_k) / T of a power law turning over below ``bend_frequency`` (Hz; 0: none),
+    zero for a vanishing amplitude."""
+    if not np.isfinite(lg_amplitude):
+        return np.zeros(harmonics)
+    variances = coefficient_variance(span, harmonics, 10 ** lg_amplitude, gamma)
+    if bend_frequency > 0:
+        variances = variances * turnover(np.arange(1, harmonics + 1) / span, bend_frequency, bend_index)
+    return variances
 
 
 def _subset(dataset: Dataset, names) -> Dataset:
@@ -209,6 +216,7 @@ class FitModel:
         # every parameter the model has, with its default (injected) value
         values = {}
         self._white_owners = [white_owners(p) for p in dataset.pulsars]
+        self._by_system = [bool(p.systems) for p in dataset.pulsars]  # white-noise parameters per observing system
         for p, owners in zip(dataset.pulsars, self._white_owners):
             for owner, system in zip(owners, p.systems or [None]):
                 def injected(key, default, system=system):  # the system's own value, else the pulsar's
@@ -249,12 +257,8 @@ class FitModel:
             values[COMMON_AMPLITUDE] = np.log10(gwb["amplitude"]) if gwb.get("amplitude", 0) > 0 else -np.inf
             values[COMMON_INDEX] = float(gwb.get("spectral_index", 13.0 / 3.0))
             if section.common_spectrum == "free":  # one variance per frequency in place of the power law
-                injected = (coefficient_variance(dataset.span, self.harmonics, 10 ** values[COMMON_AMPLITUDE],
-                                                 values[COMMON_INDEX]) if np.isfinite(values[COMMON_AMPLITUDE])
-                            else np.zeros(self.harmonics))
-                if "bend_frequency" in gwb:  # an injected turnover
-                    injected = injected * turnover(np.arange(1, self.harmonics + 1) / dataset.span,
-                                                   float(gwb["bend_frequency"]), float(gwb["bend_index"]))
+                injected = _bent_power_law(dataset.span, self.harmonics, values[COMMON_AMPLITUDE], values[COMMON_INDEX],
+                                           float(gwb.get("bend_frequency", 0.0)), float(gwb.get("bend_index", 2.0)))
                 for k in range(1, self.harmonics + 1):
                     values[spectrum_bin(k)] = np.log10(injected[k - 1]) if injected[k - 1] > 0 else -np.inf
                     free.append(spectrum_bin(k))
@@ -291,7 +295,7 @@ class FitModel:
                     values[name] = summary["median"]
                     free.remove(name)
                 else:
-                    low, high = _support(self.default_priors[quantity(name)])
+                    low, high = prior_module.support(self.default_priors[quantity(name)])
                     self._noise_priors[name] = prior_module.Normal(summary["mean"], max(summary["sd"], 1e-6), low, high)
         for key, value in sorted(section.fixed.items(), key=lambda item: item[0] not in PER_PULSAR):  # all pulsars' first
             targets = [k for k in values if quantity(k) == key and k != key] if key in PER_PULSAR else [key]
@@ -338,16 +342,15 @@ class FitModel:
             return bool(np.isfinite(values.get(COMMON_AMPLITUDE, -np.inf)))
         return True
 
-    def _common_variances(self, v: dict):
-        """The common process's coefficient variances (harmonics,) where its spectrum is not a plain power law
-        (a free spectrum, a turnover), else None."""
+    def common_variances(self, v: dict):
+        """The common process's coefficient variances (harmonics,) at parameter values ``v`` where its spectrum is
+        not a plain power law (a free spectrum, a turnover), else None."""
         if self.section.common == "none" or self.section.common_spectrum == "power_law":
             return None
         if self.section.common_spectrum == "free":
             return 10.0 ** np.array([v[spectrum_bin(k)] for k in range(1, self.harmonics + 1)])
-        frequency = np.arange(1, self.harmonics + 1) / self.dataset.span
-        power_law = coefficient_variance(self.dataset.span, self.harmonics, 10 ** v[COMMON_AMPLITUDE], v[COMMON_INDEX])
-        return power_law * turnover(frequency, 10 ** v[COMMON_BEND], v[COMMON_BEND_INDEX])
+        return _bent_power_law(self.dataset.span, self.harmonics, v[COMMON_AMPLITUDE], v[COMMON_INDEX],
+                               10 ** v[COMMON_BEND], v[COMMON_BEND_INDEX])
 
     def _chromatic_harmonics(self, dataset, process: str, mode: str) -> int:
         """Frequencies of a chromatic process: the injected ones when held at the injection, else ``[fit]``'s."""
@@ -425,25 +428,24 @@ class FitModel:
         v = self.parameters(x) if values is None else values
         names = self.dataset.names
 
-        def white(quantity_name, transform=float):  # per pulsar a number, or per observing system an array
-            return [transform(v[for_pulsar(quantity_name, owners[0])]) if len(owners) == 1 and owners[0] == name
-                    else np.array([transform(v[for_pulsar(quantity_name, o)]) for o in owners])
-                    for name, owners in zip(names, self._white_owners)]
+        def white(quantity_name, transform=float):  # per pulsar a number, or an array over its observing systems
+            values = [np.array([transform(v[for_pulsar(quantity_name, o)]) for o in owners]) if by_system
+                      else transform(v[for_pulsar(quantity_name, owners[0])])
+                      for owners, by_system in zip(self._white_owners, self._by_system)]
+            return values if any(self._by_system) else np.array(values)
 
         def power(value):
             return 10.0 ** value
 
-        scale, quadrature = white(WHITE_SCALE), white(WHITE_QUADRATURE, power)
-        per_system = any(len(o) > 1 or o[0] != n for n, o in zip(names, self._white_owners))
         return dict(
-            white_scale=scale if per_system else np.array(scale),
-            white_quadrature=quadrature if per_system else np.array(quadrature),
+            white_scale=white(WHITE_SCALE),
+            white_quadrature=white(WHITE_QUADRATURE, power),
             white_jitter=white(WHITE_JITTER, power) if self.jitter_mode != "none" else None,
             red_amplitude=np.array([10 ** v[for_pulsar(RED_AMPLITUDE, n)] for n in names]),
             red_spectral_index=np.array([v[for_pulsar(RED_INDEX, n)] for n in names]),
             amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
             gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
-            common_variances=self._common_variances(v),
+            common_variances=self.common_variances(v),
             red_variances=(10.0 ** np.array([[v[red_bin(k, n)] for k in range(1, self.likelihood.red_harmonics + 1)]
                                              for n in names]) if self.red_spectrum == "free" else None),
             chromatic={process: (np.array([10 ** v[for_pulsar(CHROMATIC[process][0], n)] for n in names]),

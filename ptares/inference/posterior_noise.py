@@ -9,7 +9,7 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-from ptares.correlation.noise import NoiseModel
+from ptares.correlation.noise import NoiseModel, per_system_white
 from ptares.dataset import Dataset, fingerprint
 from ptares.errors import InputError
 from ptares.inference.parameters import (
@@ -33,14 +33,9 @@ def _per_toa(pulsar, values: dict):
     """One pulsar's white noise per TOA where it is per observing system, and its jitter per TOA (or None),
     from a fit's parameter ``values`` (owners as :func:`~ptares.inference.parameters.white_owners`)."""
     owners = white_owners(pulsar)
-    which = (np.zeros(pulsar.mjd.size, dtype=np.int64) if pulsar.system is None
-             else np.array([pulsar.systems.index(str(s)) for s in pulsar.system]))
-    jitter = np.array([10 ** values.get(for_pulsar(WHITE_JITTER, o), -np.inf) for o in owners])[which]
-    if pulsar.system is None:
-        return None, (jitter if np.any(jitter > 0) else None)
-    scale = np.array([values[for_pulsar(WHITE_SCALE, o)] for o in owners])[which]
-    quadrature = np.array([10 ** values[for_pulsar(WHITE_QUADRATURE, o)] for o in owners])[which]
-    return np.sqrt((scale * pulsar.errors) ** 2 + quadrature**2), (jitter if np.any(jitter > 0) else None)
+    return per_system_white(pulsar, [values.get(for_pulsar(WHITE_SCALE, o), 1.0) for o in owners],
+                            [10 ** values.get(for_pulsar(WHITE_QUADRATURE, o), -np.inf) for o in owners],
+                            [10 ** values.get(for_pulsar(WHITE_JITTER, o), -np.inf) for o in owners])
 
 
 def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) -> list:

@@ -15,7 +15,7 @@ from functools import cached_property
 import numpy as np
 from scipy import stats
 
-__all__ = ["Uniform", "LogUniform", "UniformInValue", "Normal", "from_config"]
+__all__ = ["Uniform", "LogUniform", "UniformInValue", "Normal", "from_config", "support"]
 
 
 @dataclass(frozen=True)
@@ -97,6 +97,11 @@ class Normal:
 
     def ppf(self, q):
         return self._distribution().ppf(q)
+
+
+def support(prior) -> tuple:
+    """``(low, high)``: where a prior's density is not zero (infinite ends for an untruncated normal)."""
+    return float(getattr(prior, "low", -np.inf)), float(getattr(prior, "high", np.inf))
 
 
 def from_config(prior) -> object:

@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from ptares.inference.priors import support
 from ptares.physics.spectra import residual_psd, turnover
 
 __all__ = ["MODELS", "SpectralModel", "refit", "bin_likelihood", "spectrum_content"]
@@ -63,7 +64,7 @@ def bin_likelihood(draws: np.ndarray, priors, points: int = 512):
     prior density is a constant)."""
     grids, tables = [], []
     for k in range(draws.shape[1]):
-        low, high = float(priors[k].ppf(0.0)), float(priors[k].ppf(1.0))
+        low, high = support(priors[k])
         grid = np.linspace(low, high, points)
         values = draws[:, k]
         if np.ptp(values) > 0:

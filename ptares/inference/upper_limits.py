@@ -25,6 +25,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import integrate, stats
 
+from ptares.inference.priors import support
+
 __all__ = ["upper_limit", "savage_dickey", "EDGE_WIDTH", "UPPER_LIMIT_CAVEAT"]
 
 #: Width (in the parameter, dex for an lg amplitude) of the range at the prior's lower edge whose
@@ -48,10 +50,9 @@ def upper_limit(values: np.ndarray, effective: float, level: float = 0.95) -> di
 
 def savage_dickey(values: np.ndarray, prior, effective: float, width: float = EDGE_WIDTH) -> dict:
     """ln B of "the process is present" against "absent" from posterior draws ``values`` of its lg amplitude and
-    its ``prior`` (an object with ``ppf`` and ``log_pdf``), as the module docstring describes."""
+    its ``prior`` (a :mod:`ptares.inference.priors` object), as the module docstring describes."""
     values = np.asarray(values, dtype=float)
-    low = float(prior.ppf(0.0))
-    high = float(prior.ppf(1.0))
+    low, high = support(prior)
     width = min(width, (high - low) / 4.0)
     prior_mass = integrate.quad(lambda x: np.exp(prior.log_pdf(x)), low, low + width)[0]
     inside = int(np.count_nonzero(values <= low + width))

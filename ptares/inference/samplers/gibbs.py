@@ -65,10 +65,9 @@ from ptares.inference.parameters import (
     bin_of,
     for_pulsar,
     red_bin_of,
-    spectrum_bin,
     split,
 )
-from ptares.inference.priors import Uniform
+from ptares.inference.priors import Uniform, support
 from ptares.physics.spectra import power_law_factors
 from ptares.rng import stream
 
@@ -158,16 +157,18 @@ class GibbsSampler:
         self.processes = list(model.chromatic_modes)  # chromatic processes, in the likelihood's column order
         self.chromatic_blocks = {process: [] for process in self.processes}
         used = set()
+        red_bins = {pulsar: [] for pulsar in names}  # a free red-noise spectrum: (position in x, column) per frequency
+        for i, name in enumerate(model.names):
+            if red_bin_of(name) is not None:
+                red_bins[split(name)[1]].append((i, 2 * (red_bin_of(name) - 1)))
         for pulsar in names:
             white = [index[k] for k in (for_pulsar(WHITE_SCALE, pulsar), for_pulsar(WHITE_QUADRATURE, pulsar)) if k in index]
             red = [index[k] for k in (for_pulsar(RED_AMPLITUDE, pulsar), for_pulsar(RED_INDEX, pulsar)) if k in index]
             self.white_blocks.append(_Block(white, model.priors, "white") if white else None)
             self.red_blocks.append(_Block(red, model.priors, "red") if red else None)
             used |= set(white) | set(red)
-            # a free red-noise spectrum: (position in x, column) of each frequency's variance
-            self.red_bins.append([(index[k], 2 * (red_bin_of(k) - 1)) for k in model.names
-                                  if red_bin_of(k) is not None and split(k)[1] == pulsar])
-            used |= {i for i, _ in self.red_bins[-1]}
+            self.red_bins.append(red_bins[pulsar])
+            used |= {i for i, _ in red_bins[pulsar]}
             for process in self.processes:  # a chromatic process is stepped like red noise
                 own = [index[k] for k in (for_pulsar(q, pulsar) for q in CHROMATIC[process]) if k in index]
                 self.chromatic_blocks[process].append(_Block(own, model.priors, "red") if own else None)
@@ -195,7 +196,7 @@ class GibbsSampler:
         # held white noise per observing system and jitter (s), per pulsar: (scales, quadratures, jitters or None),
         # or None where the pulsar has one white noise and no jitter
         physical = model.physical(np.array([model.values.get(n, 0.0) for n in model.names]))
-        jitters = physical["white_jitter"] or [None] * len(names)
+        jitters = physical["white_jitter"] if physical["white_jitter"] is not None else [None] * len(names)
         self._held_white = [None if np.ndim(scale) == 0 and jitter is None else (scale, quadrature, jitter)
                             for scale, quadrature, jitter in zip(physical["white_scale"], physical["white_quadrature"], jitters)]
         self._names = names
@@ -245,7 +246,7 @@ class GibbsSampler:
         """Prior variance of each pulsar's coefficients from the common process (width,; zero without one)."""
         if self.model.section.common_spectrum != "power_law" and self.model.section.common != "none":
             variances = np.zeros_like(self._common_unit)
-            given = self.model._common_variances(self.model.parameters(x))  # a free spectrum or a turnover
+            given = self.model.common_variances(self.model.parameters(x))  # a free spectrum or a turnover
             variances[: 2 * given.size] = np.repeat(given, 2)
             return variances
         if COMMON_AMPLITUDE not in self.model.values:  # common = "none"
@@ -302,6 +303,14 @@ class GibbsSampler:
         conditional = phi - phi**2 * (quadratic - cross**2 / own)
         variance[: 2 * K] = np.repeat(np.maximum(conditional, 0.0), 2)
         return mean, variance
+
+    def _replace_red(self, p, new, red, common, inverse) -> None:
+        """Pulsar p's own variances become ``new`` (in ``red``), and the Hellings–Downs inverse follows (chromatic
+        columns lie beyond the common ones and do not enter it)."""
+        change = (new - red[p])[0: 2 * self.likelihood.harmonics: 2]
+        red[p] = new
+        if inverse is not None:
+            self._update_inverse(inverse, p, change, red, common)
 
     def _update_inverse(self, inverse, p, change, red, common):
         """Sherman–Morrison: Phi_k gains ``change_k`` at (p, p); update its inverse in place.
@@ -392,12 +401,7 @@ class GibbsSampler:
                 current = red_density(x)
                 _, hits = self._metropolis(red_block, x, red_density, current, proposals[red_block.number], rng)
                 accepted, proposed = accepted + hits, proposed + red_block.moves
-                amplitude, index = self._red_values(x, p)
-                new_red = self._red_variance(amplitude, index) + chromatic[p]  # chromatic: beyond the common columns
-                change = (new_red - red[p])[0: 2 * lk.harmonics: 2]
-                red[p] = new_red
-                if inverse is not None:
-                    self._update_inverse(inverse, p, change, red, common)
+                self._replace_red(p, self._red_of(x, p) + chromatic[p], red, common, inverse)
             if self.red_bins[p]:  # a free red spectrum: a slice step of each frequency, coefficients integrated out
                 for i, column in self.red_bins[p]:
                     prior = self.model.priors[i]
@@ -408,12 +412,8 @@ class GibbsSampler:
                         return (self._collapsed(pieces, mean, base + chromatic[p] + self._red_of(trial, p))[0]
                                 + prior.log_pdf(y))
 
-                    x[i] = _slice_step(red_bin_density, float(x[i]), rng, *_support_of(prior))
-                new_red = self._red_of(x, p) + chromatic[p]
-                change = (new_red - red[p])[0: 2 * lk.harmonics: 2]
-                red[p] = new_red
-                if inverse is not None:
-                    self._update_inverse(inverse, p, change, red, common)
+                    x[i] = _slice_step(red_bin_density, float(x[i]), rng, *support(prior))
+                self._replace_red(p, self._red_of(x, p) + chromatic[p], red, common, inverse)
             for process in self.processes:  # its chromatic processes, the same way (columns beyond the common)
                 block = self.chromatic_blocks[process][p]
                 if block is None:
@@ -489,7 +489,7 @@ class GibbsSampler:
                 return (-float(np.sum(whitened * whitened)) / 2 - 2.0 * float(np.log(np.diag(lower)).sum())
                         + prior.log_pdf(y))
 
-            x[i] = _slice_step(log_density, float(x[i]), rng, *_support_of(prior))
+            x[i] = _slice_step(log_density, float(x[i]), rng, *support(prior))
 
     def _spectrum_collapsed(self, x, log_likelihood, rng) -> None:
         """One slice update of each free-spectrum variance with every coefficient integrated out (the
@@ -506,7 +506,7 @@ class GibbsSampler:
                 trial[i] = y
                 return log_likelihood(trial) + prior.log_pdf(y)
 
-            x[i] = _slice_step(log_density, float(x[i]), rng, *_support_of(prior))
+            x[i] = _slice_step(log_density, float(x[i]), rng, *support(prior))
 
     def _correlated_log_likelihood(self, x) -> float:
         """The full likelihood at ``x``; ``(x, its factors)`` are held as the latest evaluation."""
@@ -532,7 +532,6 @@ class GibbsSampler:
 
     def _uncorrelated(self, red, x):
         """The uncorrelated model's likelihood as a function of the common process alone (noise held)."""
-        lk = self.likelihood
         pieces = [self._pieces(p, *self._white_values(x, p)) for p in range(len(self._names))]
         FNF = np.stack([piece.FNF for piece in pieces])
         FNr = np.stack([piece.FNr for piece in pieces])
@@ -613,11 +612,6 @@ def _truncated_inverse_gamma(rng, shape: float, scale: float, low: float, high: 
         return None
     value = scale / float(special.gammaincinv(shape, rng.uniform(lower, upper)))
     return value if low <= value <= high and np.isfinite(value) else None
-
-
-def _support_of(prior) -> tuple:
-    """The range of a prior (its 0 and 1 quantiles)."""
-    return float(prior.ppf(0.0)), float(prior.ppf(1.0))
 
 
 def _slice_step(log_density, start: float, rng, low: float, high: float, width: float = 1.0, steps: int = 30) -> float:

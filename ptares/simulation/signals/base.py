@@ -15,10 +15,12 @@ from typing import Protocol
 
 import numpy as np
 
+from ptares.physics.spectra import coefficient_variance
+from ptares.rng import stream
 from ptares.simulation.array import Observations, PulsarSetup
 from ptares.simulation.kernels import synthesise
 
-__all__ = ["Context", "Component", "synthesise_array"]
+__all__ = ["Context", "Component", "synthesise_array", "power_law_coefficients"]
 
 
 @dataclass(frozen=True)
@@ -54,3 +56,16 @@ def synthesise_array(observations: Observations, sine: np.ndarray, cosine: np.nd
     owner = np.repeat(np.arange(len(times)), [t.size for t in times])
     flat = synthesise(np.concatenate(times), owner, 1.0 / observations.span, sine, cosine)
     return np.split(flat, np.cumsum([t.size for t in times])[:-1])
+
+
+def power_law_coefficients(context: Context, name: str, harmonics: int, laws) -> np.ndarray:
+    """Sine and cosine coefficients (2, pulsars, harmonics) of every pulsar's own power law on ``f_k = k / T``
+    (variance ``S(f_k) / T``; PHYSICS.md): ``laws[a]`` is pulsar a's (amplitude, spectral index), or None for
+    none; each pulsar's from its own stream ``(seed, name, pulsar)``."""
+    span = context.observations.span
+    coefficients = np.zeros((2, len(context.pulsars), harmonics))
+    for a, (pulsar, law) in enumerate(zip(context.pulsars, laws)):
+        if law is not None and law[0] > 0:
+            sd = np.sqrt(coefficient_variance(span, harmonics, *law))
+            coefficients[:, a] = sd * stream(context.seed, name, pulsar.name).standard_normal((2, harmonics))
+    return coefficients

@@ -17,9 +17,8 @@ import numpy as np
 
 from ptares.inputs.config import CHROMATIC_PROCESSES
 from ptares.physics.constants import REFERENCE_FREQUENCY_MHZ
-from ptares.physics.spectra import chromatic_scale, coefficient_variance
-from ptares.rng import stream
-from ptares.simulation.signals.base import Context, synthesise_array
+from ptares.physics.spectra import chromatic_scale
+from ptares.simulation.signals.base import Context, power_law_coefficients, synthesise_array
 
 __all__ = ["ChromaticNoise", "from_config"]
 
@@ -30,15 +29,10 @@ class ChromaticNoise:
     harmonics: int
 
     def draw(self, context: Context) -> list[np.ndarray]:
-        span = context.observations.span
-        coefficients = np.zeros((2, len(context.pulsars), self.harmonics))
-        indices = np.zeros(len(context.pulsars))
-        for a, pulsar in enumerate(context.pulsars):
-            for process, amplitude, spectral_index, chromatic_index in pulsar.chromatic:
-                if process == self.name:
-                    sd = np.sqrt(coefficient_variance(span, self.harmonics, amplitude, spectral_index))
-                    coefficients[:, a] = sd * stream(context.seed, self.name, pulsar.name).standard_normal((2, self.harmonics))
-                    indices[a] = chromatic_index
+        own = [{process: values for process, *values in p.chromatic}.get(self.name) for p in context.pulsars]
+        laws = [None if values is None else values[:2] for values in own]  # (amplitude, spectral index)
+        indices = [0.0 if values is None else values[2] for values in own]  # chromatic index
+        coefficients = power_law_coefficients(context, self.name, self.harmonics, laws)
         at_reference = synthesise_array(context.observations, coefficients[0], coefficients[1])
         return [series * chromatic_scale(context.observations.radio_frequencies(a), indices[a])
                 for a, series in enumerate(at_reference)]

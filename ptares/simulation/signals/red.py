@@ -11,9 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ptares.physics.spectra import coefficient_variance
-from ptares.rng import stream
-from ptares.simulation.signals.base import Context, synthesise_array
+from ptares.simulation.signals.base import Context, power_law_coefficients, synthesise_array
 
 __all__ = ["RedNoise", "from_config"]
 
@@ -24,12 +22,8 @@ class RedNoise:
     name: str = "red"
 
     def draw(self, context: Context) -> list[np.ndarray]:
-        span = context.observations.span
-        coefficients = np.zeros((2, len(context.pulsars), self.harmonics))
-        for a, pulsar in enumerate(context.pulsars):
-            if pulsar.red_amplitude > 0:
-                sd = np.sqrt(coefficient_variance(span, self.harmonics, pulsar.red_amplitude, pulsar.red_spectral_index))
-                coefficients[:, a] = sd * stream(context.seed, self.name, pulsar.name).standard_normal((2, self.harmonics))
+        laws = [(p.red_amplitude, p.red_spectral_index) for p in context.pulsars]
+        coefficients = power_law_coefficients(context, self.name, self.harmonics, laws)
         return synthesise_array(context.observations, coefficients[0], coefficients[1])
 
     def describe(self, context: Context) -> dict:

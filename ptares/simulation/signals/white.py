@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ptares.dataset import epoch_indices
+from ptares.dataset import epoch_indices, system_indices
 from ptares.rng import stream
 from ptares.simulation.signals.base import Context
 
@@ -31,9 +31,9 @@ def toa_white(pulsar, system, count: int):
     if system is None or not pulsar.system_white:
         return (np.full(count, pulsar.white_scale), np.full(count, pulsar.white_quadrature),
                 np.full(count, pulsar.white_jitter))
-    table = {name: values for name, *values in pulsar.system_white}
-    values = np.array([table[str(s)] for s in system], dtype=float).reshape(count, 3)
-    return values[:, 0], values[:, 1], values[:, 2]
+    values = np.array([values for _, *values in pulsar.system_white], dtype=float)  # (systems, 3)
+    which = system_indices(system, [name for name, *_ in pulsar.system_white])
+    return values[which, 0], values[which, 1], values[which, 2]
 
 
 @dataclass(frozen=True)
