@@ -8,7 +8,7 @@ schedule, signals) -> :mod:`ptares.correlation` (pair correlations, optimal stat
 (many runs), with :mod:`ptares.figures` for each stage and :mod:`ptares.cli` as a
 thin shell over the functions exported here.
 
-From Python (a notebook, a script), :func:`simulate`, :func:`correlate`, :func:`fit`
+From Python (a notebook, a script), :func:`simulate`, :func:`correlate`, :func:`sensitivity`, :func:`fit`
 and :func:`sweep` (:mod:`ptares.api`) run the stages and return result objects with
 short summaries; configs may be files, :class:`Config` objects or dicts of sections
 with astropy Quantities.  The subpackages are named ``simulation``, ``correlation``,
@@ -29,6 +29,7 @@ from ptares.api import (
     fit,
     import_tables,
     pulsar_noise,
+    sensitivity,
     simulate,
     sweep,
 )
@@ -53,6 +54,7 @@ __all__ = [
     "write_dataset",
     "simulate",
     "correlate",
+    "sensitivity",
     "fit",
     "compare",
     "pulsar_noise",

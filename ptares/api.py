@@ -64,13 +64,14 @@ from ptares.threads import thread_count, thread_limits
 
 if TYPE_CHECKING:  # imported when first used: it pulls in scipy.stats
     from ptares.correlation.analysis import CorrelationResult
+    from ptares.forecast.sensitivity import SensitivityResult
 
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover
     import tomli as tomllib
 
-__all__ = ["simulate", "correlate", "fit", "compare", "pulsar_noise", "sweep", "describe", "import_tables", "export_tables",
+__all__ = ["simulate", "correlate", "sensitivity", "fit", "compare", "pulsar_noise", "sweep", "describe", "import_tables", "export_tables",
            "FitResult", "ComparisonResult", "NoiseResult", "SweepResult", "Interrupted", "config_from"]
 
 #: True while the command line runs: messages then name options as ``--overwrite`` rather than ``overwrite=True``.
@@ -358,6 +359,55 @@ def correlate(dataset, out=None, *, settings=None, overwrite: bool = False, verb
             if result.nulls:
                 save_figure(nulls_figure(result), out / "nulls.png")
                 _say(verbose, f"wrote {out / 'nulls.png'}")
+        except OSError as exc:
+            raise _cannot_write(exc, out) from None
+    return result
+
+
+SENSITIVITY_OUTPUTS = ("sensitivity.json", "sensitivity.png", "detection.png", "continuous_wave.png",
+                       "continuous_wave_sky.png")
+
+
+@_threaded
+def sensitivity(source, out=None, *, settings=None, overwrite: bool = False, figures: bool = True,
+                verbose: bool = False, threads: int | None = None, **options) -> "SensitivityResult":
+    """What an array can detect: strain-noise curves, the optimal statistic's expected S/N and detection
+    probability against amplitude and observing time, and continuous-wave sensitivity; returns a
+    :class:`~ptares.forecast.sensitivity.SensitivityResult`.
+
+    ``source``: a :class:`Dataset` or a ``dataset.h5`` (its TOAs, errors, noise parameters and pulsars;
+    residuals are not used), or a config (a :class:`Config`, a TOML file, a dict of sections), whose
+    array is laid out without simulating any signal.  Settings are the ``[sensitivity]`` keys: the
+    config's table, or ``settings`` (a dict or a TOML file with that table), with keyword ``options``
+    over it (``false_alarm=0.01``, ``years=[5, 10]``...).  With ``out``, writes ``sensitivity.json`` and
+    (unless ``figures=False``) ``sensitivity.png``, ``detection.png``, ``continuous_wave.png`` and
+    ``continuous_wave_sky.png``; earlier ones are replaced only with ``overwrite=True``.
+    """
+    from ptares.forecast.sensitivity import forecast
+    from ptares.inputs.config import SensitivitySection
+    from ptares.simulation.simulate import outline
+
+    dataset, config = _fit_source(source)
+    section, _ = _section(SensitivitySection, "sensitivity", settings, options,
+                          default=config.sensitivity if config is not None else None)
+    if dataset is None:
+        dataset = outline(config)
+    if out is not None:
+        out = check_output_directory(out, overwrite, SENSITIVITY_OUTPUTS)
+    result = forecast(dataset, section, progress=verbose)
+    if out is not None:
+        from ptares.figures.common import save_figure
+        from ptares.figures.sensitivity import curves_figure, detection_figure, wave_figure, wave_sky_figure
+
+        try:
+            out.mkdir(parents=True, exist_ok=True)
+            result.write(out / "sensitivity.json")
+            _say(verbose, f"wrote {out / 'sensitivity.json'}")
+            if figures:
+                for name, draw in (("sensitivity.png", curves_figure), ("detection.png", detection_figure),
+                                   ("continuous_wave.png", wave_figure), ("continuous_wave_sky.png", wave_sky_figure)):
+                    save_figure(draw(result), out / name)
+                    _say(verbose, f"wrote {out / name}")
         except OSError as exc:
             raise _cannot_write(exc, out) from None
     return result

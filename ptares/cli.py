@@ -65,6 +65,18 @@ def _correlate(args) -> int:
     return 0
 
 
+def _sensitivity(args) -> int:
+    from ptares import api
+
+    options = {k: getattr(args, k) for k in ("false_alarm", "amplitude", "wave_frequency") if getattr(args, k) is not None}
+    if args.years:
+        options["years"] = args.years
+    result = api.sensitivity(args.source, args.out, settings=args.config, overwrite=args.overwrite,
+                             figures=not args.no_figures, verbose=True, threads=args.threads, **options)
+    print(result)
+    return 0
+
+
 def _fit(args) -> int:
     from ptares import api
 
@@ -256,6 +268,20 @@ def build_parser() -> argparse.ArgumentParser:
                      help="pair weights of the optimal statistic (default weak-signal)")
     cor.add_argument("--overwrite", action="store_true", help="replace earlier outputs")
     cor.set_defaults(run=_correlate)
+
+    sen = commands.add_parser("sensitivity", parents=[common],
+                              help="what an array can detect: strain-noise curves, expected S/N, detection probability, "
+                                   "continuous-wave sensitivity")
+    sen.add_argument("source", help="a TOML config (its array, no signal simulated) or an HDF5 dataset")
+    sen.add_argument("--out", required=True, help="output directory (sensitivity.json and PNG figures)")
+    sen.add_argument("--config", help="TOML file whose [sensitivity] table holds the settings")
+    sen.add_argument("--false-alarm", type=float, help="false-alarm probability of detection (default 0.001)")
+    sen.add_argument("--amplitude", type=float, help="background amplitude against time (default: injected, else 2.4e-15)")
+    sen.add_argument("--years", type=float, nargs="+", help="observing spans of the S/N against time (yr)")
+    sen.add_argument("--wave-frequency", type=float, help="frequency of the continuous-wave sky map (nHz)")
+    sen.add_argument("--no-figures", action="store_true", help="write sensitivity.json only")
+    sen.add_argument("--overwrite", action="store_true", help="replace earlier outputs")
+    sen.set_defaults(run=_sensitivity)
 
     fit = commands.add_parser("fit", parents=[common],
                               help="Bayesian fit of noise, background and continuous waves (emcee or blocked Gibbs)")

@@ -276,7 +276,10 @@ class atomic_path:
 
 
 def _json_safe(value):
-    """``value`` with non-finite floats as None (JSON has no NaN) and numpy scalars as Python ones."""
+    """``value`` with non-finite floats as None (JSON has no NaN), numpy arrays as lists and numpy scalars as
+    Python ones."""
+    if isinstance(value, np.ndarray):
+        value = value.tolist()
     if isinstance(value, dict):
         return {k: _json_safe(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):

@@ -18,6 +18,7 @@ STAGES = [
     ("inputs",),
     ("simulation",),
     ("correlation",),
+    ("forecast",),
     ("inference",),
     ("campaign",),
     ("figures",),

@@ -32,7 +32,8 @@ from ptares.correlation.pairs import PairCorrelations, pair_matrices
 from ptares.correlation.scatter import scaled_products
 from ptares.limits import MEMORY_LIMIT
 
-__all__ = ["EIGEN_LIMIT", "NULL_DESCRIPTION", "null_density", "null_eigenvalues", "null_skewness", "tail_probability"]
+__all__ = ["EIGEN_LIMIT", "NULL_DESCRIPTION", "null_density", "null_eigenvalues", "null_skewness", "signal_eigenvalues",
+           "tail_probability", "threshold"]
 
 #: Largest P 2K for which the eigenvalues are computed without approximation.
 EIGEN_LIMIT = 3000
@@ -64,6 +65,79 @@ def null_eigenvalues(products: FourierProducts, pairs: PairCorrelations, weights
     diagonal = np.sqrt(np.clip(np.einsum("xii->ix", Y), 0.0, None))  # (2K, P)
     blocks = 0.5 * diagonal[:, :, None] * H[None] * diagonal[:, None, :]
     return np.linalg.eigvalsh(blocks).ravel(), "frequency-diagonal"
+
+
+def signal_eigenvalues(products: FourierProducts, pairs: PairCorrelations, weights: np.ndarray, sigma: float,
+                       gamma_matrix: np.ndarray, amplitude2: float, model_amplitude2: float,
+                       limit: int = EIGEN_LIMIT):
+    """``(lambda, method)`` of the same statistic when the data hold a background ``amplitude2`` with pattern
+    ``gamma_matrix`` (P x P; its diagonal is not used) and the noise model assumed ``model_amplitude2``.
+
+    In scaled coordinates ``Phi^(1/2) X_a`` the data covariance has blocks ``Y_a + (A^2 - A_m^2) Y_a Y_a``
+    and ``A^2 Gamma_ab Y_a Y_b`` (:mod:`ptares.correlation.scatter`) and the statistic is
+    ``sum_(a<b) H_ab (Phi^(1/2) X_a)^T (Phi^(1/2) X_b)``; lambda are the eigenvalues of ``L^T Q L`` with
+    ``C = L L^T``.  Exact up to ``P 2K = limit``, beyond it one P x P problem per basis column with each
+    ``Y`` kept to its diagonal ("frequency-diagonal").  With ``amplitude2 = model_amplitude2`` and no
+    correlation this is :func:`null_eigenvalues`.
+    """
+    count, size = products.Z.shape[0], products.Z.shape[1]
+    _, denominator = pair_matrices(products)
+    H = np.zeros((count, count))
+    H[pairs.a, pairs.b] = weights / (denominator[pairs.a, pairs.b] * sigma)
+    H = H + H.T
+    off = amplitude2 * (gamma_matrix - np.diag(np.diag(gamma_matrix)))
+    excess = amplitude2 - model_amplitude2
+    Y = scaled_products(products)
+    if count * size <= limit:
+        covariance = np.einsum("ab,aij,bjk->aibk", off, Y, Y, optimize=True)
+        for a in range(count):
+            covariance[a, :, a, :] = Y[a] + excess * Y[a] @ Y[a]
+        covariance = covariance.reshape(count * size, count * size)
+        root = _root(0.5 * (covariance + covariance.T))
+        statistic = 0.5 * np.kron(H, np.eye(size))
+        return np.linalg.eigvalsh(root.T @ statistic @ root), "exact"
+    if 3 * size * count**2 * 8 > MEMORY_LIMIT:
+        return np.empty(0), None
+    diagonal = np.einsum("xii->ix", Y)  # (2K, P)
+    values = []
+    for y in diagonal:
+        covariance = off * np.outer(y, y) + np.diag(y + excess * y**2)
+        root = _root(covariance)
+        values.append(np.linalg.eigvalsh(0.5 * root.T @ H @ root))
+    return np.concatenate(values), "frequency-diagonal"
+
+
+def _root(covariance: np.ndarray) -> np.ndarray:
+    """``L`` with ``L L^T = covariance`` (Cholesky; a symmetric root where that fails)."""
+    try:
+        return np.linalg.cholesky(covariance)
+    except np.linalg.LinAlgError:
+        values, vectors = np.linalg.eigh(covariance)
+        return vectors * np.sqrt(np.clip(values, 0.0, None))
+
+
+def threshold(false_alarm: float, eigenvalues) -> float:
+    """The ``x`` with ``P(sum lambda_i chi^2_1 > x) = false_alarm`` (Imhof's tail, :func:`tail_probability`), to
+    1e-4 of the distribution's standard deviation.  The search starts at the quantile of the gamma
+    distribution with the same mean, variance and skewness."""
+    from scipy import stats
+    from scipy.optimize import brentq
+
+    lam = _kept(eigenvalues)
+    mean, spread = float(np.sum(lam)), float(np.sqrt(2.0 * np.sum(lam**2)))
+    skew = null_skewness(lam)
+    if skew > 1e-6:
+        shape = 4.0 / skew**2
+        guess = mean + spread * (stats.gamma.isf(false_alarm, shape) - shape) / np.sqrt(shape)
+    else:
+        guess = mean + spread * stats.norm.isf(false_alarm)
+    step = 0.05 * spread
+    low, high = guess - step, guess + step
+    while tail_probability(low, lam) < false_alarm:
+        low, step = low - step, 2 * step
+    while tail_probability(high, lam) > false_alarm:
+        high, step = high + step, 2 * step
+    return float(brentq(lambda x: tail_probability(x, lam) - false_alarm, low, high, xtol=1e-4 * spread))
 
 
 def _kept(eigenvalues) -> np.ndarray:

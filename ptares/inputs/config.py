@@ -800,6 +800,36 @@ class SweepSection(_Section):
         return self
 
 
+class SensitivitySection(_Section):
+    """``[sensitivity]``: settings of ``ptares sensitivity``.
+
+    ``amplitudes``: the background amplitudes of the S/N and detection-probability curves
+    (default 20 from 1e-16 to 1e-13); ``amplitude`` the background drawn over the curves and
+    used against observing time (default: the injected one, else 2.4e-15); ``spectral_index``
+    and ``harmonics`` its spectrum and Fourier frequencies (default: the injected background's,
+    else 13/3 and 30); ``years`` the observing spans of the S/N-against-time curve (default
+    eight up to the array's span); ``false_alarm`` the false-alarm probability of detection;
+    ``power_law_snr`` the S/N of the power-law-integrated curve; ``wave_snr`` the S/N a
+    continuous wave needs; ``wave_frequency`` (nHz) the frequency of the sky map (default: the
+    first binary's, else 10 nHz); ``pulsar_term`` whether continuous waves have one;
+    ``curve_points`` frequencies of the curves; ``map_step`` (deg) the sky map's grid step.
+    """
+
+    amplitudes: Optional[tuple[Quantity(None, Positive, MaxAmplitude), ...]] = Field(default=None, min_length=1,
+                                                                                     max_length=1000)
+    amplitude: Optional[Quantity(None, Positive, MaxAmplitude)] = None
+    spectral_index: Optional[Quantity(None, SpectralIndex)] = None
+    harmonics: Optional[Count] = Field(default=None, ge=1, le=MAX_HARMONICS)
+    years: Optional[tuple[Quantity("yr", Positive), ...]] = Field(default=None, min_length=1, max_length=1000)
+    false_alarm: Quantity(None, Positive, AfterValidator(_at_most(0.5))) = 1e-3
+    power_law_snr: Quantity(None, Positive) = 1.0
+    wave_snr: Quantity(None, Positive) = 5.0
+    wave_frequency: Optional[Quantity("nHz", Positive)] = None
+    pulsar_term: bool = True
+    curve_points: Count = Field(default=200, ge=10, le=5000)
+    map_step: Quantity("deg", Positive, AfterValidator(_at_most(30.0))) = 5.0
+
+
 class Config(_Section):
     """A whole validated run configuration."""
 
@@ -814,6 +844,7 @@ class Config(_Section):
     fit: FitSection = FitSection()
     compare: CompareSection = CompareSection()
     sweep: Optional[SweepSection] = None
+    sensitivity: SensitivitySection = SensitivitySection()
 
     _text: str = PrivateAttr(default="")
     _path: Optional[Path] = PrivateAttr(default=None)
