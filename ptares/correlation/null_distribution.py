@@ -170,12 +170,20 @@ def tail_probability(x: float, eigenvalues) -> float:
     slowly varying, and the two Fourier integrals go to quadpack's routine for them (QAWF).
     """
     lam = _kept(eigenvalues)
+    known = {}  # the two Fourier integrals evaluate the same nodes
+
+    def terms(u):
+        if u not in known:
+            t = lam * u
+            # the envelope in logs: no overflow far out
+            known[u] = (0.5 * np.sum(np.arctan(t)), np.exp(-np.log(u) - 0.25 * np.sum(np.log1p(t * t))))
+        return known[u]
 
     def phase(u):
-        return 0.5 * np.sum(np.arctan(lam * u))
+        return terms(u)[0]
 
     def envelope(u):
-        return np.exp(-np.log(u) - 0.25 * np.sum(np.log1p((lam * u) ** 2)))  # in logs: no overflow far out
+        return terms(u)[1]
 
     a = min(_upper_limit(lam, 1e-3), 20.0 / np.max(np.abs(lam)))
     options = {"limit": 2000, "epsabs": TOLERANCE, "epsrel": 1e-10}
