@@ -76,7 +76,12 @@ class SensitivityResult:
                       "note": "Hellings-Downs curve of Hazboun, Romano & Smith 2019 (frequency domain)"},
             "power_law_integrated": {**self.integrated, "snr": self.settings["power_law_snr"],
                                      "note": "Thrane & Romano 2013; weak-signal S/N on the Fourier frequencies"},
-            "background": self.background,
+            "background": {**self.background, "note": (
+                "snr: mean of the Hellings-Downs S/N that ptares correlate measures with the injected noise model "
+                "(exact: the estimate is unbiased); snr_spread: its standard deviation between realisations, the "
+                "background's own scatter included; snr_weak: noise only in each pulsar; detection: exact noise-only "
+                "p-value below false_alarm (null: uncorrelated, noise model as assumed); frequency_domain: the same "
+                "from the curves, approximate")},
             "years": self.years,
             "continuous_wave": self.wave,
         }
@@ -100,8 +105,8 @@ class SensitivityResult:
         lines = [
             f"SensitivityResult: {len(self.names)} pulsars, {len(self.frequency)} frequencies, "
             f"false-alarm probability {self.settings['false_alarm']:.3g}",
-            f"  {kind} background A = {r['amplitude']:.3g}: expected S/N {r['snr']:.2f} +/- {r['snr_spread']:.2f}, "
-            f"detection probability {r['detection_probability']:.2f}",
+            f"  {kind} background A = {r['amplitude']:.3g}: expected S/N {r['snr']:.2f} (realisations scatter by "
+            f"{r['snr_spread']:.2f}), detection probability {r['detection_probability']:.2f}",
         ]
         half, most = self.amplitude_at(0.5), self.amplitude_at(0.95)
         if half is not None:
