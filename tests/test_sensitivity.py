@@ -92,23 +92,25 @@ def test_adding_a_common_process_by_woodbury_equals_building_it_in():
     assert np.allclose(added.Z, built.Z, rtol=1e-9, atol=1e-12 * np.abs(built.Z).max())
 
 
-def _statistic(products, positions):
+def six_pulsar_statistic(a2=16e-30):
+    """A 6-pulsar array's products with a background of power ``a2`` in its noise model, its pair correlations,
+    weak-signal weights, quoted sigma, positions and Hellings-Downs matrix."""
+    dataset = outline(array_config(count=6))
+    positions = np.array([p.position for p in dataset.pulsars])
+    products = with_common_power(fourier_products(dataset, replace(noise_from_dataset(dataset), common_amplitude=0.0),
+                                                  6, 13 / 3), a2)
     pairs = pair_correlations(products, positions)
     weights = weak_signal_weights(pairs, overlap(pairs, "hellings-downs"))
-    return pairs, weights, float(np.sqrt(np.sum((weights * pairs.sigma) ** 2)))
+    sigma = float(np.sqrt(np.sum((weights * pairs.sigma) ** 2)))
+    return products, pairs, weights, sigma, positions, correlation_matrix(positions)
 
 
 @pytest.mark.parametrize("limit", [10_000, 1])
 def test_signal_eigenvalues_without_a_signal_are_the_null_and_carry_its_moments(limit):
     """Zero background: the null's eigenvalues (both routes).  With one: mean ``A^2 / sigma`` (the estimate is
     unbiased) and variance ``2 sum lambda^2`` equal to the Isserlis variance of the pair sums, computed apart."""
-    dataset = outline(array_config(count=6))
-    positions = np.array([p.position for p in dataset.pulsars])
     a2 = 16e-30
-    products = with_common_power(fourier_products(dataset, replace(noise_from_dataset(dataset), common_amplitude=0.0),
-                                                  6, 13 / 3), a2)
-    pairs, weights, sigma = _statistic(products, positions)
-    pattern = correlation_matrix(positions)
+    products, pairs, weights, sigma, positions, pattern = six_pulsar_statistic(a2)
     null, method = signal_eigenvalues(products, pairs, weights, sigma, np.eye(6), a2, a2, limit)
     reference, reference_method = null_eigenvalues(products, pairs, weights, sigma)
     if limit > 1:
@@ -126,13 +128,8 @@ def test_signal_eigenvalues_without_a_signal_are_the_null_and_carry_its_moments(
 def test_detection_probability_matches_draws_of_the_gaussian_ensemble():
     """The background's tail beyond the null's threshold against 4000 draws of the Fourier-domain data from
     their joint Gaussian (scatter module's sampler): within 4 binomial standard errors."""
-    dataset = outline(array_config(count=6))
-    positions = np.array([p.position for p in dataset.pulsars])
     a2 = 16e-30
-    products = with_common_power(fourier_products(dataset, replace(noise_from_dataset(dataset), common_amplitude=0.0),
-                                                  6, 13 / 3), a2)
-    pairs, weights, sigma = _statistic(products, positions)
-    pattern = correlation_matrix(positions)
+    products, pairs, weights, sigma, positions, pattern = six_pulsar_statistic(a2)
     null, _ = signal_eigenvalues(products, pairs, weights, sigma, np.eye(6), a2, a2)
     x = threshold(0.05, null)
     forecast_probability = tail_probability(x, signal_eigenvalues(products, pairs, weights, sigma, pattern, a2, a2)[0])
