@@ -29,6 +29,7 @@ sets the BLAS and numba threads of the process and of each worker it starts (def
 
 from __future__ import annotations
 
+import contextlib
 import contextvars
 import copy
 import functools
@@ -74,8 +75,9 @@ else:  # pragma: no cover
 __all__ = ["simulate", "correlate", "sensitivity", "fit", "compare", "pulsar_noise", "sweep", "describe", "import_tables", "export_tables",
            "FitResult", "ComparisonResult", "NoiseResult", "SweepResult", "Interrupted", "config_from"]
 
-#: True while the command line runs: messages then name options as ``--overwrite`` rather than ``overwrite=True``.
-COMMAND_LINE = contextvars.ContextVar("ptares_command_line", default=False)
+#: The command's words while the command line runs (else empty): messages then name options as ``--overwrite``
+#: rather than ``overwrite=True``, and ``provenance.json`` records the command.
+COMMAND_LINE = contextvars.ContextVar("ptares_command_line", default=())
 
 DATASET_OUTPUTS = ("dataset.h5", "residuals.png", "sky.png", "correlation.png")
 CORRELATE_OUTPUTS = ("correlations.json", "correlations.png", "nulls.png")
@@ -101,19 +103,81 @@ def _option(name: str) -> str:
 
 def _threaded(function):
     """Run ``function`` under :func:`~ptares.threads.thread_limits` of its ``threads`` keyword (None: the default),
-    holding its output folder ``out`` (when given) against other runs: :func:`~ptares.locking.folder_lock`."""
+    holding its output folder ``out`` (when given) against other runs (:func:`~ptares.locking.folder_lock`), with
+    the extra figure formats of a ``figure_formats`` keyword (PDF, SVG: :func:`~ptares.figures.common.extra_formats`),
+    and recording in ``out/provenance.json`` what ran, when, with which version and seed."""
     signature = inspect.signature(function)
 
     @functools.wraps(function)
     def run(*args, **kwargs):
-        with thread_limits(thread_count(kwargs.get("threads"), _option("threads"))):
-            out = signature.bind(*args, **kwargs).arguments.get("out")
+        formats = kwargs.pop("figure_formats", None)
+        with thread_limits(thread_count(kwargs.get("threads"), _option("threads"))), with_figure_formats(formats):
+            arguments = signature.bind(*args, **kwargs).arguments
+            out = arguments.get("out")
             if out is None or not isinstance(out, (str, os.PathLike)):
                 return function(*args, **kwargs)
             with folder_lock(out):
-                return function(*args, **kwargs)
+                result = function(*args, **kwargs)
+                _record_provenance(Path(out), function.__name__, arguments, result)
+                return result
 
     return run
+
+
+def with_figure_formats(formats):
+    """The context that adds ``formats`` (None, or a sequence of "pdf" and "svg") to every saved figure."""
+    if formats is None:
+        return contextlib.nullcontext()
+    from ptares.figures.common import EXTRA_FORMATS, extra_formats
+
+    formats = [formats] if isinstance(formats, str) else list(formats)
+    for kind in formats:
+        if kind not in EXTRA_FORMATS + ("png",):
+            raise InputError(f"unknown figure format {kind!r}; choose from {', '.join(EXTRA_FORMATS)} (PNG is always written)",
+                             _option("figure_formats"))
+    return extra_formats([k for k in formats if k != "png"])
+
+
+def _seed_of(result):
+    """The seed a run used, where its result says: a dataset's, a fit's or campaign's sampler seed, the nulls' seed."""
+    for holder in (result, getattr(result, "dataset", None)):
+        if isinstance(getattr(holder, "seed", None), int):
+            return holder.seed
+    for mapping in (getattr(result, "summary", None), getattr(result, "settings", None), getattr(result, "content", None)):
+        if isinstance(mapping, Mapping) and isinstance(mapping.get("seed"), int):
+            return mapping["seed"]
+    return None
+
+
+def _record_provenance(out: Path, name: str, arguments: dict, result) -> None:
+    """Write ``out/provenance.json``: the command (or Python call), ptares version, time, seed and source."""
+    import datetime
+    import shlex
+
+    from ptares.dataset import write_json
+    from ptares.version import __version__
+
+    if not out.is_dir():
+        return
+    if COMMAND_LINE.get():
+        command = " ".join(shlex.quote(a) for a in COMMAND_LINE.get())
+    else:
+        command = f"ptares.{name}(...) from Python"
+    source = next(iter(arguments.values()), None)
+    record = {
+        "command": command,
+        "kind": name,
+        "ptares_version": __version__,
+        "finished": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+        "seed": _seed_of(result),
+        "source": str(source) if isinstance(source, (str, os.PathLike)) else type(source).__name__,
+        "python": sys.version.split()[0],
+        "threads": thread_count(arguments.get("threads")),
+    }
+    try:
+        write_json(out / "provenance.json", record)
+    except OSError as exc:
+        raise _cannot_write(exc, out) from None
 
 
 def _say(verbose: bool, line: str) -> None:

@@ -13,7 +13,7 @@ import threading
 import warnings
 from pathlib import Path
 
-from ptares.api import COMMAND_LINE
+from ptares.api import COMMAND_LINE, with_figure_formats
 from ptares.errors import InputError, PhysicsWarning
 from ptares.threads import DEFAULT_THREADS, thread_count, thread_limits
 from ptares.version import __version__
@@ -235,6 +235,8 @@ def build_parser() -> argparse.ArgumentParser:
     # every command takes it too, after its name; SUPPRESS keeps a value given before the name
     common = _Parser(add_help=False)
     common.add_argument("--threads", type=_threads, default=argparse.SUPPRESS, metavar="N", help=THREADS_HELP)
+    common.add_argument("--figure-formats", nargs="+", choices=["pdf", "svg"], metavar="FORMAT",
+                        help="also write every figure as PDF and/or SVG beside its PNG (choices: pdf, svg)")
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=_Parser)
 
     check = commands.add_parser("check", help="validate a config and summarise what it simulates", parents=[common])
@@ -364,7 +366,8 @@ def main(argv=None) -> int:
     removed, finished work (chains, campaign tasks) is kept, and the same command resumes.
     """
     warnings.showwarning = _one_line_warning
-    args = build_parser().parse_args(argv)
+    words = list(sys.argv[1:] if argv is None else argv)
+    args = build_parser().parse_args(words)
     terminated = []
 
     def stop(signum, frame):
@@ -374,9 +377,9 @@ def main(argv=None) -> int:
     previous = None
     if threading.current_thread() is threading.main_thread():
         previous = signal.signal(signal.SIGTERM, stop)
-    token = COMMAND_LINE.set(True)  # messages name options as --flags
+    token = COMMAND_LINE.set(("ptares", *words))  # messages name options as --flags; provenance records the words
     try:
-        with thread_limits(args.threads):
+        with thread_limits(args.threads), with_figure_formats(getattr(args, "figure_formats", None)):
             code = args.run(args)
     except InputError as exc:
         print(f"ptares: error: {exc.line()}", file=sys.stderr)

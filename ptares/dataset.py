@@ -24,6 +24,7 @@ final name.
 
 from __future__ import annotations
 
+import json
 import os
 import tempfile
 from dataclasses import dataclass, field, replace
@@ -124,6 +125,21 @@ class PulsarData:
     def toa_count(self) -> int:
         return int(self.mjd.size)
 
+    @property
+    def times(self):
+        """The TOAs as an astropy ``Time`` (MJD, barycentric dynamical time: simulated TOAs are barycentric)."""
+        from astropy.time import Time
+
+        return Time(self.mjd, format="mjd", scale="tdb")
+
+    @property
+    def coordinates(self):
+        """The pulsar's position and distance as an astropy ``SkyCoord`` (ICRS)."""
+        from astropy import units as u
+        from astropy.coordinates import SkyCoord
+
+        return SkyCoord(ra=self.ra * u.rad, dec=self.dec * u.rad, distance=self.distance * u.kpc, frame="icrs")
+
     def __repr__(self) -> str:
         """One line: name, TOAs, MJD range, sky position, distance, residual scatter; never the arrays."""
         if self.toa_count:
@@ -168,6 +184,22 @@ class Dataset:
     def toa_count(self) -> int:
         """TOAs of all pulsars together."""
         return sum(p.toa_count for p in self.pulsars)
+
+    @property
+    def coordinates(self):
+        """Every pulsar's position and distance as one astropy ``SkyCoord`` (ICRS), in array order."""
+        from astropy import units as u
+        from astropy.coordinates import SkyCoord
+
+        return SkyCoord(ra=[p.ra for p in self.pulsars] * u.rad, dec=[p.dec for p in self.pulsars] * u.rad,
+                        distance=[p.distance for p in self.pulsars] * u.kpc, frame="icrs")
+
+    @property
+    def start(self):
+        """The array's first epoch as an astropy ``Time`` (MJD, TDB)."""
+        from astropy.time import Time
+
+        return Time(self.start_mjd, format="mjd", scale="tdb")
 
     def radio_summary(self) -> str:
         """The recorded radio frequencies and observing systems in a few words ("" when none are recorded)."""
@@ -323,8 +355,28 @@ def fingerprint(dataset: Dataset) -> str:
     return digest.hexdigest()
 
 
+#: Unit of each per-TOA array of a pulsar in the HDF5 file (astropy's unit strings; "" is dimensionless).
+ARRAY_UNITS = {"mjd": "d", "residuals": "s", "errors": "s", "design_matrix": "", "measured": "s", "frequency_mhz": "MHz",
+               "system": ""}
+#: Units of a pulsar group's attributes and of the file's, written as a JSON ``units`` attribute beside them.
+PULSAR_ATTRIBUTE_UNITS = {"ra": "rad", "dec": "rad", "distance": "kpc", "distance_error": "kpc"}
+FILE_ATTRIBUTE_UNITS = {"start_mjd": "d", "span": "s"}
+#: Units of the columns of a table of binaries (a signal's ``sources``).
+SOURCE_UNITS = {"name": "", "ra": "rad", "dec": "rad", "frequency": "Hz", "strain": "", "inclination": "rad",
+                "polarization": "rad", "phase": "rad", "chirp_mass": "kg", "frequency_evolution": "",
+                "pulsar_term": ""}
+
+
+def _table_unit(values: np.ndarray) -> str:
+    """The ``unit`` attribute of a signal's array: its unit, or for a table ``column=unit`` pairs joined by "; "."""
+    if values.dtype.names is None:
+        return ""
+    return "; ".join(f"{name}={SOURCE_UNITS.get(name, '')}" for name in values.dtype.names)
+
+
 def write_dataset(dataset: Dataset, path) -> Path:
-    """Write ``dataset`` to the HDF5 file ``path`` atomically; returns the path."""
+    """Write ``dataset`` to the HDF5 file ``path`` atomically; returns the path.  Every array carries a ``unit``
+    attribute (:data:`ARRAY_UNITS`; a table's per column), and groups with dimensioned attributes a JSON ``units``."""
     path = Path(path)
     with atomic_path(path) as temporary:
         with h5py.File(temporary, "w") as f:
@@ -334,11 +386,13 @@ def write_dataset(dataset: Dataset, path) -> Path:
             f.attrs["created"] = dataset.created
             f.attrs["start_mjd"] = dataset.start_mjd
             f.attrs["span"] = dataset.span
+            f.attrs["units"] = json.dumps(FILE_ATTRIBUTE_UNITS)
             group = f.create_group("pulsars", track_order=True)
             for p in dataset.pulsars:
                 g = group.create_group(p.name)
                 for key in ("ra", "dec", "distance", "distance_error"):
                     g.attrs[key] = getattr(p, key)
+                g.attrs["units"] = json.dumps(PULSAR_ATTRIBUTE_UNITS)
                 g["mjd"] = p.mjd
                 g["residuals"] = p.residuals
                 g["errors"] = p.errors
@@ -348,12 +402,15 @@ def write_dataset(dataset: Dataset, path) -> Path:
                     g["measured"] = p.measured
                 if p.frequency_mhz is not None:
                     g["frequency_mhz"] = np.asarray(p.frequency_mhz, dtype=float)
-                    g["frequency_mhz"].attrs["unit"] = "MHz"
                 if p.system is not None:
                     g["system"] = np.array([str(s).encode() for s in p.system], dtype=f"S{SYSTEM_NAME_BYTES}")
+                for key, unit in ARRAY_UNITS.items():
+                    if key in g:
+                        g[key].attrs["unit"] = unit
                 injected = g.create_group("injected", track_order=True)
                 for name, values in p.injected.items():
                     injected[name] = values
+                    injected[name].attrs["unit"] = "s"
                 for key, value in p.noise.items():
                     injected.attrs[key] = value
             signals = f.create_group("signals", track_order=True)
@@ -362,6 +419,7 @@ def write_dataset(dataset: Dataset, path) -> Path:
                 for key, value in parameters.items():
                     if isinstance(value, np.ndarray):
                         s[key] = value
+                        s[key].attrs["unit"] = _table_unit(value)
                     else:
                         s.attrs[key] = value
     return path

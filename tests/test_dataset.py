@@ -29,7 +29,7 @@ def test_layout_matches_documentation(dataset, tmp_path):
         for name, g in f["pulsars"].items():
             assert set(g) == {"mjd", "residuals", "errors", "design_matrix", "injected", "frequency_mhz"}  # one band
             assert g["frequency_mhz"].attrs["unit"] == "MHz" and np.all(g["frequency_mhz"][()] == 1400.0)
-            assert set(g.attrs) == {"ra", "dec", "distance", "distance_error"}
+            assert set(g.attrs) == {"ra", "dec", "distance", "distance_error", "units"}
             assert set(g["injected"]) == {"white", "red", "gwb"}
             assert g["design_matrix"].shape == (g["mjd"].size, 3)
             assert {"white_scale", "white_quadrature", "red_amplitude", "red_spectral_index"} <= set(g["injected"].attrs)
@@ -267,3 +267,37 @@ def test_toa_limits_refuse_before_reading(limit, fault, good_file, tmp_path, mon
     monkeypatch.setattr(h5py.Dataset, "__getitem__", lambda *a: pytest.fail("read an array"))
     with pytest.raises(InputError, match=fault.format(n=count, total=2 * count)):
         load_dataset(path)
+
+
+def test_every_array_has_a_unit_astropy_reads(dataset, tmp_path):
+    """astropy parses every ``unit`` attribute (and each column's of a table); the main arrays have the expected
+    ones, and the astropy views give the same positions and times as the plain arrays."""
+    import json
+
+    from astropy import units as u
+    from astropy.coordinates import SkyCoord
+
+    path = write_dataset(dataset, tmp_path / "d.h5")
+    seen = []
+
+    def check(name, obj):
+        if isinstance(obj, h5py.Dataset):
+            unit = obj.attrs["unit"]
+            for part in unit.split("; ") if obj.dtype.names else [unit]:
+                u.Unit(part.split("=")[-1])
+            seen.append(name)
+
+    with h5py.File(path) as f:
+        f.visititems(check)
+        g = f["pulsars"][dataset.names[0]]
+        assert (g["mjd"].attrs["unit"], g["residuals"].attrs["unit"], g["injected/gwb"].attrs["unit"]) == ("d", "s", "s")
+        assert json.loads(g.attrs["units"])["distance"] == "kpc"
+        assert u.Unit(json.loads(f.attrs["units"])["span"]) == u.s
+    assert any(name.endswith("mjd") for name in seen)
+    p = dataset.pulsars[0]
+    assert np.allclose(p.times.mjd, p.mjd) and p.times.scale == "tdb"
+    coordinates = dataset.coordinates
+    expected = SkyCoord(ra=[q.ra for q in dataset.pulsars] * u.rad, dec=[q.dec for q in dataset.pulsars] * u.rad)
+    assert np.allclose(coordinates.separation(expected).to_value(u.arcsec), 0.0, atol=1e-6)
+    assert np.allclose(coordinates.cartesian.xyz.value.T / coordinates.distance.to_value(u.kpc)[:, None],
+                       [q.position for q in dataset.pulsars])

@@ -1,7 +1,9 @@
-"""What every figure shares: component colours, axis scaling and the atomic save."""
+"""What every figure shares: component colours, axis scaling and the atomic save in each chosen format."""
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 from pathlib import Path
 
 import matplotlib
@@ -13,15 +15,34 @@ import numpy as np  # noqa: E402
 
 from ptares.dataset import atomic_path  # noqa: E402
 
-__all__ = ["save_figure"]
+__all__ = ["EXTRA_FORMATS", "extra_formats", "save_figure"]
+
+#: Vector formats a figure may be written in besides PNG.
+EXTRA_FORMATS = ("pdf", "svg")
+_EXTRA = contextvars.ContextVar("ptares_extra_figure_formats", default=())
+
+
+@contextlib.contextmanager
+def extra_formats(formats):
+    """Within this block :func:`save_figure` also writes each of ``formats`` (a sequence of
+    :data:`EXTRA_FORMATS`) beside every PNG."""
+    token = _EXTRA.set(tuple(dict.fromkeys(formats)))
+    try:
+        yield
+    finally:
+        _EXTRA.reset(token)
 
 
 def save_figure(fig, path) -> Path:
-    """Write ``fig`` as PNG to ``path`` atomically and close it."""
+    """Write ``fig`` as PNG to ``path`` atomically (and as PDF or SVG beside it, the same name with that suffix,
+    inside :func:`extra_formats`) and close it; returns the PNG's path."""
     path = Path(path)
-    with atomic_path(path) as temporary:
-        fig.savefig(temporary, format="png", dpi=130)
-    plt.close(fig)
+    try:
+        for kind in ("png", *_EXTRA.get()):
+            with atomic_path(path.with_suffix(f".{kind}")) as temporary:
+                fig.savefig(temporary, format=kind, dpi=130, **({"metadata": {"Date": None}} if kind == "svg" else {}))
+    finally:
+        plt.close(fig)
     return path
 
 
