@@ -66,13 +66,14 @@ from ptares.threads import thread_count, thread_limits
 if TYPE_CHECKING:  # imported when first used: it pulls in scipy.stats
     from ptares.correlation.analysis import CorrelationResult
     from ptares.forecast.sensitivity import SensitivityResult
+    from ptares.report.page import Report
 
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover
     import tomli as tomllib
 
-__all__ = ["simulate", "correlate", "sensitivity", "fit", "compare", "pulsar_noise", "sweep", "describe", "import_tables", "export_tables",
+__all__ = ["simulate", "correlate", "sensitivity", "report", "fit", "compare", "pulsar_noise", "sweep", "describe", "import_tables", "export_tables",
            "FitResult", "ComparisonResult", "NoiseResult", "SweepResult", "Interrupted", "config_from"]
 
 #: The command's words while the command line runs (else empty): messages then name options as ``--overwrite``
@@ -475,6 +476,16 @@ def sensitivity(source, out=None, *, settings=None, overwrite: bool = False, fig
         except OSError as exc:
             raise _cannot_write(exc, out) from None
     return result
+
+
+def report(folder, out=None, *, threads: int | None = None) -> "Report":
+    """Write one self-contained HTML page (``folder/report.html``, or ``out``) for an output folder of any command:
+    provenance, warnings, key numbers and tables, figures embedded, the config; returns the
+    :class:`~ptares.report.page.Report` (its ``warnings`` lists what the page flags)."""
+    from ptares.report.page import build_report
+
+    with thread_limits(thread_count(threads, _option("threads"))):
+        return build_report(folder, out)
 
 
 # ---------------------------------------------------------------- fit
@@ -944,8 +955,8 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
     (written to ``out/config.toml`` first; astropy Quantities in it are written with
     their units).  ``workers`` local processes, or ``scheduler`` (a Dask address or
     client) instead.  Finished tasks in ``out/tasks`` are kept and skipped on a rerun;
-    ``overwrite=True`` discards them.  Writes ``results.csv`` and, unless
-    ``figures=False``, the campaign figures.  Ctrl-C raises :class:`Interrupted`.
+    ``overwrite=True`` discards them.  Writes ``results.csv``, ``detection.json`` (the detection rule and each
+    amplitude's detection probability with its binomial error) and, unless ``figures=False``, the campaign figures.  Ctrl-C raises :class:`Interrupted`.
     ``threads``: BLAS and numba threads of each worker (None: :data:`~ptares.threads.DEFAULT_THREADS`).
     """
     from ptares.campaign.detection import detection_rule
@@ -996,7 +1007,19 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
             save_figure(fig, out / name)
             written.append(out / name)
     rule = detection_rule(rows, section.false_alarm, section.detection, section.ln_bayes_threshold)
-    return SweepResult(rows, rule, section.false_alarm, out, written)
+    result = SweepResult(rows, rule, section.false_alarm, out, written)
+    from ptares.dataset import write_json
+
+    try:
+        write_json(out / "detection.json", {
+            "false_alarm": section.false_alarm, "statistic": section.detection, "rule": str(rule), "how": rule.how,
+            "tasks": len(rows), "failed": len(result.failed),
+            "detection_probability": [{"amplitude": amplitude, "fraction": d.fraction, "error": d.error, "tasks": d.tasks}
+                                      for amplitude, d in result.detection_probability().items()],
+        })
+    except OSError as exc:
+        raise _cannot_write(exc, out) from None
+    return result
 
 
 # ---------------------------------------------------------------- check, import, export

@@ -77,6 +77,17 @@ def _sensitivity(args) -> int:
     return 0
 
 
+def _report(args) -> int:
+    from ptares import api
+
+    result = api.report(args.folder, args.out, threads=args.threads)
+    target = args.out or f"{args.folder}/report.html"
+    print(f"wrote {target}: {len(result.sections)} section(s), {len(result.warnings)} warning(s)")
+    for where, text in result.warnings:
+        print(f"  warning ({where}): {text}")
+    return 0
+
+
 def _fit(args) -> int:
     from ptares import api
 
@@ -284,6 +295,12 @@ def build_parser() -> argparse.ArgumentParser:
     sen.add_argument("--no-figures", action="store_true", help="write sensitivity.json only")
     sen.add_argument("--overwrite", action="store_true", help="replace earlier outputs")
     sen.set_defaults(run=_sensitivity)
+
+    rep = commands.add_parser("report", parents=[common],
+                              help="one self-contained HTML page for an output folder of any command")
+    rep.add_argument("folder", help="output folder of simulate, correlate, fit, compare, noise, sweep or sensitivity")
+    rep.add_argument("--out", help="the page's path (default FOLDER/report.html)")
+    rep.set_defaults(run=_report)
 
     fit = commands.add_parser("fit", parents=[common],
                               help="Bayesian fit of noise, background and continuous waves (emcee or blocked Gibbs)")

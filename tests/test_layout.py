@@ -22,6 +22,7 @@ STAGES = [
     ("inference",),
     ("campaign",),
     ("figures",),
+    ("report",),
     ("api",),
     ("cli", "__main__", "__init__"),
 ]

@@ -1,0 +1,1 @@
+"""Reports: one self-contained HTML page for any output folder (``ptares report``)."""
