@@ -334,7 +334,7 @@ def pulsar_noise_figure(rows: dict):
         ax.tick_params(labelsize=7)
         ax.grid(axis="x", color="#dddddd", lw=0.6)
     axes[0, 0].set_yticks(y)
-    axes[0, 0].set_yticklabels(names, fontsize=7 if len(names) < 40 else 5)
+    axes[0, 0].set_yticklabels(names, fontsize=7 if len(names) < 60 else 6)
     for label in axes[0, 0].get_yticklabels():
         if label.get_text() in troubled:
             label.set_color(_STAMP)
