@@ -58,3 +58,9 @@ def display_scale(values) -> float:
     """A power of ten that brings ``values`` to order one, for axis labels."""
     largest = np.max(np.abs(values)) if np.size(values) else 0.0
     return 10.0 ** np.floor(np.log10(largest)) if largest > 0 else 1.0
+
+
+def times_power(scale: float) -> str:
+    """`` (x10^k)`` in math text for an axis label whose values are divided by ``scale`` = 10^k ("" for 1)."""
+    exponent = int(round(np.log10(scale))) if scale > 0 else 0
+    return "" if exponent == 0 else rf" ($\times 10^{{{exponent}}}$)"

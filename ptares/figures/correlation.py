@@ -9,20 +9,29 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt
 import numpy as np
 
-from ptares.figures.common import COMPONENT_COLOURS, display_scale
+from ptares.figures.common import COMPONENT_COLOURS, display_scale, times_power
 from ptares.physics.patterns import pattern_function
 
 __all__ = ["correlations_figure", "nulls_figure"]
 
 
-def correlations_figure(result):
-    """Binned pair correlations against angle with the recovered Hellings–Downs curve and its expected scatter.
+#: Injected values and curves (as in the fit and comparison figures).
+INJECTED_COLOUR = "#e36414"
 
+
+def correlations_figure(result):
+    """Binned pair correlations against angle with the recovered Hellings–Downs curve and its expected scatter,
+    the injected curve (orange, dashed) when the dataset records one, and the monopole and dipole fits when
+    asked for.
+
+    Every value on the vertical axis (the binned correlations rho, which estimate A^2 times the pattern, their
+    errors, the band and the curves) is divided by one power of ten, written once in the axis label.
     ``result`` is a :class:`ptares.correlation.analysis.CorrelationResult`.
     """
     hd = result.estimates["hellings-downs"]
     binned = result.binned
-    scale = display_scale(np.concatenate([binned.rho + binned.error, binned.rho - binned.error, [hd["amplitude2"]]]))
+    scale = display_scale(np.concatenate([binned.rho + binned.error, binned.rho - binned.error, [hd["amplitude2"]],
+                                          [result.injected_amplitude2 or 0.0]]))
     angle = np.linspace(0.0, np.pi, 400)
     curve = hd["amplitude2"] * pattern_function("hellings-downs")(angle) / scale
     width = np.interp(angle, binned.centres, result.band / scale)
@@ -39,9 +48,10 @@ def correlations_figure(result):
                     label=f"{name} fit (A\u00b2 = {value:.3g})")
     if result.injected_amplitude2:
         ax.plot(np.degrees(angle), result.injected_amplitude2 * pattern_function("hellings-downs")(angle) / scale,
-                color="#9a9a9a", lw=1.0, ls="--", label=f"injected A\u00b2 ({result.injected_amplitude2:.3g})")
+                color=INJECTED_COLOUR, lw=1.2, ls="--", gid="injected",
+                label=f"injected: Hellings\u2013Downs x A\u00b2 = {result.injected_amplitude2:.3g}")
     ax.errorbar(np.degrees(binned.centres), binned.rho / scale, yerr=binned.error / scale, fmt="o", ms=6,
-                color="#c1121f", capsize=3, zorder=5, label="binned pair correlations (noise-only errors)")
+                color="#1b1b1b", capsize=3, zorder=5, label="binned pair correlations (noise-only errors)")
     relation = "\u2264" if hd.get("p_value_is_bound") else "="
     p_text = f", p {relation} {hd['p_value']:.3g}" if "p_value" in hd else ""
     ax.set_title(f"Cross-correlations of {len(result.names)} pulsars, {result.pairs.rho.size} pairs: "
@@ -51,8 +61,9 @@ def correlations_figure(result):
     ax.set_xlim(0, 180)
     ax.set_xticks(np.arange(0, 181, 30))
     ax.set_xlabel("angular separation (degrees)")
-    ax.set_ylabel(f"correlation \u03c1 (units of {scale:.0e})")
-    ax.legend(fontsize=7, loc="upper right")
+    ax.set_ylabel("correlation \u03c1" + times_power(scale))
+    ax.ticklabel_format(axis="y", style="plain", useOffset=False)
+    ax.legend(fontsize=7, loc="best")
     ax.grid(alpha=0.3)
     fig.tight_layout()
     return fig

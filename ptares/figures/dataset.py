@@ -31,8 +31,10 @@ __all__ = ["residuals_figure", "sky_figure", "correlation_figure", "noise_budget
            "dataset_figures"]
 
 
-PER_PAGE = 50  #: pulsars per residuals (and noise-budget) figure; larger arrays get residuals-2.png and so on
+PER_PAGE = 20  #: pulsars per residuals (and noise-budget) figure; larger arrays get residuals-2.png and so on
+ROW_HEIGHT = 0.62  #: inches per pulsar row of a residuals page
 BUDGET_COLUMNS = 5  #: panels per row of a noise-budget page
+INJECTED_COLOUR = "#e36414"  #: injected values and curves that have no component colour (as in the fit figures)
 
 #: Colours of the observing systems on the residual pages, in order of first use in the dataset
 #: (chosen to stay apart from the component colours; more systems than these reuse matplotlib's tab20).
@@ -102,7 +104,9 @@ def _point_colours(p, systems, norm):
 def residuals_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE):
     """Residuals of pulsars ``first`` to ``first + count``, each in its own row, with the injected signals.
 
-    Each row has its own vertical scale (its range is printed at the right).
+    Each row has its own vertical scale, shown by a vertical scale bar at its
+    right edge labelled with its length, a round value (1, 2 or 5 times a
+    power of ten, in µs or ms) of about half the row's range.
     The injected components are drawn with the timing model fitted out of
     them, so they lie over the residuals they helped make: as a line through
     the epochs, or, for one that differs between the TOAs of an epoch (a
@@ -128,7 +132,7 @@ def residuals_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE):
     else:
         block = 0.45
     header = 0.6 if not coloured else 0.38 + block  # inches above the first row
-    height = max(3.0, 0.55 * len(pulsars) + 0.6 + header)
+    height = max(3.0, ROW_HEIGHT * len(pulsars) + 0.6 + header)
     fig, axes = plt.subplots(len(pulsars), 1, sharex=True, squeeze=False, figsize=(9.0, height))
     outline = [patheffects.withStroke(linewidth=2.4, foreground="white", alpha=0.8)] if coloured else None
     labelled = set()
@@ -152,15 +156,14 @@ def residuals_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE):
             ax.plot(years, fitted, color=COMPONENT_COLOURS.get(name, "#7b2cbf"), path_effects=outline,
                     label=f"injected {name}" if name not in labelled else None, gid=f"injected:{name}", **style)
             labelled.add(name)
-        low, high = ax.get_ylim()
         ax.set_yticks([])
-        ax.set_ylabel(p.name, rotation=0, ha="right", va="center", fontsize=7)
-        ax.text(1.005, 0.5, f"{high - low:.2g} µs", transform=ax.transAxes, fontsize=6, va="center")
+        ax.set_ylabel(p.name, rotation=0, ha="right", va="center", fontsize=8)
+        _scale_bar(ax)
         ax.grid(axis="x", alpha=0.3)
     title = f"Timing residuals after the timing-model fit: {len(dataset.pulsars)} pulsars"
     if len(pulsars) < len(dataset.pulsars):
         title += f" ({first + 1} to {first + len(pulsars)} here)"
-    axes[0, 0].set_title(title + " (row height in µs at right)", fontsize=10)
+    axes[0, 0].set_title(title + "\n(each row has its own vertical scale: the bar at its right)", fontsize=10)
     axes[-1, 0].set_xlabel("year")
     if labelled:
         fig.legend(loc="upper right", fontsize=7, ncol=3, frameon=False)
@@ -180,12 +183,51 @@ def residuals_figure(dataset: Dataset, first: int = 0, count: int = PER_PAGE):
         cax.xaxis.set_major_formatter(ticker.FuncFormatter(lambda value, _: f"{value:g}"))
         cax.tick_params(labelsize=6, length=2, pad=1)
         cax.set_gid("frequency colour bar")
-    fig.subplots_adjust(hspace=0.0, left=0.12, right=0.93, top=1 - header / height, bottom=0.5 / height)
+    fig.subplots_adjust(hspace=0.0, left=0.13, right=0.92, top=1 - header / height, bottom=0.5 / height)
     return fig
 
 
+def round_length(extent: float) -> float:
+    """The largest of 1, 2 and 5 times a power of ten not above ``extent`` (> 0)."""
+    power = 10.0 ** np.floor(np.log10(extent))
+    return max(step * power for step in (1.0, 2.0, 5.0) if step * power <= extent * (1 + 1e-9))
+
+
+def _length_text(microseconds: float) -> str:
+    """A scale-bar length in µs as text, in ms from 1000 µs."""
+    if microseconds >= 1000.0:
+        return f"{microseconds / 1000.0:g} ms"
+    return f"{microseconds:g} µs"
+
+
+def _scale_bar(ax) -> None:
+    """A vertical bar at the right edge of ``ax`` (residuals in µs), centred on the row, of a round length
+    about half its range (:func:`round_length`), with its length written beside it; fixes the row's limits."""
+    low, high = ax.get_ylim()
+    ax.set_ylim(low, high)
+    length = round_length(0.5 * (high - low))
+    middle = 0.5 * (low + high)
+    where = ax.get_yaxis_transform()  # x in axes fractions, y in µs
+    ax.plot([1.012, 1.012], [middle - length / 2, middle + length / 2], transform=where, color="#1b1b1b", lw=1.6,
+            solid_capstyle="butt", clip_on=False, gid="scale-bar")
+    ax.text(1.022, middle, _length_text(length), transform=where, fontsize=7, va="center", ha="left",
+            gid="scale-bar-label")
+
+
+#: At most this many pulsars are named on the sky map.
+MAX_SKY_NAMES = 40
+_OUTLINE = [patheffects.withStroke(linewidth=2.2, foreground="white")]  # keeps names readable over grid lines
+
+
 def sky_figure(dataset: Dataset):
-    """The array on the sky (equatorial, Mollweide; right ascension increasing to the left)."""
+    """The array on the sky (equatorial, Mollweide; right ascension increasing to the left).
+
+    Each pulsar is a dot coloured by its median TOA uncertainty and sized by its number of TOAs; up to
+    :data:`MAX_SKY_NAMES` pulsars are named.  The right-ascension hours are written small and grey on
+    the equator, the declinations at the left edge; names (white-outlined) and the names of injected
+    continuous-wave sources (stars) are placed around their points where they cover none of these
+    labels, and as few other names and points as can be.
+    """
     ra = np.array([p.ra for p in dataset.pulsars])
     dec = np.array([p.dec for p in dataset.pulsars])
     median_error = np.array([np.median(p.errors) for p in dataset.pulsars]) * 1e6
@@ -195,10 +237,16 @@ def sky_figure(dataset: Dataset):
     ax = fig.add_subplot(projection="mollweide")
     size = 20 + 80 * counts / counts.max()
     points = ax.scatter(longitude, dec, c=median_error, s=size, cmap="viridis_r", edgecolor="k", linewidth=0.4, zorder=3)
-    if len(dataset.pulsars) <= 40:
-        for p, x, y in zip(dataset.pulsars, longitude, dec):
-            ax.annotate(p.name, (x, y), xytext=(3, 3), textcoords="offset points", fontsize=6)
     hours = np.arange(-10, 12, 2)
+    ax.set_xticks(np.radians(hours * 15.0), [""] * hours.size)  # meridians as grid lines; their labels below
+    hour_labels = [ax.annotate(f"{(-h) % 24:d}h", (np.radians(h * 15.0), 0.0), xytext=(0, 0), textcoords="offset points",
+                               ha="center", va="center", fontsize=6.5, color="#5c5c5c", zorder=2.5, gid="hour-label",
+                               bbox={"boxstyle": "round,pad=0.12", "fc": "white", "ec": "none", "alpha": 0.75})
+                   for h in hours]
+    ax.tick_params(axis="y", labelsize=7, labelcolor="#5c5c5c")
+    ax.grid(alpha=0.35)
+    names = []  # (text, longitude, latitude, marker radius in points, text style)
+    markers = [(x, y, 0.5 * np.sqrt(s)) for x, y, s in zip(longitude, dec, size)]  # radii in points
     binary = dataset.signals.get("binary")
     if binary is not None and "sources" in binary:
         sources = binary["sources"]
@@ -207,13 +255,85 @@ def sky_figure(dataset: Dataset):
                    zorder=4, label="continuous-wave sources")
         for name, xs, ys in zip(sources["name"], x, sources["dec"]):
             label = name.decode() if isinstance(name, bytes) else str(name)
-            ax.annotate(label, (xs, ys), xytext=(5, -9), textcoords="offset points", fontsize=7, color=COMPONENT_COLOURS["binary"])
+            names.append((label, xs, ys, 6.0, {"fontsize": 7, "color": COMPONENT_COLOURS["binary"], "gid": "source-name"}))
+            markers.append((xs, ys, 6.0))
         ax.legend(loc="lower right", fontsize=7)
-    ax.set_xticks(np.radians(hours * 15.0), [f"{(-h) % 24:d}h" for h in hours], fontsize=7)
-    ax.grid(alpha=0.35)
+    if len(dataset.pulsars) <= MAX_SKY_NAMES:
+        names += [(p.name, x, y, r, {"fontsize": 6.5, "gid": "pulsar-name"})
+                  for p, (x, y, r) in zip(dataset.pulsars, markers)]
     fig.colorbar(points, ax=ax, orientation="horizontal", fraction=0.05, pad=0.08, label="median TOA uncertainty (\u00b5s); marker size: TOA count")
     ax.set_title(f"Array on the sky (equatorial): {len(dataset.pulsars)} pulsars", pad=14)
+    _place_names(fig, ax, names, hour_labels, np.array(markers))
     return fig
+
+
+#: Directions (in units of the marker radius plus a gap) tried for a name around its point, in order.
+_NAME_DIRECTIONS = [(1, 1), (-1, 1), (1, -1), (-1, -1), (1, 0), (-1, 0), (0, 1), (0, -1)]
+
+
+def _overlap(a, b) -> float:
+    """Area shared by two display bounding boxes."""
+    width = min(a.x1, b.x1) - max(a.x0, b.x0)
+    height = min(a.y1, b.y1) - max(a.y0, b.y0)
+    return max(width, 0.0) * max(height, 0.0)
+
+
+def _marker_overlap(box, centres, radii) -> float:
+    """Area of ``box`` covered by the squares around the markers at ``centres`` (display units) of ``radii``."""
+    width = np.minimum(box.x1, centres[:, 0] + radii) - np.maximum(box.x0, centres[:, 0] - radii)
+    height = np.minimum(box.y1, centres[:, 1] + radii) - np.maximum(box.y0, centres[:, 1] - radii)
+    return float(np.sum(np.clip(width, 0.0, None) * np.clip(height, 0.0, None)))
+
+
+def _place_names(fig, ax, names, hour_labels, markers) -> None:
+    """Move each of ``hour_labels`` (annotations on the equator) just below or above it where a marker covers
+    it, then annotate each of ``names`` (text, x, y, marker radius in points, text style) at one of several
+    offsets around its point (:data:`_NAME_DIRECTIONS`, at three distances): the first that covers none of
+    the axis labels, the title and the legend, stays inside the figure and covers neither the names placed
+    before it nor the other ``markers`` (rows of x, y, radius in points); failing that, the one that covers
+    least of those, in that order of importance."""
+    fig.canvas.draw()  # the layout is final: extents in display units hold from here on
+    renderer = fig.canvas.get_renderer()
+    pixels = fig.dpi / 72.0
+    centres = ax.transData.transform(markers[:, :2])
+    radii = markers[:, 2] * pixels
+    for label in hour_labels:
+        best = None
+        for shift in (0.0, -7.0, 7.0, -12.0, 12.0):
+            label.xyann = (0.0, shift)
+            score = _marker_overlap(label.get_window_extent(renderer), centres, radii)
+            if best is None or score < best[0]:
+                best = (score, shift)
+            if score == 0.0:
+                break
+        label.xyann = (0.0, best[1])
+    fixed = hour_labels + list(ax.get_yticklabels()) + [ax.title] + ([ax.get_legend()] if ax.get_legend() else [])
+    hard = [t.get_window_extent(renderer) for t in fixed if t.get_visible() and (not hasattr(t, "get_text") or t.get_text())]
+    frame = fig.bbox
+    placed = []
+    for text, x, y, radius, style in names:
+        own = ax.transData.transform((x, y))
+        others = np.hypot(*(centres - own).T) > 0.5
+        annotation = ax.annotate(text, (x, y), xytext=(0, 0), textcoords="offset points", zorder=5,
+                                 path_effects=_OUTLINE, annotation_clip=False, **style)
+        best = None
+        for reach, (dx, dy) in [(r, d) for r in (1.0, 2.2, 3.6) for d in _NAME_DIRECTIONS]:
+            gap = reach * (radius + 1.5)
+            annotation.xyann = (dx * gap, dy * gap)
+            annotation.set_ha("left" if dx > 0 else "right" if dx < 0 else "center")
+            annotation.set_va("bottom" if dy > 0 else "top" if dy < 0 else "center")
+            box = annotation.get_window_extent(renderer)
+            covered = sum(_overlap(box, b) for b in hard) + box.width * box.height - _overlap(box, frame)
+            crowded = sum(_overlap(box, b) for b in placed) + _marker_overlap(box, centres[others], radii[others])
+            score = (covered, crowded)
+            if best is None or score < best[0]:
+                best = (score, annotation.xyann, annotation.get_ha(), annotation.get_va())
+            if covered == 0.0 and crowded == 0.0:
+                break
+        _, annotation.xyann, ha, va = best
+        annotation.set_ha(ha)
+        annotation.set_va(va)
+        placed.append(annotation.get_window_extent(renderer))
 
 
 def _pair_correlations(dataset: Dataset, component: str, grid_points: int = 512):
@@ -234,17 +354,21 @@ def _pair_correlations(dataset: Dataset, component: str, grid_points: int = 512)
 
 
 def correlation_figure(dataset: Dataset, bins: int = 10):
-    """The injected correlation pattern against angle, with this realisation's pair correlations."""
+    """The injected correlation pattern against angle (orange, as injected values are everywhere), with this
+    realisation's correlation coefficient of the injected background for each pair and their mean in each
+    angular bin; without a background, the pattern alone."""
     gwb = dataset.signals.get("gwb")
     pattern = gwb["correlation"] if gwb else "hellings-downs"
     curve_angle = np.linspace(0.0, np.pi, 400)
     positions = np.array([p.position for p in dataset.pulsars])
     upper = np.triu_indices(len(dataset.pulsars), 1)
     angles = separation_matrix(positions)[upper]
+    injected = bool(gwb and gwb.get("amplitude", 0) > 0)
     fig, ax = plt.subplots(figsize=(8.0, 5.0))
     ax.axhline(0.0, color="k", lw=0.6)
-    ax.plot(np.degrees(curve_angle), pattern_function(pattern)(curve_angle), color="#1b1b1b", lw=1.6, label=f"{pattern} pattern")
-    if gwb and len(angles) and gwb.get("amplitude", 0) > 0:
+    ax.plot(np.degrees(curve_angle), pattern_function(pattern)(curve_angle), color=INJECTED_COLOUR if injected else "#1b1b1b",
+            lw=1.8, zorder=4, label=f"injected pattern ({pattern})" if injected else f"{pattern} pattern")
+    if injected and len(angles):
         rho = _pair_correlations(dataset, "gwb")
         ax.scatter(np.degrees(angles), rho, s=6, color=COMPONENT_COLOURS["gwb"], alpha=0.35, label="pairs (this realisation)")
         edges = np.linspace(0.0, np.pi, bins + 1)
@@ -254,7 +378,8 @@ def correlation_figure(dataset: Dataset, bins: int = 10):
             if values.size >= 2:
                 mid = np.degrees(0.5 * (edges[k] + edges[k + 1]))
                 ax.errorbar(mid, values.mean(), yerr=values.std(ddof=1) / np.sqrt(values.size), fmt="s", ms=5,
-                            color="#c1121f", capsize=3, label="bin mean \u00b1 standard error of its pairs" if k == 0 else None)
+                            color="#1b1b1b", capsize=3, zorder=5,
+                            label="bin mean \u00b1 standard error of its pairs" if k == 0 else None)
         ax.set_title(f"Injected background: A = {gwb['amplitude']:.3g}, spectral index {gwb['spectral_index']:.3g}, {len(angles)} pairs")
     else:
         ax.set_title("Correlation pattern (no background injected)")
@@ -262,7 +387,7 @@ def correlation_figure(dataset: Dataset, bins: int = 10):
     ax.set_xticks(np.arange(0, 181, 30))
     ax.set_xlabel("angular separation (degrees)")
     ax.set_ylabel("correlation coefficient")
-    ax.legend(fontsize=8)
+    ax.legend(fontsize=8, loc="best")
     ax.grid(alpha=0.3)
     fig.tight_layout()
     return fig
