@@ -110,7 +110,8 @@ def _fit(args) -> int:
     for name in sorted(result.names, key=lambda n: "@" in n)[:8]:  # array-wide parameters first
         entry = result.parameters[name]
         low, high = entry["interval68"]
-        print(f"  {name:28s} {entry['median']:+.4g}  68%: [{low:+.4g}, {high:+.4g}]")
+        form = ".1f" if name.endswith("_epoch") else "+.4g"  # an epoch is an MJD: days, not 5.5e+04
+        print(f"  {name:28s} {entry['median']:{form}}  68%: [{low:{form}}, {high:{form}}]")
     if result.spectrum is not None:
         for name, entry in result.spectrum["refits"].items():
             text = ", ".join(f"{key} {value['median']:.3g} [{value['interval68'][0]:.3g}, {value['interval68'][1]:.3g}]"

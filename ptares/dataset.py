@@ -10,12 +10,12 @@ File layout (also in the README)::
         errors              (n,) s, quoted TOA uncertainties
         design_matrix       (n, m), attrs: columns (names)
         measured            (n,) s, residuals taken from a table (inject mode, imports), if any
-        injected/<component>  (n,) s, before the fit: white, red, gwb, binary
+        injected/<component>  (n,) s, before the fit: white, red, gwb, binary, wave
         injected            attrs: white_scale, white_quadrature (s),
                                    red_amplitude, red_spectral_index (the injected noise),
                                    distance (kpc, used by pulsar terms)
     /signals/<component>    attrs: the component's parameters (e.g. gwb amplitude);
-        sources             table of binaries (binary, and a gwb built from binaries)
+        sources             table of sources (binary, wave, and a gwb built from binaries)
 
 Pulsars keep their array order.  Files are written under a temporary name
 and renamed into place, so a crash never leaves a partial file under the
@@ -277,6 +277,18 @@ def describe_signal(name: str, values: dict, red_pulsars: int = 0) -> str:
                          f"{'evolving' if row['frequency_evolution'] else 'fixed frequency'}, "
                          f"{'with' if row['pulsar_term'] else 'no'} pulsar term")
         return "; ".join(shown) + (f"; and {len(sources) - 3} more" if len(sources) > 3 else "")
+    if name == "wave":
+        sources = values.get("sources")
+        if sources is None or not len(sources):
+            return f"{int(values.get('count', 0))} waves"
+        shown = []
+        for row in sources[:3]:
+            label, shape = (row[k].decode() if isinstance(row[k], bytes) else str(row[k]) for k in ("name", "shape"))
+            words = f"wave {label}: {shape.replace('_', '-')}"
+            if shape != "table":
+                words += f" of strain {float(row['amplitude']):.3g} at MJD {float(row['epoch']):.6g}"
+            shown.append(words + f", {'with' if row['pulsar_term'] else 'no'} pulsar term")
+        return "; ".join(shown) + (f"; and {len(sources) - 3} more" if len(sources) > 3 else "")
     return name
 
 
@@ -364,7 +376,8 @@ FILE_ATTRIBUTE_UNITS = {"start_mjd": "d", "span": "s"}
 #: Units of the columns of a table of binaries (a signal's ``sources``).
 SOURCE_UNITS = {"name": "", "ra": "rad", "dec": "rad", "frequency": "Hz", "strain": "", "inclination": "rad",
                 "polarization": "rad", "phase": "rad", "chirp_mass": "kg", "frequency_evolution": "",
-                "pulsar_term": ""}
+                "pulsar_term": "", "shape": "", "epoch": "MJD", "amplitude": "", "width": "s", "cross_fraction": "",
+                "rise_time": "s", "file": "", "strain_scale": "", "interpolation_error": "s"}
 
 
 def _table_unit(values: np.ndarray) -> str:

@@ -20,7 +20,7 @@ import numpy as np
 from pydantic import ValidationError
 
 from ptares.errors import InputError
-from ptares.inference.parameters import COMMON_AMPLITUDE, COMMON_INDEX
+from ptares.inference.parameters import COMMON_AMPLITUDE, COMMON_INDEX, memory
 from ptares.inputs.config import (
     Config,
     SweepSection,
@@ -41,9 +41,15 @@ COLUMNS = [
     "common_lg_amplitude.median", "common_lg_amplitude.low68", "common_lg_amplitude.high68",
     "common_lg_amplitude.quantile", "common_lg_amplitude.upper95", "common_ln_savage_dickey",
     "common_spectral_index.median", "common_spectral_index.quantile", "fit_converged",
+    "memory_lg_strain.median", "memory_lg_strain.low68", "memory_lg_strain.high68", "memory_lg_strain.quantile",
+    "memory_epoch.median", "memory_epoch.low68", "memory_epoch.high68", "memory_epoch.quantile",
     "ln_bayes_factor", "ln_bayes_factor_error", "bayes_effective_samples", "bayes_reliable",
     "status", "error", "run_time",
 ]
+#: Fit parameters whose median (and, but for the index, 68% interval) and quantile of the injected value go
+#: into results.csv.
+SUMMARISED = (COMMON_AMPLITUDE, COMMON_INDEX, memory("lg_strain"), memory("epoch"))
+assert all(f"{name}.quantile" in COLUMNS for name in SUMMARISED)
 
 
 @dataclass(frozen=True)
@@ -57,12 +63,22 @@ class Task:
 
 
 def _set(raw: dict, dotted: str, value) -> None:
+    """Set the config key ``dotted`` of ``raw``; a number picks an entry of an array of tables
+    (``wave.0.amplitude``: the first ``[[wave]]``'s amplitude)."""
     node = raw
     parts = dotted.split(".")
     for part in parts[:-1]:
-        node = node.setdefault(part, {})
-        if not isinstance(node, dict):
+        if isinstance(node, list):
+            if not (part.isdigit() and int(part) < len(node)):
+                raise InputError(f"{part!r} is not an entry of the {len(node)} tables there (count from 0)",
+                                 f"sweep.axes.{dotted}")
+            node = node[int(part)]
+        else:
+            node = node.setdefault(part, {})
+        if not isinstance(node, (dict, list)):
             raise InputError(f"{part!r} is not a table", f"sweep.axes.{dotted}")
+    if not isinstance(node, dict):
+        raise InputError(f"{parts[-2]!r} is an array of tables: name one entry by its number", f"sweep.axes.{dotted}")
     node[parts[-1]] = value
 
 
@@ -165,11 +181,11 @@ def _summary_of_fit(model, run, summary) -> dict:
 
     row = {"fit_converged": summary["converged"]}
     samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
-    for name in (COMMON_AMPLITUDE, COMMON_INDEX):
+    for name in SUMMARISED:
         if name in model.names:
             entry = summary["parameters"][name]
             row[f"{name}.median"] = entry["median"]
-            if name == COMMON_AMPLITUDE:
+            if name != COMMON_INDEX:
                 row[f"{name}.low68"], row[f"{name}.high68"] = entry["interval68"]
             if name in model.injected:
                 row[f"{name}.quantile"] = float(np.mean(samples[:, model.names.index(name)] < model.injected[name]))

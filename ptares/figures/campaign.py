@@ -29,7 +29,8 @@ __all__ = ["COVERAGE_PARAMETERS", "LOG_SPAN", "bayes_figure", "coverage_figure",
            "interval_coverage", "recovery_figure", "snr_figure", "sweep_figures"]
 
 #: Parameters whose credible intervals the coverage figure checks; results.csv has ``<name>.quantile``.
-COVERAGE_PARAMETERS = (parameters.COMMON_AMPLITUDE, parameters.COMMON_INDEX)
+COVERAGE_PARAMETERS = (parameters.COMMON_AMPLITUDE, parameters.COMMON_INDEX, parameters.memory("lg_strain"),
+                       parameters.memory("epoch"))
 
 #: Positive values spanning more than this ratio get a logarithmic axis.
 LOG_SPAN = 10.0
@@ -349,7 +350,7 @@ def interval_coverage(quantiles, widths):
 
 
 def coverage_figure(rows):
-    """How often the injected common-process parameters fall inside central credible intervals, by width.
+    """How often the injected common-process (and memory-step) parameters fall inside central credible intervals, by width.
 
     Uses the fit columns ``<parameter>.quantile`` of the tasks with a background
     (without one the injected values are not defined); ``None`` when there are none.
@@ -360,7 +361,9 @@ def coverage_figure(rows):
     quantiles = {}
     for name in COVERAGE_PARAMETERS:
         key = f"{name}.quantile"
-        values = np.array([r[key] for r in finished(rows, key) if r.get("injected_amplitude", 1.0) != 0.0], dtype=float)
+        common = name in (parameters.COMMON_AMPLITUDE, parameters.COMMON_INDEX)  # no background: nothing to cover
+        values = np.array([r[key] for r in finished(rows, key) if not common or r.get("injected_amplitude", 1.0) != 0.0],
+                          dtype=float)
         values = values[np.isfinite(values)]
         if values.size:
             quantiles[name] = values
@@ -374,7 +377,7 @@ def coverage_figure(rows):
     ax.fill_between(widths, low, high, color="#d9d4c7", lw=0, gid="band",
                     label=f"95% binomial range, {count} tasks")
     ax.plot([0, 1], [0, 1], color="#5c5c5c", lw=0.9, label="fraction = width")
-    colours = (COMPONENT_COLOURS["gwb"], COMPONENT_COLOURS["red"])
+    colours = (COMPONENT_COLOURS["gwb"], COMPONENT_COLOURS["red"], COMPONENT_COLOURS["wave"], COMPONENT_COLOURS["binary"])
     for (name, values), colour in zip(quantiles.items(), colours):
         inside = interval_coverage(values, widths)
         ax.plot(widths, inside, color=colour, lw=1.8, gid=f"coverage:{name}",

@@ -48,7 +48,7 @@ def save_figure(fig, path) -> Path:
 
 #: Colour of each injected component, shared by all figures.
 COMPONENT_COLOURS = {"white": "#9a9a9a", "red": "#b8553a", "gwb": "#2a6f97", "binary": "#6a994e",
-                     "dispersion": "#b03a7a", "scattering": "#c08a12"}
+                     "dispersion": "#b03a7a", "scattering": "#c08a12", "wave": "#7b2cbf"}
 
 
 RESIDUAL_COLOUR = "#1b1b1b"

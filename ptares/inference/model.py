@@ -6,10 +6,13 @@ and ``common_spectral_index`` for the common process; ``white_scale@<pulsar>``,
 ``red_spectral_index@<pulsar>``; and for a continuous wave ``binary_lg_strain``,
 ``binary_orbital_phase`` (at the first epoch), ``binary_inclination_cosine``,
 ``binary_polarization_angle``, ``binary_right_ascension``, ``binary_declination_sine``,
-``binary_lg_frequency`` (GW frequency in Hz).  Whatever is not free is held at a
-fixed value: the dataset's injected truth by default, or the config's.  The
-continuous-wave model is a binary of constant frequency (Earth term, and the
-pulsar term at the catalogue distances when asked for).
+``binary_lg_frequency`` (GW frequency in Hz); for a memory step ``memory_lg_strain``,
+``memory_epoch`` (MJD), ``memory_polarization_angle``, ``memory_right_ascension`` and
+``memory_declination_sine``.  Whatever is not free is held at a fixed value: the
+dataset's injected truth by default, or the config's.  The continuous-wave model is a
+binary of constant frequency (Earth term, and the pulsar term at the catalogue distances
+when asked for); the memory model a sharp step seen at the Earth, whose residual is the
+ramp ``F+ h (t - t0)`` after the epoch (:mod:`ptares.physics.waveforms`).
 """
 
 from __future__ import annotations
@@ -26,6 +29,7 @@ from ptares.inference.pulsar_noise import read_pulsar_noise
 from ptares.inference.parameters import (
     BINARY_QUANTITIES,
     CHROMATIC,
+    MEMORY_QUANTITIES,
     COMMON_BEND,
     COMMON_BEND_INDEX,
     COMMON_VARIANCE,
@@ -41,6 +45,7 @@ from ptares.inference.parameters import (
     WHITE_QUADRATURE,
     WHITE_SCALE,
     binary,
+    memory,
     white_owners,
     for_pulsar,
     is_array_signal,
@@ -49,9 +54,12 @@ from ptares.inference.parameters import (
 )
 from ptares.inputs.config import FitSection
 from ptares.physics.spectra import coefficient_variance, turnover
+from ptares.physics.constants import DAY, KPC
+from ptares.physics.waveforms import MemoryStep, plane_wave_residuals
 from ptares.simulation.signals.continuous import Binary, PulsarLayout
 
-__all__ = ["FitModel", "DEFAULT_PRIORS", "binary_frequency_prior", "binary_strain_prior"]
+__all__ = ["FitModel", "DEFAULT_PRIORS", "binary_frequency_prior", "binary_strain_prior", "memory_strain_prior",
+           "memory_epoch_prior"]
 
 #: Default priors by quantity.  Red noise: amplitude and index ranges as used in published
 #: array noise analyses (e.g. Agazie et al. 2023, ApJL 951, L10; reference from memory).  The continuous wave's
@@ -76,6 +84,9 @@ DEFAULT_PRIORS = {
     binary("polarization_angle"): prior_module.Uniform(0.0, np.pi),
     binary("right_ascension"): prior_module.Uniform(0.0, 2.0 * np.pi),
     binary("declination_sine"): prior_module.Uniform(-1.0, 1.0),
+    memory("polarization_angle"): prior_module.Uniform(0.0, np.pi),
+    memory("right_ascension"): prior_module.Uniform(0.0, 2.0 * np.pi),
+    memory("declination_sine"): prior_module.Uniform(-1.0, 1.0),
 }
 
 #: Values each quantity may take (fixed values and prior supports must lie inside).
@@ -88,6 +99,8 @@ VALID = {
     **{index: (-10.0, 10.0) for _, index in CHROMATIC.values()},
     binary("orbital_phase"): (-1e6, 1e6), binary("inclination_cosine"): (-1.0, 1.0), binary("polarization_angle"): (-1e6, 1e6),
     binary("right_ascension"): (-1e6, 1e6), binary("declination_sine"): (-1.0, 1.0), binary("lg_frequency"): (-10.0, -5.0),
+    memory("lg_strain"): (-np.inf, -9.0), memory("epoch"): (15_000.0, 100_000.0), memory("polarization_angle"): (-1e6, 1e6),
+    memory("right_ascension"): (-1e6, 1e6), memory("declination_sine"): (-1.0, 1.0),
 }
 
 _NAMING = "parameters are named like 'common_lg_amplitude' or 'red_lg_amplitude@PULSAR' (README: Fits)"
@@ -127,6 +140,32 @@ def binary_strain_prior(dataset: Dataset) -> prior_module.Uniform:
     low = np.log10(2.0 * np.pi * low_f * STRAIN_FLOOR * smallest_error)
     high = min(np.log10(2.0 * np.pi * high_f * STRAIN_CEILING * largest_scatter), VALID[binary("lg_strain")][1])
     return prior_module.Uniform(float(low), float(high))
+
+
+def _text(value) -> str:
+    """A table's text field as ``str`` (HDF5 gives bytes)."""
+    return value.decode() if isinstance(value, bytes) else str(value)
+
+
+def memory_strain_prior(dataset: Dataset) -> prior_module.Uniform:
+    """Uniform prior on lg h of a memory step, from steps no array could see to steps that dominate the data.
+
+    A step of strain h leaves a ramp of slope about h (times a geometric factor of order one): the
+    lower end is the strain whose ramp reaches :data:`STRAIN_FLOOR` times the smallest TOA error over
+    the whole span, the upper end the strain whose ramp reaches :data:`STRAIN_CEILING` times the
+    largest residual standard deviation within the finest cadence, at most 1e-9.
+    """
+    low_f, high_f = _frequency_range(dataset)  # 1/T, and 1/(2 x finest cadence)
+    smallest_error = min(float(np.min(p.errors)) for p in dataset.pulsars)
+    largest_scatter = max(float(np.std(p.residuals)) for p in dataset.pulsars)
+    low = np.log10(STRAIN_FLOOR * smallest_error * low_f)
+    high = min(np.log10(STRAIN_CEILING * largest_scatter * 2.0 * high_f), VALID[memory("lg_strain")][1])
+    return prior_module.Uniform(float(low), float(high))
+
+
+def memory_epoch_prior(dataset: Dataset) -> prior_module.Uniform:
+    """Uniform prior on the memory step's epoch (MJD) over the array's window."""
+    return prior_module.Uniform(float(dataset.start_mjd), float(dataset.start_mjd + dataset.span / DAY))
 
 
 def _check_value(key: str, value: float, where: str) -> None:
@@ -275,6 +314,11 @@ class FitModel:
             self.default_priors[binary("lg_strain")] = binary_strain_prior(dataset)
             values.update(self._binary_defaults(dataset, section))
             free += [binary(k) for k in section.binary_free]
+        if section.memory:
+            self.default_priors[memory("lg_strain")] = memory_strain_prior(dataset)
+            self.default_priors[memory("epoch")] = memory_epoch_prior(dataset)
+            values.update(self._memory_defaults(dataset, section))
+            free += [memory(k) for k in section.memory_free]
         self.injected = {k: v for k, v in values.items() if np.isfinite(v) and self._was_injected(k, values)}
 
         known = set(values) | set(self.default_priors)
@@ -380,6 +424,31 @@ class FitModel:
             values.setdefault(binary(k), float(self.default_priors[binary(k)].ppf(0.5)))
         return values
 
+    def _memory_defaults(self, dataset, section):
+        """Fixed memory-step values: the config's, else the dataset's first injected memory step (``[[wave]]``)."""
+        sources = dataset.signals.get("wave", {}).get("sources")
+        values = {}
+        steps = [] if sources is None else [s for s in sources if _text(s["shape"]) == "memory"]
+        if steps:
+            s = steps[0]
+            values = {
+                memory("lg_strain"): float(np.log10(s["amplitude"])),
+                memory("epoch"): float(s["epoch"]),
+                memory("polarization_angle"): float(s["polarization"]),
+                memory("right_ascension"): float(s["ra"]),
+                memory("declination_sine"): float(np.sin(s["dec"])),
+            }
+        for key, value in section.memory_values.items():  # keys checked by FitSection
+            _check_value(memory(key), float(value), f"fit.memory_values.{key}")
+            values[memory(key)] = float(value)
+        missing = [k for k in MEMORY_QUANTITIES if memory(k) not in values and k not in section.memory_free]
+        if missing:
+            raise InputError(f"needs values for {', '.join(missing)} (no injected memory step to take them from)",
+                             "fit.memory_values")
+        for k in section.memory_free:
+            values.setdefault(memory(k), float(self.default_priors[memory(k)].ppf(0.5)))
+        return values
+
     def _prior(self, name: str):
         """The configured prior of this parameter, else of its quantity, else the noise stage's, else the default."""
         kind = quantity(name)
@@ -408,6 +477,22 @@ class FitModel:
         return values
 
     def _signal(self, v):
+        """Residuals of the deterministic signals (a binary, a memory step) at values ``v``, per pulsar, or None."""
+        parts = [part for part in (self._binary_signal(v), self._memory_signal(v)) if part is not None]
+        if len(parts) < 2:
+            return parts[0] if parts else None
+        return [a + b for a, b in zip(*parts)]
+
+    def _memory_signal(self, v):
+        if not self.section.memory:
+            return None
+        step = MemoryStep(10 ** v[memory("lg_strain")], (v[memory("epoch")] - self.dataset.start_mjd) * DAY)
+        dec = float(np.arcsin(np.clip(v[memory("declination_sine")], -1, 1)))
+        return plane_wave_residuals(step, [q.times for q in self.likelihood.pulsars], self._layout.positions,
+                                    self._layout.distances * KPC, v[memory("right_ascension")], dec,
+                                    v[memory("polarization_angle")], pulsar_term=False)
+
+    def _binary_signal(self, v):
         if not self.section.binary:
             return None
         source = Binary(

@@ -10,7 +10,7 @@ per-pulsar quantity without ``@pulsar`` stands for every pulsar's.
 
 from __future__ import annotations
 
-from ptares.inputs.config import BINARY_QUANTITIES, CHROMATIC_QUANTITIES, NOISE_QUANTITIES
+from ptares.inputs.config import BINARY_QUANTITIES, CHROMATIC_QUANTITIES, MEMORY_QUANTITIES, NOISE_QUANTITIES
 
 __all__ = [
     "SEPARATOR",
@@ -34,8 +34,10 @@ __all__ = [
     "CHROMATIC",
     "PER_PULSAR",
     "BINARY_QUANTITIES",
+    "MEMORY_QUANTITIES",
     "LABELS",
     "binary",
+    "memory",
     "for_pulsar",
     "split",
     "quantity",
@@ -109,6 +111,11 @@ def binary(name: str) -> str:
     return f"binary_{name}"
 
 
+def memory(name: str) -> str:
+    """``epoch`` -> ``memory_epoch``: the parameter name of a memory-step quantity."""
+    return f"memory_{name}"
+
+
 def for_pulsar(quantity_name: str, pulsar: str) -> str:
     """``("red_lg_amplitude", "Birch")`` -> ``red_lg_amplitude@Birch``."""
     return f"{quantity_name}{SEPARATOR}{pulsar}"
@@ -150,13 +157,18 @@ LABELS = {
     binary("right_ascension"): r"$\alpha\ (\mathrm{rad})$",
     binary("declination_sine"): r"$\sin\delta$",
     binary("lg_frequency"): r"$\lg(f_\mathrm{GW}\,/\,\mathrm{Hz})$",
+    memory("lg_strain"): r"$\lg h_\mathrm{mem}$",
+    memory("epoch"): r"$t_\mathrm{mem}\ (\mathrm{MJD})$",
+    memory("polarization_angle"): r"$\psi_\mathrm{mem}\ (\mathrm{rad})$",
+    memory("right_ascension"): r"$\alpha_\mathrm{mem}\ (\mathrm{rad})$",
+    memory("declination_sine"): r"$\sin\delta_\mathrm{mem}$",
 }
 
 
 def is_array_signal(name: str) -> bool:
-    """Whether a parameter belongs to a signal shared by the array (the common process, a binary)."""
+    """Whether a parameter belongs to a signal shared by the array (the common process, a binary, a memory step)."""
     return (name in (COMMON_AMPLITUDE, COMMON_INDEX, COMMON_BEND, COMMON_BEND_INDEX) or bin_of(name) is not None
-            or name in {binary(q) for q in BINARY_QUANTITIES})
+            or name in {binary(q) for q in BINARY_QUANTITIES} or name in {memory(q) for q in MEMORY_QUANTITIES})
 
 
 def label(name: str) -> str:

@@ -51,6 +51,7 @@ __all__ = [
     "Config",
     "ContinuousWave",
     "Draw",
+    "PlaneWave",
     "load_config",
     "parse_config",
     "TIMING_TERMS",
@@ -525,6 +526,62 @@ class ContinuousWave(_Section):
         return (self.frequency if self.frequency is not None else 2.0 * self.orbital_frequency) * 1e-9
 
 
+#: Shapes of a ``[[wave]]`` and the keys each needs (``required``) and may take (``optional``) besides the
+#: keys every wave has (name, shape, ra, dec, polarization, pulsar_term).
+WAVE_SHAPES = {
+    "sine_gaussian": {"required": ("epoch", "amplitude", "width", "frequency"), "optional": ("phase", "cross_fraction")},
+    "memory": {"required": ("epoch", "amplitude"), "optional": ("rise_time",)},
+    "table": {"required": ("file",), "optional": ("epoch", "beyond_table", "strain_scale")},
+}
+_WAVE_KEYS = ("epoch", "amplitude", "width", "frequency", "phase", "cross_fraction", "rise_time", "file", "beyond_table",
+              "strain_scale")
+
+
+class PlaneWave(_Section):
+    """One ``[[wave]]``: a plane gravitational wave of any profile from direction ``ra``/``dec``
+    (as for pulsars) with polarisation angle ``polarization`` (rad); ``pulsar_term`` adds the
+    pulsar term at the retarded time (catalogue distances are not used: the true ones are).
+
+    ``shape`` ``"sine_gaussian"``: a burst of strain ``amplitude`` centred at ``epoch`` (MJD),
+    Gaussian envelope of standard deviation ``width`` (days), ``frequency`` (nHz), ``phase``
+    (rad) at the centre and ``cross_fraction`` (the cross polarisation's share, in [-1, 1]).
+    ``"memory"``: a memory step of strain ``amplitude`` at ``epoch`` (MJD) rising over
+    ``rise_time`` (days; 0: sharp).  ``"table"``: ``h+``, ``hx`` from the CSV ``file`` (relative
+    to the config's folder; README: Waves of any shape), times in MJD or, with a unit, from
+    ``epoch``; ``strain_scale`` multiplies both; ``beyond_table`` ``"error"`` (default) refuses
+    times outside the table, ``"hold"`` keeps its end values there.
+    """
+
+    name: Optional[SafeName] = None
+    shape: Literal["sine_gaussian", "memory", "table"]
+    ra: RightAscension
+    dec: Declination
+    polarization: Quantity("rad") = 0.0
+    pulsar_term: bool = True
+    epoch: Optional[Quantity("d", StartRange)] = None
+    amplitude: Optional[Quantity(None, Positive, MaxAmplitude)] = None
+    width: Optional[Quantity("d", Positive)] = None
+    frequency: Optional[Quantity("nHz", NonNegative)] = None
+    phase: Optional[Quantity("rad")] = None
+    cross_fraction: Optional[Quantity(None, AfterValidator(lambda v: _at_least(-1.0)(_at_most(1.0)(v))))] = None
+    rise_time: Optional[Quantity("d", NonNegative)] = None
+    file: Optional[str] = None
+    beyond_table: Optional[Literal["error", "hold"]] = None
+    strain_scale: Optional[Quantity(None, Positive)] = None
+
+    @model_validator(mode="after")
+    def _keys_of_shape(self):
+        wanted = WAVE_SHAPES[self.shape]
+        missing = [k for k in wanted["required"] if getattr(self, k) is None]
+        if missing:
+            raise ValueError(f"a {self.shape} wave needs {', '.join(repr(k) for k in missing)}")
+        unused = [k for k in _WAVE_KEYS if getattr(self, k) is not None and k not in wanted["required"] + wanted["optional"]]
+        if unused:
+            raise ValueError(f"{', '.join(repr(k) for k in unused)} {'is' if len(unused) == 1 else 'are'} not used by "
+                             f"a {self.shape} wave (it takes {', '.join(wanted['required'] + wanted['optional'])})")
+        return self
+
+
 class PulsarNoise(_Section):
     """Per-pulsar overrides in ``[correlate.noise_values.pulsars.<name>]`` (quadrature in microseconds)."""
 
@@ -638,6 +695,10 @@ CHROMATIC_QUANTITIES = ("dispersion_lg_amplitude", "dispersion_spectral_index", 
                         "scattering_spectral_index")
 BINARY_QUANTITIES = ("lg_strain", "orbital_phase", "inclination_cosine", "polarization_angle", "right_ascension",
                      "declination_sine", "lg_frequency")
+#: Quantities of the memory-step fit model; parameter names add ``memory_``: lg of the strain step, its
+#: epoch (MJD), polarisation angle (rad), right ascension (rad) and sin of the declination.
+MEMORY_QUANTITIES = ("lg_strain", "epoch", "polarization_angle", "right_ascension", "declination_sine")
+_MEMORY_ANGLES = ("polarization_angle", "right_ascension")  #: radians
 
 
 class FitSection(_Section):
@@ -687,6 +748,9 @@ class FitSection(_Section):
         "lg_strain", "orbital_phase", "inclination_cosine", "polarization_angle")
     binary_values: dict[Literal[BINARY_QUANTITIES], float] = {}
     binary_pulsar_term: bool = False
+    memory: bool = False
+    memory_free: Annotated[tuple[Literal[MEMORY_QUANTITIES], ...], _listed_once("a quantity")] = MEMORY_QUANTITIES
+    memory_values: dict[Literal[MEMORY_QUANTITIES], float] = {}
 
     @field_validator("binary_values", mode="before")
     @classmethod
@@ -696,6 +760,15 @@ class FitSection(_Section):
             return values
         return {k: to_unit(v, "rad" if k in _BINARY_ANGLES else "") if not isinstance(v, (int, float)) else v
                 for k, v in values.items()}
+
+    @field_validator("memory_values", mode="before")
+    @classmethod
+    def _memory_units(cls, values):
+        """Angles in any angle unit (kept in radians), the epoch an MJD."""
+        if not isinstance(values, dict):
+            return values
+        units = {"epoch": "d", **{k: "rad" for k in _MEMORY_ANGLES}}
+        return {k: to_unit(v, units.get(k, "")) if not isinstance(v, (int, float)) else v for k, v in values.items()}
 
     fixed: dict[str, float] = {}
     priors: dict[str, Prior] = {}
@@ -840,6 +913,7 @@ class Config(_Section):
     timing_model: TimingModel = TimingModel()
     gwb: Optional[Background] = None
     binary: tuple[ContinuousWave, ...] = ()
+    wave: tuple[PlaneWave, ...] = ()
     correlate: CorrelateSection = CorrelateSection()
     fit: FitSection = FitSection()
     compare: CompareSection = CompareSection()
@@ -854,6 +928,7 @@ class Config(_Section):
         # InputError is not wrapped by pydantic: it reaches the caller with its field path
         _check_schedules(self)
         _check_sources(self)
+        _check_waves(self)
         return self
 
     @property
@@ -887,6 +962,10 @@ class Config(_Section):
     def source_name(self, index: int) -> str:
         """The name of ``[[binary]]`` source ``index``: its own, or ``binary<index + 1>``."""
         return self.binary[index].name or f"binary{index + 1}"
+
+    def wave_name(self, index: int) -> str:
+        """The name of ``[[wave]]`` ``index``: its own, or ``wave<index + 1>``."""
+        return self.wave[index].name or f"wave{index + 1}"
 
 
 def _location(loc: tuple, raw: dict) -> str:
@@ -1010,6 +1089,22 @@ def _check_schedules(config: Config) -> None:
                 f"leaves {count} TOAs{name}, not more than the {columns} timing-model columns",
                 where("gaps" if obs.gaps else "span"),
             )
+
+
+def _check_waves(config: Config) -> None:
+    """``[[wave]]`` names are unique, and a burst's frequency is below the cadence's Nyquist frequency."""
+    from ptares.physics.constants import DAY
+
+    names = [config.wave_name(i) for i in range(len(config.wave))]
+    for i, wave in enumerate(config.wave):
+        path = f"wave[{i}] ({names[i]})"
+        if names.count(names[i]) > 1:
+            raise InputError("wave names must be unique", f"{path}.name")
+        if wave.shape == "sine_gaussian" and config.array.table is None:
+            nyquist = 1.0 / (2.0 * min(s.cadence for s in config.schedules()) * DAY)
+            if wave.frequency * 1e-9 > nyquist:
+                raise InputError(f"frequency {wave.frequency:.4g} nHz is above the cadence's Nyquist frequency "
+                                 f"{nyquist * 1e9:.4g} nHz", f"{path}.frequency")
 
 
 def _check_sources(config: Config) -> None:

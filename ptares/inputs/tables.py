@@ -66,7 +66,7 @@ from ptares.inputs.units import parse_dec, parse_ra
 from ptares.limits import MEMORY_LIMIT, NESTING_LIMIT
 from ptares.version import earlier_names
 
-__all__ = ["PulsarRow", "TableArray", "read_tables", "export_tables", "signals_text", "read_signals"]
+__all__ = ["PulsarRow", "TableArray", "read_tables", "export_tables", "signals_text", "read_signals", "WaveTable", "read_wave_table"]
 
 _UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "ns": 1e-9}
 _NOISE = {"white_scale": 1.0, "white_quadrature_s": 1.0, "red_amplitude": 1.0, "red_spectral_index": 1.0, "true_distance_kpc": 1.0}
@@ -801,3 +801,69 @@ def read_signals(path) -> dict:
     if note:
         raise InputError(f"written by an earlier ptares ({note}); export the dataset again", where)
     return signals
+
+
+# --- wave profiles ---------------------------------------------------------------
+
+#: Time columns of a wave-profile table: absolute MJD (days), or a duration from the wave's ``epoch``.
+WAVE_TIME_COLUMNS = {"mjd": None, "time_s": 1.0, "time_d": 86400.0, "time_yr": 365.25 * 86400.0}
+#: Fewest rows a wave-profile table may have (a cubic spline and its error estimate need them).
+MIN_WAVE_ROWS = 8
+
+
+@dataclass
+class WaveTable:
+    """A wave profile read from CSV: ``times`` (MJD when ``relative`` is false, else seconds from the wave's
+    epoch), and the dimensionless strains ``plus`` and ``cross``."""
+
+    times: np.ndarray
+    plus: np.ndarray
+    cross: np.ndarray
+    relative: bool
+
+
+def read_wave_table(path) -> WaveTable:
+    """A wave profile: one row per time, columns ``mjd`` (or ``time_s``, ``time_d``, ``time_yr`` from the wave's
+    epoch), ``plus`` and ``cross`` (dimensionless strain, no unit suffix); times strictly increasing, every value
+    finite, at least :data:`MIN_WAVE_ROWS` rows.  Every fault is one :class:`InputError` naming the file, the row
+    and the column."""
+    path = Path(path)
+    header, rows = _rows(path)
+    where = str(path)
+    times = [h for h in header if h in WAVE_TIME_COLUMNS]
+    if len(times) > 1:
+        raise InputError(f"has several time columns: {', '.join(times)} (give one)", where)
+    if not times:
+        near = [h for h in header if h.startswith("time")]
+        if near:
+            unit = near[0].partition("_")[2] or "none"
+            raise InputError(f"column {_column_label(near[0])}: unit {unit!r} is not a time unit (write mjd, time_s, "
+                             "time_d or time_yr)", where)
+        raise InputError("has no time column (expected mjd, time_s, time_d or time_yr)", where)
+    for stem in ("plus", "cross"):
+        if stem not in header:
+            suffixed = [h for h in header if h.startswith(stem + "_")]
+            if suffixed:
+                raise InputError(f"column {_column_label(suffixed[0])}: strain is dimensionless; name the column "
+                                 f"{stem!r}, without a unit", where)
+            raise InputError(f"has no {stem} column (the {stem} polarisation's strain)", where)
+    column = times[0]
+    values = {column: [], "plus": [], "cross": []}
+    previous = None
+    for number, row in rows:
+        for key in values:
+            values[key].append(_number(path, number, key, row[key]))
+        if previous is not None and not values[column][-1] > previous:
+            raise InputError(f"row {number}, column {column}: {row[column]} is not after the row before "
+                             "(times must increase)", where)
+        previous = values[column][-1]
+        if len(values[column]) > MAX_TOAS:
+            raise InputError(f"has more than {MAX_TOAS} rows", where)
+    if len(values[column]) < MIN_WAVE_ROWS:
+        raise InputError(f"has {len(values[column])} rows; a wave profile needs at least {MIN_WAVE_ROWS}", where)
+    scale = WAVE_TIME_COLUMNS[column]
+    plus, cross = (np.array(values[k]) for k in ("plus", "cross"))
+    if np.max(np.abs(np.concatenate([plus, cross]))) > 1e-9:
+        raise InputError("a strain above 1e-9 (residuals beyond a second): is the column in strain?", where)
+    stamps = np.array(values[column])
+    return WaveTable(stamps if scale is None else stamps * scale, plus, cross, relative=scale is not None)

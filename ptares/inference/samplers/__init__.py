@@ -19,14 +19,15 @@ GIBBS_ABOVE = 20
 
 
 def choose_sampler(model) -> str:
-    """``"ensemble"`` or ``"gibbs"``: the configured one, or by the number of parameters (continuous waves, and
+    """``"ensemble"`` or ``"gibbs"``: the configured one, or by the number of parameters (continuous waves, memory steps, and
     free jitter or white noise beside jitter or per observing system: ensemble, which has no Gibbs step yet)."""
     chosen = model.section.sampler
     if chosen != "auto":
         return chosen
     from ptares.inference.samplers.gibbs import gibbs_can_sample
 
-    gibbs = model.ndim > GIBBS_ABOVE and not model.section.binary and gibbs_can_sample(model)
+    gibbs = (model.ndim > GIBBS_ABOVE and not (model.section.binary or model.section.memory)
+             and gibbs_can_sample(model))
     return "gibbs" if gibbs else "ensemble"
 
 

@@ -226,5 +226,6 @@ def summarise(model, run: FitRun) -> dict:
         "adaptation": int(run.adaptation),
         "thin": model.section.thin,
         "model": {"common": model.section.common, "red": model.red_mode, "white": model.section.white,
-                  "binary": model.section.binary, "harmonics": model.harmonics},
+                  "binary": model.section.binary, "memory": model.section.memory,
+                  "harmonics": model.harmonics},
     }

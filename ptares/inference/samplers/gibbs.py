@@ -142,9 +142,9 @@ class GibbsSampler:
     """Blocked Gibbs sampler of a :class:`~ptares.inference.model.FitModel` without a continuous wave."""
 
     def __init__(self, model):
-        if model.section.binary:
-            raise InputError("the Gibbs sampler has no step for a continuous wave; use sampler = \"ensemble\"",
-                             "fit.sampler")
+        if model.section.binary or model.section.memory:
+            raise InputError("the Gibbs sampler has no step for a continuous wave or a memory step; use "
+                             "sampler = \"ensemble\"", "fit.sampler")
         if not gibbs_can_sample(model):
             raise InputError("the Gibbs sampler has no step for free white noise per observing system or epoch jitter "
                              "yet; hold them (white = \"injected\", jitter = \"injected\") or use sampler = \"ensemble\"",

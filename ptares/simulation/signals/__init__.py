@@ -9,7 +9,7 @@ one line to :data:`BUILDERS`.
 
 from __future__ import annotations
 
-from ptares.simulation.signals import background, chromatic, continuous, red, white
+from ptares.simulation.signals import background, chromatic, continuous, red, waves, white
 from ptares.simulation.signals.base import Component, Context
 
 __all__ = ["BUILDERS", "build_components", "Component", "Context"]
@@ -23,6 +23,7 @@ BUILDERS = {
     "chromatic": chromatic.from_config,
     "gwb": background.from_config,
     "binary": continuous.from_config,
+    "wave": waves.from_config,
 }
 
 
