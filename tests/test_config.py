@@ -183,7 +183,8 @@ def test_random_array_is_isotropic():
     assert np.mean(vectors[:, 2] ** 2) == pytest.approx(1 / 3, abs=4 * np.sqrt(4 / 45 / 4000))
 
 
-@pytest.mark.parametrize("name", ["demo.toml", "random-array.toml", "binaries.toml", "multiband.toml"])
+@pytest.mark.parametrize("name", ["demo.toml", "random-array.toml", "binaries.toml", "multiband.toml", "waves.toml",
+                                  "memory.toml"])
 def test_shipped_configs_are_valid(name):
     from pathlib import Path
 

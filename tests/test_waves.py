@@ -15,7 +15,7 @@ from ptares.inference.model import FitModel
 from ptares.inference.samplers import run_sampler
 from ptares.inference.samplers.chains import posterior_draws, summarise
 from ptares.inputs.config import FitSection, parse_config
-from ptares.physics.constants import C, DAY, KPC, YEAR
+from ptares.physics.constants import C, KPC, YEAR
 from ptares.physics.sky import antenna_patterns, unit_vector
 from ptares.physics.waveforms import (
     MemoryStep,

@@ -225,7 +225,7 @@ def sky_figure(dataset: Dataset):
     Each pulsar is a dot coloured by its median TOA uncertainty and sized by its number of TOAs; up to
     :data:`MAX_SKY_NAMES` pulsars are named.  The right-ascension hours are written small and grey on
     the equator, the declinations at the left edge; names (white-outlined) and the names of injected
-    continuous-wave sources (stars) are placed around their points where they cover none of these
+    continuous-wave sources (stars) and waves (diamonds) are placed around their points where they cover none of these
     labels, and as few other names and points as can be.
     """
     ra = np.array([p.ra for p in dataset.pulsars])
@@ -247,15 +247,18 @@ def sky_figure(dataset: Dataset):
     ax.grid(alpha=0.35)
     names = []  # (text, longitude, latitude, marker radius in points, text style)
     markers = [(x, y, 0.5 * np.sqrt(s)) for x, y, s in zip(longitude, dec, size)]  # radii in points
-    binary = dataset.signals.get("binary")
-    if binary is not None and "sources" in binary:
-        sources = binary["sources"]
+    for component, marker, size, what in (("binary", "*", 160, "continuous-wave sources"),
+                                          ("wave", "D", 60, "wave sources (bursts, memory, tables)")):
+        signal = dataset.signals.get(component)
+        if signal is None or "sources" not in signal:
+            continue
+        sources = signal["sources"]
         x = -np.angle(np.exp(1j * sources["ra"]))
-        ax.scatter(x, sources["dec"], marker="*", s=160, color=COMPONENT_COLOURS["binary"], edgecolor="k", linewidth=0.5,
-                   zorder=4, label="continuous-wave sources")
+        ax.scatter(x, sources["dec"], marker=marker, s=size, color=COMPONENT_COLOURS[component], edgecolor="k",
+                   linewidth=0.5, zorder=4, label=what)
         for name, xs, ys in zip(sources["name"], x, sources["dec"]):
             label = name.decode() if isinstance(name, bytes) else str(name)
-            names.append((label, xs, ys, 6.0, {"fontsize": 7, "color": COMPONENT_COLOURS["binary"], "gid": "source-name"}))
+            names.append((label, xs, ys, 6.0, {"fontsize": 7, "color": COMPONENT_COLOURS[component], "gid": "source-name"}))
             markers.append((xs, ys, 6.0))
         ax.legend(loc="lower right", fontsize=7)
     if len(dataset.pulsars) <= MAX_SKY_NAMES:

@@ -124,6 +124,13 @@ def binary_frequency_prior(dataset: Dataset) -> prior_module.Uniform:
 STRAIN_FLOOR, STRAIN_CEILING = 1e-3, 10.0
 
 
+def _largest_scatter(dataset: Dataset) -> float:
+    """The largest residual standard deviation of the array's pulsars; the largest TOA error where every residual
+    is zero (a schedule checked before it is simulated)."""
+    scatter = max(float(np.std(p.residuals)) for p in dataset.pulsars)
+    return scatter if scatter > 0 else max(float(np.max(p.errors)) for p in dataset.pulsars)
+
+
 def binary_strain_prior(dataset: Dataset) -> prior_module.Uniform:
     """Uniform prior on lg h0 from binaries that are invisible to binaries that dominate the data.
 
@@ -136,7 +143,7 @@ def binary_strain_prior(dataset: Dataset) -> prior_module.Uniform:
     """
     low_f, high_f = _frequency_range(dataset)
     smallest_error = min(float(np.min(p.errors)) for p in dataset.pulsars)
-    largest_scatter = max(float(np.std(p.residuals)) for p in dataset.pulsars)
+    largest_scatter = _largest_scatter(dataset)
     low = np.log10(2.0 * np.pi * low_f * STRAIN_FLOOR * smallest_error)
     high = min(np.log10(2.0 * np.pi * high_f * STRAIN_CEILING * largest_scatter), VALID[binary("lg_strain")][1])
     return prior_module.Uniform(float(low), float(high))
@@ -157,7 +164,7 @@ def memory_strain_prior(dataset: Dataset) -> prior_module.Uniform:
     """
     low_f, high_f = _frequency_range(dataset)  # 1/T, and 1/(2 x finest cadence)
     smallest_error = min(float(np.min(p.errors)) for p in dataset.pulsars)
-    largest_scatter = max(float(np.std(p.residuals)) for p in dataset.pulsars)
+    largest_scatter = _largest_scatter(dataset)
     low = np.log10(STRAIN_FLOOR * smallest_error * low_f)
     high = min(np.log10(STRAIN_CEILING * largest_scatter * 2.0 * high_f), VALID[memory("lg_strain")][1])
     return prior_module.Uniform(float(low), float(high))
