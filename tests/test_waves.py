@@ -328,3 +328,26 @@ def test_campaign_axes_reach_into_waves():
         expand(base, SweepSection(axes={"wave.1.amplitude": [1e-14]}))
     with pytest.raises(InputError, match="sweep.axes.wave.0.amplitude: value -1.0"):
         expand(base, SweepSection(axes={"wave.0.amplitude": [-1.0]}))
+
+
+def test_relative_times_equal_mjds_and_a_coarse_table_is_warned_of(tmp_path):
+    """The same profile given as durations from ``epoch`` (time_d) or as MJDs gives the same residuals; a table
+    sampled about four times a cycle gets a warning naming its interpolation error."""
+    from ptares.errors import PhysicsWarning
+    from ptares.inputs.config import load_config
+
+    rows = _profile_rows()
+    (tmp_path / "profile.csv").write_text("\n".join(rows) + "\n")
+    relative = ["time_d,plus,cross"] + [f"{float(r.split(',')[0]) - 52900.0!r},{r.split(',', 1)[1]}" for r in rows[1:]]
+    (tmp_path / "days.csv").write_text("\n".join(relative) + "\n")
+    (tmp_path / "a.toml").write_text(WAVE_TOML.format(extra=""))
+    (tmp_path / "b.toml").write_text(WAVE_TOML.format(extra="epoch = 52900").replace("profile.csv", "days.csv"))
+    first, second = (simulate(load_config(tmp_path / name)) for name in ("a.toml", "b.toml"))
+    for p, q in zip(first.pulsars, second.pulsars):
+        np.testing.assert_allclose(p.injected["wave"], q.injected["wave"], rtol=1e-12, atol=1e-20)
+
+    mjd = np.arange(52900.0, 55300.0, 25.0)  # a 100-day period sampled every 25 days
+    coarse = ["mjd,plus,cross"] + [f"{float(m)!r},{float(1e-14 * np.sin(2 * np.pi * m / 100.0))!r},0.0" for m in mjd]
+    (tmp_path / "profile.csv").write_text("\n".join(coarse) + "\n")
+    with pytest.warns(PhysicsWarning, match=r"wave\[0\] \(Table\).file: interpolating the table leaves errors up to"):
+        simulate(load_config(tmp_path / "a.toml"))
