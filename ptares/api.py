@@ -969,6 +969,9 @@ def sweep(config, out, *, workers: int = 1, scheduler=None, overwrite: bool = Fa
         base = raw.get("sweep", {}).get("base") if isinstance(raw.get("sweep"), Mapping) else None
         if isinstance(base, (str, os.PathLike)) and not Path(base).is_absolute():
             raw["sweep"]["base"] = str(Path(base).resolve())  # a dict's files are relative to the working folder
+        for wave in raw.get("wave", []) if isinstance(raw.get("wave"), list) else []:  # a wave's table, likewise
+            if isinstance(wave, Mapping) and isinstance(wave.get("file"), (str, os.PathLike)) and not Path(wave["file"]).is_absolute():
+                wave["file"] = str(Path(wave["file"]).resolve())
         from ptares.campaign.tasks import expand, sweep_from_data
 
         base_raw, section = sweep_from_data(raw, Path.cwd(), "config")

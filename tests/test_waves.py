@@ -290,8 +290,11 @@ def test_memory_model_reproduces_the_injection():
     model = FitModel(data, FitSection(common="none", red="none", memory=True))
     for p, s in zip(data.pulsars, model._signal(model.values)):
         np.testing.assert_allclose(s, p.injected["wave"], rtol=0, atol=1e-9 * np.abs(p.injected["wave"]).max())
-    assert model.names == ["memory_lg_strain", "memory_epoch", "memory_polarization_angle", "memory_right_ascension",
-                           "memory_declination_sine"]
+    assert model.names == ["memory_lg_strain", "memory_epoch"]  # the default; direction and polarisation held
+    every = FitModel(data, FitSection(common="none", red="none", memory=True,
+                                      memory_free=("lg_strain", "epoch", "polarization_angle", "right_ascension",
+                                                   "declination_sine")))
+    assert every.names[2:] == ["memory_polarization_angle", "memory_right_ascension", "memory_declination_sine"]
 
 
 def test_memory_fit_recovers_strain_and_epoch(tmp_path):
@@ -351,3 +354,86 @@ def test_relative_times_equal_mjds_and_a_coarse_table_is_warned_of(tmp_path):
     (tmp_path / "profile.csv").write_text("\n".join(coarse) + "\n")
     with pytest.warns(PhysicsWarning, match=r"wave\[0\] \(Table\).file: interpolating the table leaves errors up to"):
         simulate(load_config(tmp_path / "a.toml"))
+
+
+def test_the_error_estimate_is_conservative_for_kinked_profiles():
+    """A sharp memory step (a kink in the residual, where the spline converges only as dt or dt^2) and a smooth
+    burst, each sampled at several spacings: the estimate is never below the error against the closed form, and
+    at most five times it."""
+    pulsar, times = POSITIONS[:1], [np.linspace(0.0, 3e8, 3000)]
+
+    def residuals(profile):
+        return plane_wave_residuals(profile, times, pulsar, [KPC], 0.5, 0.5, 0.0, pulsar_term=False)
+
+    for profile in (MemoryStep(1e-14, 1.234e8), MemoryStep(1e-14, 1.234e8, 3e6), SineGaussian(1e-14, 1.5e8, 2e7, 3e-8)):
+        for step in (4e6, 1e6):
+            table = sample_profile(profile, -1e7, 3.1e8, step, hold=True)
+            actual = np.abs(residuals(table)[0] - residuals(profile)[0]).max()
+            assert actual <= table.error_estimate(residuals) <= 5 * actual
+
+
+def test_a_source_on_a_pulsar_gives_no_warning_and_no_residual():
+    """A wave from exactly a pulsar's direction: that pulsar's Earth and pulsar terms cancel, it gets zero (no
+    0/0 warning), the others are untouched."""
+    import warnings
+
+    ra, dec = np.arctan2(POSITIONS[0, 1], POSITIONS[0, 0]), np.arcsin(POSITIONS[0, 2])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        residuals = plane_wave_residuals(MemoryStep(1e-14, 1e8), TIMES, POSITIONS, np.full(5, KPC), ra, dec, 0.3)
+    assert not residuals[0].any() and all(r.any() for r in residuals[1:])
+
+
+def test_a_step_after_the_last_toa_is_warned_of():
+    from ptares.errors import PhysicsWarning
+
+    config = small_config(gwb=None, wave=[{"shape": "memory", "epoch": 60000.0, "amplitude": 1e-14, "ra": 1.0,
+                                           "dec": 2.0, "pulsar_term": False}])
+    with pytest.warns(PhysicsWarning, match=r"wave\[0\] \(wave1\).epoch: the memory at MJD 60000 lies after the last TOA"):
+        data = simulate(config)
+    assert not any(p.injected["wave"].any() for p in data.pulsars)
+
+
+@pytest.mark.parametrize("extra, rows, words", [
+    ("strain_scale = 1e6", None, "wave[0] (Table).strain_scale: scales the table's largest strain to 1e-08"),
+    ("epoch = 53000", None, "wave[0] (Table).epoch: the table's times are MJDs (column mjd): drop 'epoch'"),
+    ("", lambda r: ["time_d,plus,cross"] + r[1:], "wave[0] (Table).epoch: the table's times are durations"),
+])
+def test_table_keys_that_do_not_fit_the_table_are_one_line(tmp_path, capsys, extra, rows, words):
+    table = _profile_rows()
+    (tmp_path / "profile.csv").write_text("\n".join(rows(table) if rows else table) + "\n")
+    config = tmp_path / "wave.toml"
+    config.write_text(WAVE_TOML.format(extra=extra))
+    assert main(["simulate", str(config), "--out", str(tmp_path / "out"), "--no-figures"]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and words in err, err
+
+
+def test_a_campaign_finds_its_wave_table_from_any_folder(tmp_path, monkeypatch):
+    """Task configs read their files relative to the sweep file, wherever the campaign is started; an axis
+    into an array of tables that the base config lacks is refused."""
+    from ptares.campaign.sweep import run_sweep
+    from ptares.campaign.tasks import expand
+    from ptares.inputs.config import SweepSection
+
+    folder = tmp_path / "campaign"
+    folder.mkdir()
+    (folder / "profile.csv").write_text("\n".join(_profile_rows()) + "\n")
+    sweep = WAVE_TOML.format(extra="") + """
+[correlate]
+scrambles = 0
+phase_shifts = 0
+fit_trials = 0
+[sweep]
+realisations = 1
+[sweep.axes]
+"wave.0.strain_scale" = [1.0, 2.0]
+"""
+    (folder / "sweep.toml").write_text(sweep)
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    monkeypatch.chdir(elsewhere)
+    rows = run_sweep(folder / "sweep.toml", tmp_path / "out", workers=1, progress=False)
+    assert [r["status"] for r in rows] == ["ok", "ok"], [r.get("error") for r in rows]
+    with pytest.raises(InputError, match="sweep.axes.wave.0.amplitude: '0' picks an entry of an array of tables"):
+        expand({"array": {"random": {"count": 3}}}, SweepSection(axes={"wave.0.amplitude": [1e-14]}))

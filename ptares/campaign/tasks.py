@@ -23,6 +23,7 @@ from ptares.errors import InputError
 from ptares.inference.parameters import COMMON_AMPLITUDE, COMMON_INDEX, memory
 from ptares.inputs.config import (
     Config,
+    config_from_data,
     SweepSection,
     merge_tables,
     message_for,
@@ -60,6 +61,7 @@ class Task:
     values: tuple  #: ((dotted key, value), ...) of this task's axes
     raw: dict  #: the task's complete config, as TOML-like data
     stages: tuple
+    folder: str = ""  #: the sweep file's folder, absolute: the task config's files are relative to it
 
 
 def _set(raw: dict, dotted: str, value) -> None:
@@ -73,6 +75,9 @@ def _set(raw: dict, dotted: str, value) -> None:
                 raise InputError(f"{part!r} is not an entry of the {len(node)} tables there (count from 0)",
                                  f"sweep.axes.{dotted}")
             node = node[int(part)]
+        elif part.isdigit():
+            raise InputError(f"{part!r} picks an entry of an array of tables, but there is none here (give the "
+                             "tables in the base config)", f"sweep.axes.{dotted}")
         else:
             node = node.setdefault(part, {})
         if not isinstance(node, (dict, list)):
@@ -116,9 +121,12 @@ MAX_TASKS = 1_000_000
 FULL_CHECK = 2000
 
 
-def expand(base: dict, section: SweepSection, where: str = "sweep") -> list:
+def expand(base: dict, section: SweepSection, where: str = "sweep", folder=None) -> list:
     """Every task of the sweep, in index order.  Every combination of axis values is validated first: a task
-    config that would fail (an unknown axis key, a value out of range) is an error naming the axis."""
+    config that would fail (an unknown axis key, a value out of range) is an error naming the axis.  ``folder``:
+    the sweep file's folder, which the files a task config names (a wave's table) are relative to, wherever
+    the task runs (default: the working folder)."""
+    folder = str(Path(folder if folder is not None else Path.cwd()).resolve())
     keys = list(section.axes)
     if "run.seed" in keys:
         raise InputError("run.seed cannot be an axis: task seeds derive from [sweep] seed", f"{where}.axes")
@@ -147,7 +155,7 @@ def expand(base: dict, section: SweepSection, where: str = "sweep") -> list:
             seed = derive_seed(section.seed, index)
             task_raw = copy.deepcopy(raw)
             task_raw.setdefault("run", {})["seed"] = seed
-            tasks.append(Task(index, r, seed, tuple(zip(keys, combination)), task_raw, section.stages))
+            tasks.append(Task(index, r, seed, tuple(zip(keys, combination)), task_raw, section.stages, folder))
     return tasks
 
 
@@ -238,7 +246,7 @@ def run_task(task: Task) -> dict:
     row = {"index": task.index, "realisation": task.realisation, "seed": task.seed}
     row.update({f"axis:{key}": value for key, value in task.values})
     try:
-        config = Config.model_validate(task.raw)
+        config = config_from_data(task.raw, "config", Path(task.folder or Path.cwd()) / "sweep.toml")
         data = simulate(config)
         gwb = data.signals.get("gwb", {})
         row.update(injected_amplitude=float(gwb.get("amplitude", 0.0)), injected_spectral_index=gwb.get("spectral_index"),

@@ -710,7 +710,9 @@ class FitSection(_Section):
     ``red_harmonics`` frequencies; ``white``: ``"injected"`` or ``"free"``;
     ``binary``: fit a continuous wave from one binary, with the quantities in
     ``binary_free`` free and the rest from ``binary_values`` (else the dataset's
-    first injected source).  ``fixed`` pins any parameter to a value; ``priors``
+    first injected source).  ``memory``: fit a sharp memory step seen at the Earth, with the quantities in
+    ``memory_free`` (strain and epoch by default) free and the rest from ``memory_values`` (else the dataset's
+    first injected memory step).  ``fixed`` pins any parameter to a value; ``priors``
     replaces default priors (keys are parameter names, or a per-pulsar quantity
     without ``@pulsar``, e.g. ``red_lg_amplitude``, for every pulsar; see
     :mod:`ptares.inference.parameters`).  ``sampler``: ``"ensemble"`` (emcee),
@@ -749,7 +751,7 @@ class FitSection(_Section):
     binary_values: dict[Literal[BINARY_QUANTITIES], float] = {}
     binary_pulsar_term: bool = False
     memory: bool = False
-    memory_free: Annotated[tuple[Literal[MEMORY_QUANTITIES], ...], _listed_once("a quantity")] = MEMORY_QUANTITIES
+    memory_free: Annotated[tuple[Literal[MEMORY_QUANTITIES], ...], _listed_once("a quantity")] = ("lg_strain", "epoch")
     memory_values: dict[Literal[MEMORY_QUANTITIES], float] = {}
 
     @field_validator("binary_values", mode="before")

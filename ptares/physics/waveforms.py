@@ -16,14 +16,16 @@ and every profile here is a pair of antiderivatives.  Three kinds:
 
 * :class:`TabulatedProfile`: samples of ``h+``, ``hx`` (a table from elsewhere), interpolated by
   cubic splines whose antiderivatives are exact, so the residual is the redshift of the
-  interpolated profile integrated without further error.  The interpolation error of a cubic
-  spline with knot spacing ``dt`` is at most ``(5/384) dt^4 max|h''''|`` (de Boor, *A Practical
-  Guide to Splines*, 2001, ch. V; from memory), so for a sinusoid of frequency ``f`` the residual's
-  relative error is about ``(5/384)(2 pi f dt)^4`` (1e-4 at twenty samples a cycle).
-  :meth:`TabulatedProfile.error_estimate` measures it for the table at hand: the residuals from
-  every other sample differ from the full table's by about 2^4 = 16 times the full table's
-  error, so a fifteenth of that difference estimates it (Richardson; the tests check the
-  estimate against closed forms).
+  interpolated profile integrated without further error.  A cubic spline with knot spacing
+  ``dt`` interpolates a smooth profile to about ``(5/384) dt^4 max|h''''|`` (the bound for a
+  spline given its exact end slopes: Hall & Meyer 1976, J. Approx. Theory 16, 105; from memory;
+  scipy's not-a-knot ends, which need no slopes, reach about twice that within a few samples of
+  the table's ends and a fifth of it inside), so for a sinusoid of frequency ``f`` the
+  residual's relative error is of order ``(5/384)(2 pi f dt)^4`` (1e-4 at twenty samples a
+  cycle).  A profile with kinks or steps converges more slowly, as ``dt`` or ``dt^2``.
+  :meth:`TabulatedProfile.error_estimate` measures the error of the table at hand by
+  Richardson's rule over three spacings, which also measures how fast it falls (the tests
+  check the estimate against closed forms, smooth and kinked).
 * :class:`SineGaussian`: ``h+ = A g(t) cos(2 pi f (t - t0) + phi)``, ``hx = e A g(t) sin(...)``,
   ``g = exp(-(t - t0)^2 / (2 w^2))``; its antiderivative is closed-form through the Faddeeva
   function (:func:`scipy.special.wofz`; the Gaussian integral with a complex shift).
@@ -49,7 +51,7 @@ from ptares.physics.sky import antenna_patterns, unit_vector
 __all__ = ["TabulatedProfile", "SineGaussian", "MemoryStep", "OutsideTable", "sample_profile", "plane_wave_residuals",
            "retarded_delays", "geometry"]
 
-#: Knot spacing relative error estimate: the spline's error falls as dt^4, halving the knots multiplies it by 16.
+#: Largest Richardson divisor: for a smooth profile the error falls as dt^4, 16 times for each halving of dt.
 _RICHARDSON = 15.0
 
 
@@ -113,19 +115,27 @@ class TabulatedProfile:
             values.append(value)
         return tuple(values)
 
-    def coarse(self) -> "TabulatedProfile":
-        """The same profile from every other sample (the last kept), for :meth:`error_estimate`."""
-        keep = np.unique(np.append(np.arange(0, self.times.size, 2), self.times.size - 1))
+    def coarse(self, step: int = 2) -> "TabulatedProfile":
+        """The same profile from every ``step``-th sample (the last kept), for :meth:`error_estimate`."""
+        keep = np.unique(np.append(np.arange(0, self.times.size, step), self.times.size - 1))
         return TabulatedProfile(self.times[keep], self.plus[keep], self.cross[keep], hold=self.hold)
 
     def error_estimate(self, residuals_of) -> float:
         """Estimated largest error (s) of the residuals ``residuals_of(profile)`` (a callable returning a list of
-        arrays) due to interpolating this table: the largest difference from the coarse table's, over 15."""
-        if self.times.size < 8:
-            return float("nan")
-        fine, coarse = residuals_of(self), residuals_of(self.coarse())
-        worst = max((float(np.max(np.abs(a - b))) for a, b in zip(fine, coarse) if a.size), default=0.0)
-        return worst / _RICHARDSON
+        arrays) due to interpolating this table, by Richardson's rule over the tables of every sample, every
+        other and every fourth.  With ``d1``, ``d2`` the largest changes from one to the next, the error falls
+        by ``q = d2 / d1`` each time the spacing halves, so the full table's is ``d1 / (q - 1)``: ``q`` is 16 for
+        a smooth profile (``d1 / 15``), smaller for one with kinks or steps; from ``q < 2`` (no convergence to
+        speak of) the change ``d1`` itself is returned, and so it is for tables of fewer than 16 samples."""
+        def change(a, b):
+            return max((float(np.max(np.abs(x - y))) for x, y in zip(a, b) if x.size), default=0.0)
+
+        fine, half = residuals_of(self), residuals_of(self.coarse(2))
+        d1 = change(fine, half)
+        if self.times.size < 16 or d1 == 0.0:
+            return d1
+        ratio = change(half, residuals_of(self.coarse(4))) / d1
+        return d1 / min(max(ratio - 1.0, 1.0), _RICHARDSON)
 
 
 @dataclass(frozen=True)
@@ -203,9 +213,12 @@ def sample_profile(profile, start: float, stop: float, step: float, hold: bool =
 
 def geometry(positions, ra: float, dec: float, polarization: float):
     """``(F+, Fx)`` of pulsars at unit vectors ``positions`` (P, 3) for a wave from ``(ra, dec)`` with polarisation
-    angle ``polarization`` (rad); zero for a pulsar exactly behind the source, where Earth and pulsar terms cancel."""
+    angle ``polarization`` (rad); zero for a pulsar exactly behind the source (within 1e-12 in ``1 - s.p``), where
+    the Earth and pulsar terms cancel.  (Without the pulsar term the Earth term alone has no limit there, since
+    ``F+ -> cos 2 phi`` depends on the direction of approach; such a pulsar gets none.)"""
     positions = np.atleast_2d(np.asarray(positions, dtype=float))
-    fplus, fcross = antenna_patterns(positions, ra, dec, polarization)
+    with np.errstate(divide="ignore", invalid="ignore"):  # 0/0 for a pulsar behind the source, masked below
+        fplus, fcross = antenna_patterns(positions, ra, dec, polarization)
     behind = 1.0 - positions @ unit_vector(ra, dec) < 1e-12
     return np.where(behind, 0.0, fplus), np.where(behind, 0.0, fcross)
 

@@ -33,6 +33,11 @@ __all__ = ["Wave", "PlaneWaves", "from_config", "wave_residuals"]
 
 #: Interpolation error, as a share of the wave's residual scatter, above which a table draws a warning.
 COARSE_TABLE = 0.01
+#: Largest strain a table may reach after its ``strain_scale`` (as the config's amplitudes: residuals beyond a
+#: second are surely a typo).
+MAX_STRAIN = 1e-9
+#: A burst this many envelope widths away from the TOAs leaves nothing in them (e^-32 of its peak).
+FAR_WIDTHS = 8.0
 
 
 @dataclass(frozen=True)
@@ -99,6 +104,24 @@ def _coverage_fault(wave, profile, times, positions, distances, start) -> str:
     return words + '; give a longer table, or beyond_table = "hold" for a wave that is settled at both ends'
 
 
+def _warn_if_outside(wave: Wave, context: Context) -> None:
+    """A warning when a burst or memory step leaves no Earth-term residual in the TOAs: a step after the last TOA,
+    a burst more than :data:`FAR_WIDTHS` widths before the first or after the last."""
+    if wave.shape == "table":
+        return
+    observations = context.observations
+    last = max((observations.mjd[i].max() for i in range(len(context.pulsars)) if observations.mjd[i].size),
+               default=observations.start)
+    reach = FAR_WIDTHS * wave.width / DAY if wave.shape == "sine_gaussian" else 0.0
+    after = wave.epoch - reach > last
+    before = wave.shape == "sine_gaussian" and wave.epoch + reach < observations.start
+    if after or before:
+        where = "after the last TOA" if after else "before the first epoch"
+        warnings.warn(f"{wave.where}.epoch: the {wave.shape.replace('_', '-')} at MJD {wave.epoch:.6g} lies {where} "
+                      f"(MJD {observations.start:.6g} to {last:.6g}); its Earth term leaves nothing in the residuals",
+                      PhysicsWarning, stacklevel=3)
+
+
 @dataclass(frozen=True)
 class PlaneWaves:
     waves: tuple
@@ -107,6 +130,7 @@ class PlaneWaves:
     def draw(self, context: Context) -> list[np.ndarray]:
         total = [np.zeros(context.observations.times(i).size) for i in range(len(context.pulsars))]
         for wave in self.waves:
+            _warn_if_outside(wave, context)
             for a, r in enumerate(wave_residuals(wave, context)):
                 total[a] += r
         return total
@@ -161,6 +185,13 @@ def from_config(config, pulsars):
             if table.relative and entry.epoch is None:
                 raise InputError("the table's times are durations (time_s, time_d or time_yr): give 'epoch', the MJD "
                                  "they count from, or an mjd column", f"{where}.epoch")
+            if not table.relative and entry.epoch is not None:
+                raise InputError("the table's times are MJDs (column mjd): drop 'epoch', or give durations (time_s, "
+                                 "time_d, time_yr) counted from it", f"{where}.epoch")
+            peak = (entry.strain_scale or 1.0) * float(np.max(np.abs(np.concatenate([table.plus, table.cross]))))
+            if peak > MAX_STRAIN:
+                raise InputError(f"scales the table's largest strain to {peak:.3g}, above {MAX_STRAIN:g} (residuals "
+                                 "beyond a second): surely a typo", f"{where}.strain_scale")
             values.update(file=str(entry.file), hold=entry.beyond_table == "hold", strain_scale=entry.strain_scale or 1.0,
                           table=table)
         waves.append(Wave(**values))
