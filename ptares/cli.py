@@ -118,16 +118,19 @@ def _fit(args) -> int:
                              for key, value in entry["parameters"].items())
             print(f"  {name.replace('_', ' ')} refitted from the free spectrum: {text} (68%)")
         print(f"wrote {result.out / 'spectrum.json'}, spectrum.png")
-    common = summary.get("common_process") or {}
-    if common:
-        limit, evidence = common["upper_limit"], common["savage_dickey"]
+    for key, what, symbol in (("common_process", "common process", "A"), ("memory_step", "memory step", "h")):
+        entry = summary.get(key) or {}
+        if not entry:
+            continue
+        limit, evidence = entry["upper_limit"], entry["savage_dickey"]
         error = f" +/- {limit['error']:.2g}" if limit.get("error") is not None else ""
-        print(f"  95% upper limit: lg A < {limit['value']:.3f}{error} (A < {limit['amplitude']:.3g}; it depends on the prior)")
+        print(f"  95% upper limit: lg {symbol} < {limit['value']:.3f}{error} ({symbol} < {limit['amplitude']:.3g}; "
+              "it depends on the prior)")
         if evidence["ln_bayes_factor"] is not None:
-            print(f"  common process against none (Savage-Dickey at lg A = {evidence['edge'][0]:g}): "
+            print(f"  {what} against none (Savage-Dickey at lg {symbol} = {evidence['edge'][0]:g}): "
                   f"ln B = {evidence['ln_bayes_factor']:.2f} +/- {evidence['ln_bayes_factor_error']:.2f}")
         else:
-            print(f"  common process against none (Savage-Dickey): ln B > {evidence['ln_bayes_factor_lower_bound']:.2f} "
+            print(f"  {what} against none (Savage-Dickey): ln B > {evidence['ln_bayes_factor_lower_bound']:.2f} "
                   "(no posterior draw near the prior's lower edge)")
     return 0
 

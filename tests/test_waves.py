@@ -302,7 +302,7 @@ def test_memory_fit_recovers_strain_and_epoch(tmp_path):
     converges and puts both injected values inside their central 99% intervals, and pins the epoch to a small part of the 6-year window (posterior standard deviation under 60 days)."""
     data = _memory_data()
     section = FitSection(common="none", red="none", memory=True, memory_free=("lg_strain", "epoch"), max_steps=3000,
-                         effective_samples=200, seed=3, start="map")
+                         effective_samples=100, seed=3, start="map")
     model = FitModel(data, section)
     run = run_sampler(model, tmp_path / "c.h5")
     summary = summarise(model, run)
@@ -437,3 +437,32 @@ realisations = 1
     assert [r["status"] for r in rows] == ["ok", "ok"], [r.get("error") for r in rows]
     with pytest.raises(InputError, match="sweep.axes.wave.0.amplitude: '0' picks an entry of an array of tables"):
         expand({"array": {"random": {"count": 3}}}, SweepSection(axes={"wave.0.amplitude": [1e-14]}))
+
+
+def test_memory_evidence_and_limit_are_reported(tmp_path):
+    """posterior.json of a memory fit carries the strain's 95% upper limit and the Savage–Dickey ln B, and a
+    campaign row their columns: for a loud step, the evidence is overwhelming (only a bound) and the limit lies
+    above the injected strain; a step of negligible strain gives a finite ln B."""
+    from ptares.campaign.tasks import _summary_of_fit
+
+    data = _memory_data()
+    section = FitSection(common="none", red="none", memory=True, memory_free=("lg_strain",), max_steps=600,
+                         effective_samples=100, seed=3, start="map")
+    model = FitModel(data, section)
+    run = run_sampler(model, tmp_path / "c.h5")
+    summary = summarise(model, run)
+    step = summary["memory_step"]
+    assert step["upper_limit"]["value"] > model.injected["memory_lg_strain"]
+    assert step["savage_dickey"]["ln_bayes_factor"] is None and step["savage_dickey"]["ln_bayes_factor_lower_bound"] > 0
+    row = _summary_of_fit(model, run, summary)
+    assert row["memory_lg_strain.upper95"] == step["upper_limit"]["value"] and row["memory_ln_savage_dickey"] is None
+    config = small_config(
+        array={"random": {"count": 6}},
+        observing={"start": 53000.0, "span": 6.0, "cadence": 20.0, "toa_error": 0.1},
+        gwb=None,
+        wave=[{"name": "Step", "shape": "memory", "epoch": 54200.0, "amplitude": 1e-18, "ra": 150.0, "dec": -20.0,
+               "pulsar_term": False}],
+    )
+    quiet = FitModel(simulate(config, seed=5), section)
+    evidence = summarise(quiet, run_sampler(quiet, tmp_path / "q.h5"))["memory_step"]["savage_dickey"]
+    assert evidence["ln_bayes_factor"] is not None and evidence["ln_bayes_factor"] < 2.0

@@ -43,6 +43,7 @@ COLUMNS = [
     "common_lg_amplitude.quantile", "common_lg_amplitude.upper95", "common_ln_savage_dickey",
     "common_spectral_index.median", "common_spectral_index.quantile", "fit_converged",
     "memory_lg_strain.median", "memory_lg_strain.low68", "memory_lg_strain.high68", "memory_lg_strain.quantile",
+    "memory_lg_strain.upper95", "memory_ln_savage_dickey",
     "memory_epoch.median", "memory_epoch.low68", "memory_epoch.high68", "memory_epoch.quantile",
     "ln_bayes_factor", "ln_bayes_factor_error", "bayes_effective_samples", "bayes_reliable",
     "status", "error", "run_time",
@@ -197,10 +198,12 @@ def _summary_of_fit(model, run, summary) -> dict:
                 row[f"{name}.low68"], row[f"{name}.high68"] = entry["interval68"]
             if name in model.injected:
                 row[f"{name}.quantile"] = float(np.mean(samples[:, model.names.index(name)] < model.injected[name]))
-    common = summary.get("common_process") or {}
-    if common:  # the 95% upper limit (prior-dependent) and the Savage-Dickey ln B (None when only bounded)
-        row[f"{COMMON_AMPLITUDE}.upper95"] = common["upper_limit"]["value"]
-        row["common_ln_savage_dickey"] = common["savage_dickey"]["ln_bayes_factor"]
+    for key, name, column in (("common_process", COMMON_AMPLITUDE, "common_ln_savage_dickey"),
+                              ("memory_step", memory("lg_strain"), "memory_ln_savage_dickey")):
+        entry = summary.get(key) or {}
+        if entry:  # the 95% upper limit (prior-dependent) and the Savage-Dickey ln B (None when only bounded)
+            row[f"{name}.upper95"] = entry["upper_limit"]["value"]
+            row[column] = entry["savage_dickey"]["ln_bayes_factor"]
     return row
 
 

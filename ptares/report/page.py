@@ -225,14 +225,18 @@ def _fit_section(folder: Path, claimed: set, ident: str = "fit", title: str = "B
     section.numbers = [("converged", summary.get("converged")), ("sampler", summary.get("sampler")),
                        ("steps", summary.get("steps")), ("walkers or chains", summary.get("walkers")),
                        ("burn-in", summary.get("burn"))]
-    common = summary.get("common_process", {})
-    limit = common.get("upper_limit") or {}
-    if limit:
-        section.numbers.append(("95% upper limit on the common amplitude", limit.get("amplitude")))
-    dickey = common.get("savage_dickey") or {}
-    if dickey:
-        section.numbers.append(("Savage–Dickey ln B (common process)", dickey.get("ln_bayes_factor",
-                                                                           dickey.get("lower_bound"))))
+    for key, what in (("common_process", ("common amplitude", "common process")),
+                      ("memory_step", ("memory strain", "memory step"))):
+        entry = summary.get(key) or {}
+        limit = entry.get("upper_limit") or {}
+        if limit:
+            section.numbers.append((f"95% upper limit on the {what[0]}", limit.get("amplitude")))
+        dickey = entry.get("savage_dickey") or {}
+        if dickey:
+            value = dickey.get("ln_bayes_factor")
+            if value is None and dickey.get("ln_bayes_factor_lower_bound") is not None:
+                value = f"> {dickey['ln_bayes_factor_lower_bound']:.3g} (no draw near the prior's lower edge)"
+            section.numbers.append((f"Savage–Dickey ln B ({what[1]})", value))
     rows = []
     for name, p in summary.get("parameters", {}).items():
         low68, high68 = (p.get("interval68") or [None, None])[:2]

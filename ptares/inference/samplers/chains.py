@@ -23,7 +23,7 @@ import numpy as np
 
 from ptares.dataset import fingerprint
 from ptares.errors import InputError
-from ptares.inference.parameters import COMMON_AMPLITUDE
+from ptares.inference.parameters import COMMON_AMPLITUDE, memory
 from ptares.inference.samplers.convergence import Convergence, assess
 from ptares.inference.upper_limits import UPPER_LIMIT_CAVEAT, savage_dickey, upper_limit
 
@@ -203,17 +203,20 @@ def summarise(model, run: FitRun) -> dict:
             **({"rhat": float(verdict.rhat[i])} if verdict.rhat is not None else {}),
             **({"injected": model.injected[name]} if name in model.injected else {}),
         }
-    common = {}
-    if COMMON_AMPLITUDE in model.names:  # the upper limit and the evidence for the process, with their caveats
-        i = model.names.index(COMMON_AMPLITUDE)
+    def evidence(name):  # the upper limit and the evidence for a signal from its lg amplitude, with their caveats
+        if name not in model.names:
+            return {}
+        i = model.names.index(name)
         values, effective = samples[:, i], float(verdict.effective_samples[i])
         limit = upper_limit(values, effective)
         limit["amplitude"] = 10.0 ** limit["value"]
         limit["caveat"] = UPPER_LIMIT_CAVEAT
-        common = {"upper_limit": limit, "savage_dickey": savage_dickey(values, model.priors[i], effective)}
+        return {"upper_limit": limit, "savage_dickey": savage_dickey(values, model.priors[i], effective)}
+
     return {
         "parameters": parameters,
-        "common_process": common,
+        "common_process": evidence(COMMON_AMPLITUDE),
+        "memory_step": evidence(memory("lg_strain")),
         "sampler": run.sampler,
         "acceptance_fraction": run.acceptance_fraction,
         "effective_samples": float(np.min(verdict.effective_samples)) if verdict.effective_samples.size else 0.0,
