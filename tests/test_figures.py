@@ -315,11 +315,13 @@ def test_residual_pages_have_few_rows_and_a_scale_bar_each():
         assert not [t for t in fig.findobj(Text) if "range" in t.get_text()]
 
 
-def test_dataset_figures_page_the_residuals(tmp_path):
-    """45 pulsars give three residual pages of at most PER_PAGE rows (and as many noise-budget pages)."""
-    from ptares.figures.dataset import dataset_figures
+def test_dataset_figures_page_the_residuals(tmp_path, monkeypatch):
+    """Two pages and one pulsar more give three residual pages of at most PER_PAGE rows (and as many noise-budget
+    pages); PER_PAGE is set to 4 here to keep the test quick (the page size itself is tested above)."""
+    from ptares.figures import dataset as module
 
-    names = [p.name for p in dataset_figures(_array(45), tmp_path)]
+    monkeypatch.setattr(module, "PER_PAGE", 4)
+    names = [p.name for p in module.dataset_figures(_array(9), tmp_path)]
     assert names == ["residuals.png", "residuals-2.png", "residuals-3.png", "sky.png", "correlation.png",
                      "noise_budget.png", "noise_budget-2.png", "noise_budget-3.png"]
 
