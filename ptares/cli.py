@@ -307,7 +307,7 @@ def build_parser() -> argparse.ArgumentParser:
     rep.set_defaults(run=_report)
 
     fit = commands.add_parser("fit", parents=[common],
-                              help="Bayesian fit of noise, background and continuous waves (emcee or blocked Gibbs)")
+                              help="Bayesian fit of noise, background, continuous waves and memory steps (emcee or blocked Gibbs)")
     fit.add_argument("source", help="a TOML config (simulated, then fitted with its [fit]) or an HDF5 dataset")
     fit.add_argument("--out", required=True, help="output directory (chains.h5, posterior.json, corner.png, trace.png)")
     fit.add_argument("--config", help="TOML file whose [fit] table holds the settings")
