@@ -38,7 +38,7 @@ from ptares.limits import MAX_TOAS, MAX_TOTAL_TOAS, MEMORY_LIMIT, NAME_PATTERN
 from ptares.physics.sky import unit_vector
 from ptares.version import earlier_names
 
-__all__ = ["PulsarData", "Dataset", "epoch_indices", "system_indices", "jitter_weights", "EPOCH_WINDOW", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint",
+__all__ = ["PulsarData", "Dataset", "epoch_indices", "system_indices", "jitter_weights", "EPOCH_WINDOW", "write_dataset", "load_dataset", "atomic_path", "write_json", "fingerprint", "text_of",
            "describe_signal"]
 
 
@@ -243,6 +243,11 @@ def _micro(seconds) -> str:
     return f"{float(seconds) * 1e6:.3g}"
 
 
+def text_of(value) -> str:
+    """A text field of an HDF5 table or attribute as ``str`` (h5py gives fixed-length strings as bytes)."""
+    return value.decode() if isinstance(value, bytes) else str(value)
+
+
 def describe_signal(name: str, values: dict, red_pulsars: int = 0) -> str:
     """A few words on one injected component from its recorded parameters (a dataset's ``signals``
     entry, or a component's ``describe``); ``red_pulsars`` counts the pulsars with red noise."""
@@ -272,7 +277,7 @@ def describe_signal(name: str, values: dict, red_pulsars: int = 0) -> str:
             return f"{int(values.get('count', 0))} binaries"
         shown = []
         for row in sources[:3]:
-            label = row["name"].decode() if isinstance(row["name"], bytes) else str(row["name"])
+            label = text_of(row["name"])
             shown.append(f"binary {label}: f = {float(row['frequency']) * 1e9:.3g} nHz, h0 = {float(row['strain']):.3g}, "
                          f"{'evolving' if row['frequency_evolution'] else 'fixed frequency'}, "
                          f"{'with' if row['pulsar_term'] else 'no'} pulsar term")
@@ -283,7 +288,7 @@ def describe_signal(name: str, values: dict, red_pulsars: int = 0) -> str:
             return f"{int(values.get('count', 0))} waves"
         shown = []
         for row in sources[:3]:
-            label, shape = (row[k].decode() if isinstance(row[k], bytes) else str(row[k]) for k in ("name", "shape"))
+            label, shape = text_of(row["name"]), text_of(row["shape"])
             words = f"wave {label}: {shape.replace('_', '-')}"
             if shape != "table":
                 words += f" of strain {float(row['amplitude']):.3g} at MJD {float(row['epoch']):.6g}"

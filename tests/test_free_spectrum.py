@@ -67,6 +67,20 @@ def test_each_variance_is_drawn_from_its_conditional_given_the_coefficients(comm
         assert abs(np.quantile(draws, q) - exact) < 4 * error, (q, np.quantile(draws, q), exact, error)
 
 
+@pytest.mark.parametrize("common", ["uncorrelated", "hellings-downs"])
+def test_gibbs_coefficients_see_the_correlations_of_a_free_spectrum(common, monkeypatch):
+    """A correlated common process on a free spectrum has no power-law amplitude; the Gibbs coefficient blocks
+    must still condition on the other pulsars through the inter-pulsar correlation (the common inverse), as the
+    spectrum step above assumes, and without correlations they need none."""
+    model, sampler = _sampler(common, False)
+    calls = []
+    original = sampler._common_inverse
+    monkeypatch.setattr(sampler, "_common_inverse", lambda *args: calls.append(1) or original(*args))
+    x = np.array([model.values[n] for n in model.names])
+    sampler.iterate(x, np.random.default_rng(1), sampler.proposals())
+    assert bool(calls) == (common == "hellings-downs")
+
+
 def test_a_power_law_refitted_from_the_free_spectrum_agrees_with_a_direct_fit(tmp_path):
     """A loud background (8 pulsars, 6 frequencies, noise held): a free-spectrum Gibbs fit, then the power law
     refitted from its per-frequency marginals (Lamb, Taylor & van Haasteren 2023), against a direct power-law fit

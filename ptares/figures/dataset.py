@@ -19,7 +19,7 @@ from matplotlib import patheffects, ticker  # noqa: E402
 from matplotlib.cm import ScalarMappable  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 
-from ptares.dataset import Dataset  # noqa: E402
+from ptares.dataset import Dataset, text_of  # noqa: E402
 from ptares.figures.common import COMPONENT_COLOURS, RESIDUAL_COLOUR, save_figure
 from ptares.physics.patterns import pattern_function  # noqa: E402
 from ptares.physics.spectra import chromatic_scale, residual_psd, turnover  # noqa: E402
@@ -257,7 +257,7 @@ def sky_figure(dataset: Dataset):
         ax.scatter(x, sources["dec"], marker=marker, s=size, color=COMPONENT_COLOURS[component], edgecolor="k",
                    linewidth=0.5, zorder=4, label=what)
         for name, xs, ys in zip(sources["name"], x, sources["dec"]):
-            label = name.decode() if isinstance(name, bytes) else str(name)
+            label = text_of(name)
             names.append((label, xs, ys, 6.0, {"fontsize": 7, "color": COMPONENT_COLOURS[component], "gid": "source-name"}))
             markers.append((xs, ys, 6.0))
         ax.legend(loc="lower right", fontsize=7)

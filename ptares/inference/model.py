@@ -21,7 +21,7 @@ import warnings
 
 import numpy as np
 
-from ptares.dataset import Dataset
+from ptares.dataset import Dataset, text_of
 from ptares.errors import InputError, PhysicsWarning
 from ptares.inference import priors as prior_module
 from ptares.inference.likelihood import Likelihood, NotPositiveDefinite
@@ -54,7 +54,7 @@ from ptares.inference.parameters import (
 )
 from ptares.inputs.config import FitSection
 from ptares.physics.spectra import coefficient_variance, turnover
-from ptares.physics.constants import DAY, KPC
+from ptares.physics.constants import DAY
 from ptares.physics.waveforms import MemoryStep, plane_wave_residuals
 from ptares.simulation.signals.continuous import Binary, PulsarLayout
 
@@ -131,43 +131,34 @@ def _largest_scatter(dataset: Dataset) -> float:
     return scatter if scatter > 0 else max(float(np.max(p.errors)) for p in dataset.pulsars)
 
 
-def binary_strain_prior(dataset: Dataset) -> prior_module.Uniform:
-    """Uniform prior on lg h0 from binaries that are invisible to binaries that dominate the data.
-
-    A binary's residual amplitude is ``h0 / (2 pi f)`` (times a geometric factor of order
-    one; PHYSICS.md).  The lower end is the strain whose residuals at the lowest frequency
-    1/T are :data:`STRAIN_FLOOR` times the smallest quoted TOA error; the upper end the
-    strain whose residuals at the highest frequency (the finest cadence's Nyquist
-    frequency) are :data:`STRAIN_CEILING` times the largest residual standard deviation,
-    at most 1e-9.
-    """
+def _strain_prior(dataset: Dataset, name: str, low_factor: float, high_factor: float) -> prior_module.Uniform:
+    """Uniform prior on the lg strain ``name`` of a signal whose residual amplitude is its strain over
+    ``factor x frequency`` (times a geometric factor of order one): from the strain whose residuals at the
+    lowest frequency 1/T reach :data:`STRAIN_FLOOR` times the smallest quoted TOA error (``low_factor``) to the
+    strain whose residuals at the finest cadence's Nyquist frequency reach :data:`STRAIN_CEILING` times the
+    largest residual standard deviation (``high_factor``), at most the strain's valid range."""
     low_f, high_f = _frequency_range(dataset)
     smallest_error = min(float(np.min(p.errors)) for p in dataset.pulsars)
-    largest_scatter = _largest_scatter(dataset)
-    low = np.log10(2.0 * np.pi * low_f * STRAIN_FLOOR * smallest_error)
-    high = min(np.log10(2.0 * np.pi * high_f * STRAIN_CEILING * largest_scatter), VALID[binary("lg_strain")][1])
+    low = np.log10(low_factor * low_f * STRAIN_FLOOR * smallest_error)
+    high = min(np.log10(high_factor * high_f * STRAIN_CEILING * _largest_scatter(dataset)), VALID[name][1])
     return prior_module.Uniform(float(low), float(high))
 
 
-def _text(value) -> str:
-    """A table's text field as ``str`` (HDF5 gives bytes)."""
-    return value.decode() if isinstance(value, bytes) else str(value)
+def binary_strain_prior(dataset: Dataset) -> prior_module.Uniform:
+    """Uniform prior on lg h0 from binaries that are invisible to binaries that dominate the data: a binary's
+    residual amplitude is ``h0 / (2 pi f)`` (PHYSICS.md), so :func:`_strain_prior` with factors 2 pi."""
+    return _strain_prior(dataset, binary("lg_strain"), 2.0 * np.pi, 2.0 * np.pi)
 
 
 def memory_strain_prior(dataset: Dataset) -> prior_module.Uniform:
     """Uniform prior on lg h of a memory step, from steps no array could see to steps that dominate the data.
 
-    A step of strain h leaves a ramp of slope about h (times a geometric factor of order one): the
-    lower end is the strain whose ramp reaches :data:`STRAIN_FLOOR` times the smallest TOA error over
-    the whole span, the upper end the strain whose ramp reaches :data:`STRAIN_CEILING` times the
-    largest residual standard deviation within the finest cadence, at most 1e-9.
+    A step of strain h leaves a ramp of slope about h: the lower end is the strain whose ramp reaches
+    :data:`STRAIN_FLOOR` times the smallest TOA error over the whole span T (factor 1), the upper end the strain
+    whose ramp reaches :data:`STRAIN_CEILING` times the largest residual standard deviation within half the finest
+    cadence (factor 2 on its Nyquist frequency); see :func:`_strain_prior`.
     """
-    low_f, high_f = _frequency_range(dataset)  # 1/T, and 1/(2 x finest cadence)
-    smallest_error = min(float(np.min(p.errors)) for p in dataset.pulsars)
-    largest_scatter = _largest_scatter(dataset)
-    low = np.log10(STRAIN_FLOOR * smallest_error * low_f)
-    high = min(np.log10(STRAIN_CEILING * largest_scatter * 2.0 * high_f), VALID[memory("lg_strain")][1])
-    return prior_module.Uniform(float(low), float(high))
+    return _strain_prior(dataset, memory("lg_strain"), 1.0, 2.0)
 
 
 def memory_epoch_prior(dataset: Dataset) -> prior_module.Uniform:
@@ -371,10 +362,9 @@ class FitModel:
         self.names = free
         self.values = values
         self.priors = [self._prior(name) for name in free]
+        self._times = [q.times for q in self.likelihood.pulsars]  # s from the dataset's start, per pulsar
         self._layout = PulsarLayout.of(  # catalogue distances: the fit cannot know the true ones
-            [p.position for p in dataset.pulsars], [p.distance for p in dataset.pulsars],
-            [q.times for q in self.likelihood.pulsars],
-        )
+            [p.position for p in dataset.pulsars], [p.distance for p in dataset.pulsars], self._times)
         for name, prior in zip(free, self.priors):
             key = name if name in section.priors else quantity(name)
             _check_support(prior, name, f"fit.priors.{key}")
@@ -408,53 +398,49 @@ class FitModel:
         injected = dataset.signals.get(process, {}).get("harmonics")
         return int(injected) if mode == "injected" and injected is not None else self.section.chromatic_harmonics
 
-    def _binary_defaults(self, dataset, section):
-        sources = dataset.signals.get("binary", {}).get("sources")
-        values = {}
-        if sources is not None and len(sources):
-            s = sources[0]
-            values = {
-                binary("lg_strain"): float(np.log10(s["strain"])),
-                binary("orbital_phase"): float(s["phase"]),
-                binary("inclination_cosine"): float(np.cos(s["inclination"])),
-                binary("polarization_angle"): float(s["polarization"]),
-                binary("right_ascension"): float(s["ra"]),
-                binary("declination_sine"): float(np.sin(s["dec"])),
-                binary("lg_frequency"): float(np.log10(s["frequency"])),
-            }
-        for key, value in section.binary_values.items():  # keys checked by FitSection
-            values[binary(key)] = float(value)
-        missing = [k for k in BINARY_QUANTITIES if binary(k) not in values and k not in section.binary_free]
+    def _signal_values(self, injected: dict, configured: dict, quantities, free, name_of, what: str) -> dict:
+        """Values of a deterministic signal's parameters (``name_of(quantity)``): the ``injected`` ones (quantity ->
+        value, from the dataset; may be empty), overridden by ``configured`` (``[fit] <what>_values``), and for
+        free quantities given by neither the median of their default prior; a fixed quantity given by neither is
+        an error."""
+        values = {name_of(k): v for k, v in injected.items()}
+        for key, value in configured.items():  # keys checked by FitSection
+            _check_value(name_of(key), float(value), f"fit.{what}_values.{key}")
+            values[name_of(key)] = float(value)
+        missing = [k for k in quantities if name_of(k) not in values and k not in free]
         if missing:
-            raise InputError(f"needs values for {', '.join(missing)} (no injected source to take them from)", "fit.binary_values")
-        for k in section.binary_free:
-            values.setdefault(binary(k), float(self.default_priors[binary(k)].ppf(0.5)))
+            source = "source" if what == "binary" else "memory step"
+            raise InputError(f"needs values for {', '.join(missing)} (no injected {source} to take them from)",
+                             f"fit.{what}_values")
+        for k in free:
+            values.setdefault(name_of(k), float(self.default_priors[name_of(k)].ppf(0.5)))
         return values
 
+    def _binary_defaults(self, dataset, section):
+        """Binary values: the config's, else the dataset's first injected binary (``[[binary]]``)."""
+        sources = dataset.signals.get("binary", {}).get("sources")
+        injected = {}
+        if sources is not None and len(sources):
+            s = sources[0]
+            injected = {"lg_strain": float(np.log10(s["strain"])), "orbital_phase": float(s["phase"]),
+                        "inclination_cosine": float(np.cos(s["inclination"])), "polarization_angle": float(s["polarization"]),
+                        "right_ascension": float(s["ra"]), "declination_sine": float(np.sin(s["dec"])),
+                        "lg_frequency": float(np.log10(s["frequency"]))}
+        return self._signal_values(injected, section.binary_values, BINARY_QUANTITIES, section.binary_free, binary,
+                                   "binary")
+
     def _memory_defaults(self, dataset, section):
-        """Fixed memory-step values: the config's, else the dataset's first injected memory step (``[[wave]]``)."""
+        """Memory-step values: the config's, else the dataset's first injected memory step (``[[wave]]``)."""
         sources = dataset.signals.get("wave", {}).get("sources")
-        values = {}
-        steps = [] if sources is None else [s for s in sources if _text(s["shape"]) == "memory"]
+        steps = [] if sources is None else [s for s in sources if text_of(s["shape"]) == "memory"]
+        injected = {}
         if steps:
             s = steps[0]
-            values = {
-                memory("lg_strain"): float(np.log10(s["amplitude"])),
-                memory("epoch"): float(s["epoch"]),
-                memory("polarization_angle"): float(s["polarization"]),
-                memory("right_ascension"): float(s["ra"]),
-                memory("declination_sine"): float(np.sin(s["dec"])),
-            }
-        for key, value in section.memory_values.items():  # keys checked by FitSection
-            _check_value(memory(key), float(value), f"fit.memory_values.{key}")
-            values[memory(key)] = float(value)
-        missing = [k for k in MEMORY_QUANTITIES if memory(k) not in values and k not in section.memory_free]
-        if missing:
-            raise InputError(f"needs values for {', '.join(missing)} (no injected memory step to take them from)",
-                             "fit.memory_values")
-        for k in section.memory_free:
-            values.setdefault(memory(k), float(self.default_priors[memory(k)].ppf(0.5)))
-        return values
+            injected = {"lg_strain": float(np.log10(s["amplitude"])), "epoch": float(s["epoch"]),
+                        "polarization_angle": float(s["polarization"]), "right_ascension": float(s["ra"]),
+                        "declination_sine": float(np.sin(s["dec"]))}
+        return self._signal_values(injected, section.memory_values, MEMORY_QUANTITIES, section.memory_free, memory,
+                                   "memory")
 
     def _prior(self, name: str):
         """The configured prior of this parameter, else of its quantity, else the noise stage's, else the default."""
@@ -495,8 +481,7 @@ class FitModel:
             return None
         step = MemoryStep(10 ** v[memory("lg_strain")], (v[memory("epoch")] - self.dataset.start_mjd) * DAY)
         dec = float(np.arcsin(np.clip(v[memory("declination_sine")], -1, 1)))
-        return plane_wave_residuals(step, [q.times for q in self.likelihood.pulsars], self._layout.positions,
-                                    self._layout.distances * KPC, v[memory("right_ascension")], dec,
+        return plane_wave_residuals(step, self._times, self._layout.positions, None, v[memory("right_ascension")], dec,
                                     v[memory("polarization_angle")], pulsar_term=False)
 
     def _binary_signal(self, v):

@@ -10,7 +10,7 @@ import h5py
 import numpy as np
 
 from ptares.correlation.noise import NoiseModel, per_system_white
-from ptares.dataset import Dataset, fingerprint
+from ptares.dataset import Dataset, fingerprint, text_of
 from ptares.errors import InputError
 from ptares.inference.parameters import (
     CHROMATIC,
@@ -53,7 +53,7 @@ def noise_from_chains(dataset: Dataset, path, draws: int = 50, seed: int = 0) ->
         raise InputError("chains file not found", str(path))
     try:
         with h5py.File(path, "r") as f:
-            names = [n.decode() if isinstance(n, bytes) else str(n) for n in f.attrs["parameter_names"]]
+            names = [text_of(n) for n in f.attrs["parameter_names"]]
             held = json.loads(f.attrs["held_values"])
             common_harmonics = int(f.attrs["common_harmonics"])
             red_harmonics = int(f.attrs["red_harmonics"])

@@ -16,6 +16,11 @@ from __future__ import annotations
 
 import numpy as np
 
+from ptares.physics.constants import C
+
+#: A pulsar closer than this in ``1 - s.p`` to the source direction counts as exactly behind it.
+BEHIND = 1e-12
+
 __all__ = [
     "unit_vector",
     "angular_separation",
@@ -23,6 +28,8 @@ __all__ = [
     "polarisation_basis",
     "polarisation_tensors",
     "antenna_patterns",
+    "wave_patterns",
+    "pulsar_term_delays",
 ]
 
 
@@ -89,3 +96,28 @@ def antenna_patterns(pulsar, ra, dec, psi=0.0):
     pn = np.sum(pulsar * n, axis=-1)
     denominator = 1.0 - np.sum(pulsar * source, axis=-1)  # 1 + Omega . p with Omega = -s
     return 0.5 * (pm**2 - pn**2) / denominator, pm * pn / denominator
+
+
+def _cosines(positions, ra, dec) -> np.ndarray:
+    """``s.p`` of pulsars ``positions`` (P, 3) and sources at ``(ra, dec)``: shape (P,) for one source, (S, P) for S."""
+    return unit_vector(ra, dec) @ np.atleast_2d(np.asarray(positions, dtype=float)).T
+
+
+def wave_patterns(positions, ra, dec, psi=0.0):
+    """``(F+, Fx)`` of pulsars at unit vectors ``positions`` (P, 3) for waves from ``(ra, dec)`` with polarisation
+    angle ``psi``: shape (P,) for scalar angles, (S, P) for S sources.  A pulsar exactly behind a source (within
+    :data:`BEHIND` in ``1 - s.p``) gets zero, as its Earth and pulsar terms cancel there (the antenna pattern
+    itself is 0/0; without the pulsar term the Earth term has no limit, ``F+ -> cos 2 phi`` depending on the
+    direction of approach)."""
+    positions = np.atleast_2d(np.asarray(positions, dtype=float))
+    ra, dec, psi = (np.asarray(v, dtype=float)[..., None] for v in (ra, dec, psi))  # sources along a new axis
+    with np.errstate(divide="ignore", invalid="ignore"):  # 0/0 behind a source, masked below
+        fplus, fcross = antenna_patterns(positions, ra, dec, psi)
+    behind = 1.0 - _cosines(positions, ra[..., 0], dec[..., 0]) < BEHIND
+    return np.where(behind, 0.0, fplus), np.where(behind, 0.0, fcross)
+
+
+def pulsar_term_delays(positions, distances, ra, dec) -> np.ndarray:
+    """``D = (L / c)(1 - s.p)`` (s), how much earlier the pulsar term sees a wave, for pulsars at ``positions``
+    (P, 3) and ``distances`` (m) and sources at ``(ra, dec)``: shape (P,) for one source, (S, P) for S."""
+    return np.asarray(distances, dtype=float) / C * (1.0 - _cosines(positions, ra, dec))

@@ -46,10 +46,9 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.special import wofz
 
-from ptares.physics.sky import antenna_patterns, unit_vector
+from ptares.physics.sky import pulsar_term_delays, wave_patterns
 
-__all__ = ["TabulatedProfile", "SineGaussian", "MemoryStep", "OutsideTable", "sample_profile", "plane_wave_residuals",
-           "retarded_delays", "geometry"]
+__all__ = ["TabulatedProfile", "SineGaussian", "MemoryStep", "OutsideTable", "sample_profile", "plane_wave_residuals"]
 
 #: Largest Richardson divisor: for a smooth profile the error falls as dt^4, 16 times for each halving of dt.
 _RICHARDSON = 15.0
@@ -120,17 +119,19 @@ class TabulatedProfile:
         keep = np.unique(np.append(np.arange(0, self.times.size, step), self.times.size - 1))
         return TabulatedProfile(self.times[keep], self.plus[keep], self.cross[keep], hold=self.hold)
 
-    def error_estimate(self, residuals_of) -> float:
+    def error_estimate(self, residuals_of, fine=None) -> float:
         """Estimated largest error (s) of the residuals ``residuals_of(profile)`` (a callable returning a list of
         arrays) due to interpolating this table, by Richardson's rule over the tables of every sample, every
         other and every fourth.  With ``d1``, ``d2`` the largest changes from one to the next, the error falls
         by ``q = d2 / d1`` each time the spacing halves, so the full table's is ``d1 / (q - 1)``: ``q`` is 16 for
         a smooth profile (``d1 / 15``), smaller for one with kinks or steps; from ``q < 2`` (no convergence to
-        speak of) the change ``d1`` itself is returned, and so it is for tables of fewer than 16 samples."""
+        speak of) the change ``d1`` itself is returned, and so it is for tables of fewer than 16 samples.
+        ``fine``: this table's residuals, when the caller has them already."""
         def change(a, b):
             return max((float(np.max(np.abs(x - y))) for x, y in zip(a, b) if x.size), default=0.0)
 
-        fine, half = residuals_of(self), residuals_of(self.coarse(2))
+        fine = residuals_of(self) if fine is None else fine
+        half = residuals_of(self.coarse(2))
         d1 = change(fine, half)
         if self.times.size < 16 or d1 == 0.0:
             return d1
@@ -211,33 +212,13 @@ def sample_profile(profile, start: float, stop: float, step: float, hold: bool =
     return TabulatedProfile(times, plus, cross, hold=hold)
 
 
-def geometry(positions, ra: float, dec: float, polarization: float):
-    """``(F+, Fx)`` of pulsars at unit vectors ``positions`` (P, 3) for a wave from ``(ra, dec)`` with polarisation
-    angle ``polarization`` (rad); zero for a pulsar exactly behind the source (within 1e-12 in ``1 - s.p``), where
-    the Earth and pulsar terms cancel.  (Without the pulsar term the Earth term alone has no limit there, since
-    ``F+ -> cos 2 phi`` depends on the direction of approach; such a pulsar gets none.)"""
-    positions = np.atleast_2d(np.asarray(positions, dtype=float))
-    with np.errstate(divide="ignore", invalid="ignore"):  # 0/0 for a pulsar behind the source, masked below
-        fplus, fcross = antenna_patterns(positions, ra, dec, polarization)
-    behind = 1.0 - positions @ unit_vector(ra, dec) < 1e-12
-    return np.where(behind, 0.0, fplus), np.where(behind, 0.0, fcross)
-
-
-def retarded_delays(positions, distances, ra: float, dec: float) -> np.ndarray:
-    """``D = (L / c)(1 - s.p)`` (s) of pulsars at ``positions`` (P, 3) and ``distances`` (m) for a wave from ``(ra, dec)``."""
-    from ptares.physics.constants import C
-
-    positions = np.atleast_2d(np.asarray(positions, dtype=float))
-    return np.asarray(distances, dtype=float) / C * (1.0 - positions @ unit_vector(ra, dec))
-
-
 def plane_wave_residuals(profile, times, positions, distances, ra: float, dec: float, polarization: float,
                          pulsar_term: bool = True) -> list:
     """Residuals (s) of a plane wave with ``profile`` (anything with ``integral(t) -> (H+, Hx)``) in pulsars at
-    unit vectors ``positions`` (P, 3), ``distances`` (m), observed at ``times`` (a list of P arrays, s from the
+    unit vectors ``positions`` (P, 3), ``distances`` (m; read only for the pulsar term), observed at ``times`` (a list of P arrays, s from the
     array's first epoch); ``r(t) = integral_0^t z`` with the pulsar term at the retarded time when asked."""
-    fplus, fcross = geometry(positions, ra, dec, polarization)
-    delays = retarded_delays(positions, distances, ra, dec) if pulsar_term else None
+    fplus, fcross = wave_patterns(positions, ra, dec, polarization)
+    delays = pulsar_term_delays(positions, distances, ra, dec) if pulsar_term else None
     origin = profile.integral(np.zeros(1))
     out = []
     for a, t in enumerate(times):

@@ -373,7 +373,7 @@ class GibbsSampler:
         common = self._common_variance(x)
         coefficients = lk.draw_coefficients(rng, **theta, factors=self._factors_at(x))
         self._kept = None
-        correlated = self._correlated and theta["amplitude"] > 0
+        correlated = self._correlated and bool(np.any(common > 0))  # any spectrum: power law, turnover or free
         inverse = self._common_inverse(red, common) if correlated else None
         accepted, proposed = 0, 0
         for p in range(len(self._names)):

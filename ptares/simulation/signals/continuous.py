@@ -22,8 +22,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ptares.physics.binaries import strain_amplitude, time_to_coalescence
-from ptares.physics.constants import KPC, M_SUN, C
-from ptares.physics.sky import antenna_patterns, unit_vector
+from ptares.physics.constants import KPC, M_SUN
+from ptares.physics.sky import pulsar_term_delays, wave_patterns
 from ptares.simulation.kernels import wave_residuals
 from ptares.simulation.signals.base import Context
 
@@ -70,14 +70,9 @@ def prepare_terms(binaries, positions, distances):
     amplitude = b["strain"] / (2.0 * np.pi * b["frequency"])
     earth = np.column_stack([np.mod(2.0 * b["phase"], 2.0 * np.pi), 2.0 * omega, rate, amplitude])
 
-    source = unit_vector(b["ra"], b["dec"])  # (S, 3)
-    positions = np.asarray(positions, dtype=float)
-    fplus, fcross = antenna_patterns(positions[None, :, :], b["ra"][:, None], b["dec"][:, None], b["polarization"][:, None])
-    behind = 1.0 - source @ positions.T < 1e-12  # pulsar behind the source: Earth and pulsar terms cancel
-    fplus = np.where(behind, 0.0, fplus)
-    fcross = np.where(behind, 0.0, fcross)
+    fplus, fcross = wave_patterns(positions, b["ra"], b["dec"], b["polarization"])  # (S, P), zero behind a source
 
-    delay = (np.asarray(distances, dtype=float) * KPC / C)[None, :] * (1.0 - source @ positions.T)  # (S, P) s
+    delay = pulsar_term_delays(positions, np.asarray(distances, dtype=float) * KPC, b["ra"], b["dec"])  # (S, P) s
     u = 1.0 + rate[:, None] * delay
     # theta(-delay) = theta0 + (16 omega0 / 5 rate) (1 - u^(5/8)), written stably; the limit rate -> 0 is -2 omega0 delay
     with np.errstate(invalid="ignore", divide="ignore"):

@@ -25,8 +25,8 @@ from ptares.physics.waveforms import (
     SineGaussian,
     TabulatedProfile,
     plane_wave_residuals,
-    retarded_delays,
 )
+from ptares.physics.sky import pulsar_term_delays
 from ptares.simulation.signals.base import Context
 
 __all__ = ["Wave", "PlaneWaves", "from_config", "wave_residuals"]
@@ -98,7 +98,7 @@ def _coverage_fault(wave, profile, times, positions, distances, start) -> str:
     words = (f"{wave.file} covers MJD {first:.6g} to {last:.6g}, but the TOAs need MJD {start + min(earliest, 0.0) / DAY:.6g} "
              f"to {start + latest / DAY:.6g}")
     if wave.pulsar_term:
-        delays = retarded_delays(positions, distances, wave.ra, wave.dec)
+        delays = pulsar_term_delays(positions, distances, wave.ra, wave.dec)
         back = start + (min(earliest, 0.0) - delays.max()) / DAY
         words += f", and the pulsar terms MJD {back:.6g} onwards (or set pulsar_term = false)"
     return words + '; give a longer table, or beyond_table = "hold" for a wave that is settled at both ends'
@@ -141,8 +141,9 @@ class PlaneWaves:
         if wave.shape != "table":
             return float("nan")
         profile = wave.profile(context.observations.start)
-        error = profile.error_estimate(lambda p: wave_residuals(wave, context, p))
-        scatter = max((float(np.std(r)) for r in wave_residuals(wave, context, profile) if r.size), default=0.0)
+        fine = wave_residuals(wave, context, profile)
+        error = profile.error_estimate(lambda p: wave_residuals(wave, context, p), fine)
+        scatter = max((float(np.std(r)) for r in fine if r.size), default=0.0)
         if scatter > 0 and error > COARSE_TABLE * scatter:
             warnings.warn(f"{wave.where}.file: interpolating the table leaves errors up to {error:.2g} s, "
                           f"{error / scatter:.0%} of the wave's residual scatter; sample the profile more finely",
