@@ -43,8 +43,10 @@ NULL_DESCRIPTION = "noise only, noise model as assumed, Gaussian; estimator weig
 TOLERANCE = 1e-11
 
 
-def null_eigenvalues(products: FourierProducts, pairs: PairCorrelations, weights: np.ndarray, sigma: float):
-    """``(lambda, method)``: S/N of ``sum weights * rho / sigma`` is ``sum lambda_i chi^2_1`` under the null.
+def null_eigenvalues(products: FourierProducts, pairs: PairCorrelations, weights: np.ndarray, sigma: float,
+                     limit=None):
+    """``(lambda, method)``: S/N of ``sum weights * rho / sigma`` is ``sum lambda_i chi^2_1`` under the null
+    (exact up to ``limit`` rows P x 2K, by default :data:`EIGEN_LIMIT`).
 
     ``method`` is "exact", "frequency-diagonal", or ``None`` when even the
     approximation would exceed :data:`ptares.limits.MEMORY_LIMIT` (lambda is then empty).
@@ -55,7 +57,7 @@ def null_eigenvalues(products: FourierProducts, pairs: PairCorrelations, weights
     H[pairs.a, pairs.b] = weights / (denominator[pairs.a, pairs.b] * sigma)
     H = H + H.T
     Y = scaled_products(products)
-    if count * size <= EIGEN_LIMIT:
+    if count * size <= (EIGEN_LIMIT if limit is None else limit):
         values, vectors = np.linalg.eigh(Y)
         R = vectors * np.sqrt(np.clip(values, 0.0, None))[:, None, :]  # Y_a = R_a R_a^T
         blocks = 0.5 * H[:, None, :, None] * np.einsum("aji,bjk->aibk", R, R, optimize=True)

@@ -162,9 +162,12 @@ def forecast(dataset: Dataset, section: SensitivitySection = SensitivitySection(
     integrated = spectral.power_law_integrated(frequency, effective, dataset.span, section.power_law_snr)
 
     amplitudes = np.asarray(section.amplitudes if section.amplitudes is not None else _DEFAULT_AMPLITUDES, dtype=float)
-    background = expected_statistic(dataset, noise, amplitudes, gamma, harmonics, section.false_alarm, progress)
-    at_reference = expected_statistic(dataset, noise, [reference["amplitude"]], gamma, harmonics, section.false_alarm)
-    reference.update({key: float(at_reference[key][0]) for key in ("snr", "snr_weak", "snr_spread", "detection_probability")})
+    # the reference amplitude rides along as a last entry: the Fourier products over the TOAs are built once
+    every = expected_statistic(dataset, noise, np.append(amplitudes, reference["amplitude"]), gamma, harmonics,
+                               section.false_alarm, progress)
+    background = {key: value[:-1] if isinstance(value, np.ndarray) else value for key, value in every.items()}
+    at_reference = {key: float(every[key][-1]) for key in ("snr", "snr_weak", "snr_spread", "detection_probability")}
+    reference.update(at_reference)
     background["frequency_domain"] = spectral.background_snr(spectra, positions, dataset.span, harmonics, amplitudes, gamma)
 
     span_years = dataset.span / YEAR
@@ -174,12 +177,17 @@ def forecast(dataset: Dataset, section: SensitivitySection = SensitivitySection(
                          "simulate a longer span to forecast further", "sensitivity.years")
     over_time = {key: [] for key in ("snr", "snr_spread", "detection_probability", "pulsars")}
     for value in years:
-        part = truncated(dataset, value)
-        found = expected_statistic(part, noise_from_dataset(part), [reference["amplitude"]], gamma, harmonics,
-                                   section.false_alarm) if len(part.pulsars) >= 2 else None
+        if value >= span_years * (1 - 1e-9):  # the whole span: the reference forecast above
+            found, count = at_reference, len(dataset.pulsars)
+        else:
+            part = truncated(dataset, value)
+            count = len(part.pulsars)
+            found = ({key: float(v[0]) for key, v in expected_statistic(
+                part, noise_from_dataset(part), [reference["amplitude"]], gamma, harmonics, section.false_alarm).items()
+                if key != "method"} if count >= 2 else None)
         for key in ("snr", "snr_spread", "detection_probability"):
-            over_time[key].append(float(found[key][0]) if found else 0.0)
-        over_time["pulsars"].append(len(part.pulsars))
+            over_time[key].append(found[key] if found else 0.0)
+        over_time["pulsars"].append(count)
     over_time = {"years": years, "amplitude": reference["amplitude"], **{k: np.array(v) for k, v in over_time.items()}}
 
     response = spectral.wave_response(spectra, section.pulsar_term)

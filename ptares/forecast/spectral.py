@@ -31,6 +31,7 @@ amplitude has ``<a^2> = (2/5) (F+^2 + Fx^2) h0^2 / (2 pi f)^2`` with
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -70,9 +71,9 @@ class PulsarSpectra:
     def span(self) -> np.ndarray:
         return self.end - self.start
 
-    @property
+    @cached_property
     def strain(self) -> np.ndarray:
-        """Strain-noise spectra ``S_I(f)`` (P, F), 1/Hz."""
+        """Strain-noise spectra ``S_I(f)`` (P, F), 1/Hz (computed once, on first use)."""
         return strain_psd(self.frequency, self.psd / self.transmission)
 
     def overlap(self) -> np.ndarray:

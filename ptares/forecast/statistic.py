@@ -25,7 +25,7 @@ from tqdm.auto import tqdm
 
 from ptares.correlation.fourier import FourierProducts, fourier_products
 from ptares.correlation.noise import NoiseModel
-from ptares.correlation.null_distribution import signal_eigenvalues, tail_probability, threshold
+from ptares.correlation.null_distribution import null_eigenvalues, signal_eigenvalues, tail_probability, threshold
 from ptares.correlation.pairs import overlap, pair_correlations, weak_signal_weights
 from ptares.correlation.scatter import weighted_covariance
 from ptares.dataset import Dataset
@@ -79,7 +79,6 @@ def expected_statistic(dataset: Dataset, noise: NoiseModel, amplitudes, gamma: f
         raise InputError(f"has {len(dataset.pulsars)} pulsar(s) with enough TOAs; a forecast needs at least 2", "dataset")
     positions = np.array([p.position for p in dataset.pulsars])
     pattern = correlation_matrix(positions, "hellings-downs")
-    uncorrelated = np.eye(len(positions))
     amplitudes = np.atleast_1d(np.asarray(amplitudes, dtype=float))
 
     quiet = replace(noise, common_amplitude=0.0)
@@ -97,7 +96,7 @@ def expected_statistic(dataset: Dataset, noise: NoiseModel, amplitudes, gamma: f
         a2 = amplitude**2
         products = with_common_power(base, a2)
         pairs, weights, sigma = statistic(products)
-        null, method = signal_eigenvalues(products, pairs, weights, sigma, uncorrelated, a2, a2, limit)
+        null, method = null_eigenvalues(products, pairs, weights, sigma, limit)
         signal, _ = signal_eigenvalues(products, pairs, weights, sigma, pattern, a2, a2, limit)
         methods.add(method)
         mean = a2 / sigma  # the estimate is unbiased
