@@ -118,8 +118,10 @@ def _fit(args) -> int:
                              for key, value in entry["parameters"].items())
             print(f"  {name.replace('_', ' ')} refitted from the free spectrum: {text} (68%)")
         print(f"wrote {result.out / 'spectrum.json'}, spectrum.png")
-    for key, what, symbol in (("common_process", "common process", "A"), ("memory_step", "memory step", "h")):
-        entry = summary.get(key) or {}
+    from ptares.inference.samplers.chains import EVIDENCE
+
+    for key, signal in EVIDENCE.items():
+        entry, what, symbol = summary.get(key) or {}, signal.label, signal.symbol
         if not entry:
             continue
         limit, evidence = entry["upper_limit"], entry["savage_dickey"]

@@ -33,12 +33,13 @@ def finished(rows, key: str) -> list:
 @dataclass(frozen=True)
 class DetectionRule:
     """A task detects when its ``column`` is above ``threshold`` (``above``) or below it; ``how`` says
-    how the threshold was set."""
+    how the threshold was set, ``from_null_tasks`` whether the no-signal tasks set it."""
 
     column: str
     threshold: float
     above: bool
     how: str
+    from_null_tasks: bool = False
 
     def detects(self, row) -> bool:
         value = row[self.column]
@@ -57,7 +58,7 @@ def detection_rule(rows, false_alarm: float, statistic: str = "snr", ln_bayes_th
     silent = [r[column] for r in done if r.get("injected_amplitude") == 0.0]
     if len(silent) >= MIN_NULL_TASKS:
         return DetectionRule(column, float(np.quantile(silent, 1.0 - false_alarm)), True,
-                             f"from {len(silent)} no-signal tasks")
+                             f"from {len(silent)} no-signal tasks", from_null_tasks=True)
     if statistic == "bayes_factor":
         return DetectionRule(column, float(ln_bayes_threshold), True,
                              f"fixed ln B threshold: fewer than {MIN_NULL_TASKS} no-signal tasks, no false-alarm probability")

@@ -186,7 +186,7 @@ def _check_task_config(raw: dict, keys, combination, where: str) -> None:
 
 
 def _summary_of_fit(model, run, summary) -> dict:
-    from ptares.inference.samplers.chains import posterior_draws
+    from ptares.inference.samplers.chains import EVIDENCE, posterior_draws
 
     row = {"fit_converged": summary["converged"]}
     samples = posterior_draws(run.chain, summary["burn"], summary["thin"])
@@ -198,12 +198,11 @@ def _summary_of_fit(model, run, summary) -> dict:
                 row[f"{name}.low68"], row[f"{name}.high68"] = entry["interval68"]
             if name in model.injected:
                 row[f"{name}.quantile"] = float(np.mean(samples[:, model.names.index(name)] < model.injected[name]))
-    for key, name, column in (("common_process", COMMON_AMPLITUDE, "common_ln_savage_dickey"),
-                              ("memory_step", memory("lg_strain"), "memory_ln_savage_dickey")):
+    for key, signal in EVIDENCE.items():
         entry = summary.get(key) or {}
         if entry:  # the 95% upper limit (prior-dependent) and the Savage-Dickey ln B (None when only bounded)
-            row[f"{name}.upper95"] = entry["upper_limit"]["value"]
-            row[column] = entry["savage_dickey"]["ln_bayes_factor"]
+            row[f"{signal.parameter}.upper95"] = entry["upper_limit"]["value"]
+            row[signal.column] = entry["savage_dickey"]["ln_bayes_factor"]
     return row
 
 

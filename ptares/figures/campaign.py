@@ -22,7 +22,7 @@ from ptares.campaign.detection import (
     detection_rule,
     finished,
 )
-from ptares.figures.common import COMPONENT_COLOURS, display_scale, times_power
+from ptares.figures.common import COMPONENT_COLOURS, RESIDUAL_COLOUR, STAMP_COLOUR, display_scale, times_power
 from ptares.inference import parameters
 
 __all__ = ["COVERAGE_PARAMETERS", "LOG_SPAN", "bayes_figure", "coverage_figure", "detection_figure",
@@ -35,8 +35,6 @@ COVERAGE_PARAMETERS = (parameters.COMMON_AMPLITUDE, parameters.COMMON_INDEX, par
 #: Positive values spanning more than this ratio get a logarithmic axis.
 LOG_SPAN = 10.0
 
-_MEAN_COLOUR = "#1b1b1b"  # the mean recovered value per injected value
-_THRESHOLD_COLOUR = "#c1121f"  # the detection threshold
 
 
 def _groups(rows):
@@ -71,7 +69,7 @@ def _tasks(count, kind: str = "") -> str:
 def _no_signal_note(silent, rule) -> str:
     """What the no-signal tasks left off a logarithmic amplitude axis did, for a legend."""
     count = len(silent)
-    if rule.how.startswith("from ") and "no-signal" in rule.how:
+    if rule.from_null_tasks:
         return f"{_tasks(count, 'no-signal')} (A = 0) set the threshold; not on the log axis"
     (detection,) = detection_probability(silent, rule).values()
     return (f"{_tasks(count, 'no-signal')} (A = 0), not on the log axis: "
@@ -186,10 +184,10 @@ def recovery_figure(rows):
     values = np.unique(injected)
     means = np.array([np.mean(recovered[injected == a2]) for a2 in values])
     inside = means >= limits[0]
-    ax.plot(values[inside], means[inside], "s", color=_MEAN_COLOUR, mfc="white", mew=1.4, ms=7, zorder=4,
+    ax.plot(values[inside], means[inside], "s", color=RESIDUAL_COLOUR, mfc="white", mew=1.4, ms=7, zorder=4,
             label="mean per injected value", gid="means")
     if not inside.all():  # a mean below a logarithmic axis: a filled triangle on its lower edge
-        ax.plot(values[~inside], np.full((~inside).sum(), limits[0]), "v", color=_MEAN_COLOUR, ms=7, zorder=4,
+        ax.plot(values[~inside], np.full((~inside).sum(), limits[0]), "v", color=RESIDUAL_COLOUR, ms=7, zorder=4,
                 clip_on=False, label="mean below the axis")
     ax.plot(limits, limits, color="#5c5c5c", lw=1, zorder=1, label="recovered = injected", gid="recovered=injected")
     ax.set_xlim(*limits)
@@ -304,7 +302,7 @@ def _mark_rule(ax, rule, column: str, label: bool = True) -> None:
     """The detection threshold as a dashed line where ``rule`` reads ``column`` (the figure's statistic),
     else the rule in the legend."""
     if rule.column == column:
-        ax.axhline(rule.threshold, color=_THRESHOLD_COLOUR, ls="--", lw=1,
+        ax.axhline(rule.threshold, color=STAMP_COLOUR, ls="--", lw=1,
                    label=f"detection: {rule} ({rule.how})" if label else None)
     elif label:
         ax.plot([], [], " ", label=f"detection: {rule}")

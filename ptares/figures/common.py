@@ -52,6 +52,10 @@ COMPONENT_COLOURS = {"white": "#9a9a9a", "red": "#b8553a", "gwb": "#2a6f97", "bi
 
 
 RESIDUAL_COLOUR = "#1b1b1b"
+#: Injected values and curves that have no component colour, in every figure.
+INJECTED_COLOUR = "#e36414"
+#: Warnings drawn on a figure ("not converged", an unreliable result) and detection thresholds.
+STAMP_COLOUR = "#c1121f"
 
 
 def display_scale(values) -> float:

@@ -25,15 +25,14 @@ import numpy as np  # noqa: E402
 from matplotlib.ticker import MaxNLocator  # noqa: E402
 from scipy.stats import gaussian_kde  # noqa: E402
 
-from ptares.figures.inference import NOT_CONVERGED  # noqa: E402
+from ptares.figures.common import INJECTED_COLOUR, STAMP_COLOUR  # noqa: E402
+from ptares.figures.inference import NOT_CONVERGED, title_stamp  # noqa: E402
 from ptares.inference import parameters  # noqa: E402
 
 __all__ = ["comparison_figure"]
 
 _UNCORRELATED = "#8d99ae"
 _PATTERN_COLOURS = {"hellings-downs": "#2a6f97", "monopole": "#6a4c93", "dipole": "#2d6a4f"}
-_INJECTED = "#e36414"
-_STAMP = "#c1121f"
 
 #: Fewest effective samples for which a reweighted density is drawn.
 MIN_SHOWN = 10
@@ -82,15 +81,13 @@ def comparison_figure(comparison, names, injected: dict):
                     ls="-" if entry["reliable"] else "--", label=label)
         ax.xaxis.set_major_locator(MaxNLocator(4))
         if names[i] in injected:
-            ax.axvline(injected[names[i]], color=_INJECTED, lw=1.2, label="injected")
+            ax.axvline(injected[names[i]], color=INJECTED_COLOUR, lw=1.2, label="injected")
         ax.set_xlabel(parameters.label(names[i]))
         ax.set_yticks([])
         ax.set_ylabel("posterior density")
         if unconverged:
             fits = " and ".join(unconverged)
-            ax.set_title(f"{NOT_CONVERGED}: {fits} fit{'s' if len(unconverged) > 1 else ''}", loc="right",
-                         fontsize=9, fontweight="bold", color=_STAMP,
-                         bbox={"boxstyle": "round,pad=0.25", "facecolor": "white", "edgecolor": _STAMP, "linewidth": 1.4})
+            title_stamp(ax, f"{NOT_CONVERGED}: {fits} fit{'s' if len(unconverged) > 1 else ''}", fontsize=9, linewidth=1.4)
     axes[0].legend(frameon=False, fontsize=7, loc="upper left")
     axes[0].set_ylim(0.0, axes[0].get_ylim()[1] * 1.6)  # room for the legend above the curves
 
@@ -117,5 +114,5 @@ def comparison_figure(comparison, names, injected: dict):
              f"{hd['ln_bayes_factor_error']:.2g} ({how})")
     if not content["reliable"]:
         title += "\nUNRELIABLE: see the warning in comparison.json"
-    fig.suptitle(title, fontsize=10, color="black" if content["reliable"] else "#c1121f")
+    fig.suptitle(title, fontsize=10, color="black" if content["reliable"] else STAMP_COLOUR)
     return fig

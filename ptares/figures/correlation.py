@@ -9,14 +9,11 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt
 import numpy as np
 
-from ptares.figures.common import COMPONENT_COLOURS, display_scale, times_power
+from ptares.figures.common import COMPONENT_COLOURS, INJECTED_COLOUR, STAMP_COLOUR, display_scale, times_power
 from ptares.physics.patterns import pattern_function
 
 __all__ = ["correlations_figure", "nulls_figure"]
 
-
-#: Injected values and curves (as in the fit and comparison figures).
-INJECTED_COLOUR = "#e36414"
 
 
 def correlations_figure(result):
@@ -98,7 +95,7 @@ def nulls_figure(result):
             ax.plot(x, null_density(x, eigenvalues), color="k", lw=1.2,
                     label=f"exact noise-only density (skewness {entry['null_skewness']:.2f})")
             exact_text = f", p exact = {entry['p_exact']:.2g}"
-        ax.axvline(observed, color="#c1121f", lw=2, label=f"observed {observed:.2f}{exact_text}")
+        ax.axvline(observed, color=STAMP_COLOUR, lw=2, label=f"observed {observed:.2f}{exact_text}")
         p_trials = entry.get("p_value")
         relation = "\u2264" if entry.get("p_value_is_bound") else "="
         trials_text = f"p from trials {relation} {p_trials:.3g}" if p_trials is not None else "no null trials"

@@ -20,7 +20,7 @@ from matplotlib.cm import ScalarMappable  # noqa: E402
 from matplotlib.lines import Line2D  # noqa: E402
 
 from ptares.dataset import Dataset, text_of  # noqa: E402
-from ptares.figures.common import COMPONENT_COLOURS, RESIDUAL_COLOUR, save_figure
+from ptares.figures.common import COMPONENT_COLOURS, INJECTED_COLOUR, RESIDUAL_COLOUR, save_figure
 from ptares.physics.patterns import pattern_function  # noqa: E402
 from ptares.physics.spectra import chromatic_scale, residual_psd, turnover  # noqa: E402
 from ptares.physics.sky import separation_matrix  # noqa: E402
@@ -34,7 +34,6 @@ __all__ = ["residuals_figure", "sky_figure", "correlation_figure", "noise_budget
 PER_PAGE = 20  #: pulsars per residuals (and noise-budget) figure; larger arrays get residuals-2.png and so on
 ROW_HEIGHT = 0.62  #: inches per pulsar row of a residuals page
 BUDGET_COLUMNS = 5  #: panels per row of a noise-budget page
-INJECTED_COLOUR = "#e36414"  #: injected values and curves that have no component colour (as in the fit figures)
 
 #: Colours of the observing systems on the residual pages, in order of first use in the dataset
 #: (chosen to stay apart from the component colours; more systems than these reuse matplotlib's tab20).

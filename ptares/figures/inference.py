@@ -21,10 +21,10 @@ from matplotlib.patches import Patch
 from matplotlib.ticker import MaxNLocator
 from scipy.ndimage import gaussian_filter
 
-from ptares.figures.common import COMPONENT_COLOURS
+from ptares.figures.common import COMPONENT_COLOURS, INJECTED_COLOUR, STAMP_COLOUR
 from ptares.inference import parameters
 
-__all__ = ["NOT_CONVERGED", "central_interval", "corner_figure", "hpd_thresholds", "trace_figure"]
+__all__ = ["NOT_CONVERGED", "central_interval", "corner_figure", "hpd_thresholds", "title_stamp", "trace_figure"]
 
 
 MAX_CORNER = 8  #: parameters shown in corner and trace figures
@@ -37,8 +37,13 @@ NOT_CONVERGED = "not converged"  #: the stamp on figures of an unconverged fit
 _DARK = "#173f5a"  # outlines and median edges
 _INNER_FILL = "#3d7fa8"
 _OUTER_FILL = "#bcd5e5"
-_INJECTED = "#e36414"
-_STAMP = "#c1121f"
+
+
+def title_stamp(ax, text: str, fontsize: float, linewidth: float):
+    """``text`` as a warning stamp over the right of ``ax``: bold, in :data:`STAMP_COLOUR`, in a white rounded box."""
+    return ax.set_title(text, loc="right", fontsize=fontsize, fontweight="bold", color=STAMP_COLOUR,
+                        bbox={"boxstyle": f"round,pad={0.025 * fontsize:.2f}", "facecolor": "white",
+                              "edgecolor": STAMP_COLOUR, "linewidth": linewidth})
 
 
 def _shown(names):
@@ -137,7 +142,7 @@ def _marginal(ax, values, limits, truth):
         ax.plot(median, peak, "o", mfc="white", mec=_DARK, ms=5, mew=1.2, zorder=4, gid="median")
         ax.set_ylim(0, 1.12 * max(curve.max(), peak, 1e-300))
     if truth is not None:
-        ax.axvline(truth, color=_INJECTED, lw=1.1, zorder=5, gid="injected")
+        ax.axvline(truth, color=INJECTED_COLOUR, lw=1.1, zorder=5, gid="injected")
     ax.set_yticks([])
     for side in ("left", "right", "top"):
         ax.spines[side].set_visible(False)
@@ -165,18 +170,18 @@ def _joint(ax, x, y, limits_x, limits_y, truth_x, truth_y):
         ax.plot(x[::step], y[::step], ".", color=_INNER_FILL, ms=2, alpha=0.5, zorder=1)
     ax.plot(*median, "o", mfc="white", mec=_DARK, ms=5, mew=1.2, zorder=4, gid="median")
     if truth_x is not None and truth_y is not None:
-        ax.plot(truth_x, truth_y, "+", color=_INJECTED, ms=11, mew=1.6, zorder=5, gid="injected")
+        ax.plot(truth_x, truth_y, "+", color=INJECTED_COLOUR, ms=11, mew=1.6, zorder=5, gid="injected")
     elif truth_x is not None:
-        ax.axvline(truth_x, color=_INJECTED, lw=0.8, zorder=5)
+        ax.axvline(truth_x, color=INJECTED_COLOUR, lw=0.8, zorder=5)
     elif truth_y is not None:
-        ax.axhline(truth_y, color=_INJECTED, lw=0.8, zorder=5)
+        ax.axhline(truth_y, color=INJECTED_COLOUR, lw=0.8, zorder=5)
 
 
 def _stamp(fig, x, y, size, rotation=10.0, **kwargs):
     """The red "not converged" stamp at figure coordinates ``(x, y)``."""
-    return fig.text(x, y, NOT_CONVERGED, ha="center", va="center", fontsize=size, fontweight="bold", color=_STAMP,
+    return fig.text(x, y, NOT_CONVERGED, ha="center", va="center", fontsize=size, fontweight="bold", color=STAMP_COLOUR,
                     rotation=rotation, zorder=10,
-                    bbox={"boxstyle": "round,pad=0.4", "facecolor": "white", "edgecolor": _STAMP, "linewidth": 2.0,
+                    bbox={"boxstyle": "round,pad=0.4", "facecolor": "white", "edgecolor": STAMP_COLOUR, "linewidth": 2.0,
                           "alpha": kwargs.pop("alpha", 1.0)}, **kwargs)
 
 
@@ -243,7 +248,7 @@ def corner_figure(samples, names, injected=None, converged: bool = True):
                Patch(facecolor=_OUTER_FILL, edgecolor=_DARK, lw=0.6, label=outer),
                Line2D([], [], ls="none", marker="o", mfc="white", mec=_DARK, mew=1.2, ms=5, label="median")]
     if any(t is not None for t in truths):
-        handles.append(Line2D([], [], ls="none", marker="+", color=_INJECTED, ms=10, mew=1.6, label="injected"))
+        handles.append(Line2D([], [], ls="none", marker="+", color=INJECTED_COLOUR, ms=10, mew=1.6, label="injected"))
     title = f"{n} of {len(names)} parameters shown" if len(names) > n else None
     corner = axes[0, n - 1].get_position()
     fig.legend(handles=handles, loc="upper right", bbox_to_anchor=(corner.x1, 1 - 0.05 / height if n == 1 else corner.y1),
@@ -282,7 +287,7 @@ def trace_figure(chain, names, burn: int = 0, injected=None, converged: bool = T
             ax.axvspan(0, burn, color="#e9c46a", alpha=0.3, lw=0)
         ax.plot(steps, chain[:, :, i], color=COMPONENT_COLOURS["gwb"], alpha=alpha, lw=0.6)
         if names[i] in injected:
-            ax.axhline(injected[names[i]], color=_INJECTED, lw=1.2)
+            ax.axhline(injected[names[i]], color=INJECTED_COLOUR, lw=1.2)
         ax.set_ylabel(parameters.label(names[i]), fontsize=8.5, rotation=0, ha="right", va="center")
         ax.tick_params(labelsize=7)
         ax.margins(x=0)
@@ -301,8 +306,7 @@ def trace_figure(chain, names, burn: int = 0, injected=None, converged: bool = T
         title = f"{noun.capitalize()} traces: " + "; ".join(words[:middle]) + ";\n" + "; ".join(words[middle:])
     axes[0, 0].set_title(title, fontsize=9, loc="left")
     if not converged:
-        axes[0, 0].set_title(NOT_CONVERGED, loc="right", fontsize=12, fontweight="bold", color=_STAMP,
-                             bbox={"boxstyle": "round,pad=0.3", "facecolor": "white", "edgecolor": _STAMP, "linewidth": 1.8})
+        title_stamp(axes[0, 0], NOT_CONVERGED, fontsize=12, linewidth=1.8)
     fig.tight_layout()
     return fig
 
@@ -325,11 +329,11 @@ def pulsar_noise_figure(rows: dict):
             if entry is None:
                 continue
             low, high = entry["interval68"]
-            colour = _STAMP if name in troubled else COMPONENT_COLOURS["gwb"]
+            colour = STAMP_COLOUR if name in troubled else COMPONENT_COLOURS["gwb"]
             ax.plot([low, high], [position, position], color=colour, lw=2.2, solid_capstyle="butt")
             ax.plot(entry["median"], position, "o", color=colour, ms=3.5)
             if entry.get("injected") is not None:
-                ax.plot(entry["injected"], position, "x", color=_INJECTED, ms=5, mew=1.4)
+                ax.plot(entry["injected"], position, "x", color=INJECTED_COLOUR, ms=5, mew=1.4)
         ax.set_xlabel(parameters.LABELS[q], fontsize=9)
         ax.tick_params(labelsize=7)
         ax.grid(axis="x", color="#dddddd", lw=0.6)
@@ -337,7 +341,7 @@ def pulsar_noise_figure(rows: dict):
     axes[0, 0].set_yticklabels(names, fontsize=7 if len(names) < 60 else 6)
     for label in axes[0, 0].get_yticklabels():
         if label.get_text() in troubled:
-            label.set_color(_STAMP)
+            label.set_color(STAMP_COLOUR)
     axes[0, 0].set_ylim(-0.8, len(names) - 0.2)
     note = "median and 68% interval of each pulsar's noise fitted alone; orange x: injected"
     if troubled:
@@ -370,7 +374,7 @@ def spectrum_figure(content: dict, refit_draws: dict, converged: bool = True):
             label="free spectrum (median, 68%, 95%)")
     if any("injected" in b for b in bins):
         known = [(f, b["injected"]) for f, b in zip(frequency, bins) if "injected" in b]
-        ax.plot([f * 1e9 for f, _ in known], power([v for _, v in known]), "x", color=_INJECTED, markersize=6,
+        ax.plot([f * 1e9 for f, _ in known], power([v for _, v in known]), "x", color=INJECTED_COLOUR, markersize=6,
                 mew=1.5, zorder=4, label="injected")
     grid = np.geomspace(frequency[0] * 0.8, frequency[-1] * 1.25, 200)
     for name, draws in refit_draws.items():

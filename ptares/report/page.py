@@ -21,7 +21,10 @@ from pathlib import Path
 
 import numpy as np
 
-from ptares.dataset import atomic_path, load_dataset
+from ptares.dataset import atomic_path, describe_signal, load_dataset
+from ptares.inference.samplers.chains import EVIDENCE
+from ptares.inputs.config import read_json
+from ptares.physics.constants import YEAR
 from ptares.errors import InputError
 from ptares.version import __version__
 
@@ -139,10 +142,11 @@ def _figure(path: Path) -> str:
 
 
 def _read_json(path: Path) -> dict:
-    try:
-        return json.loads(path.read_text())
-    except (OSError, ValueError) as exc:
-        raise InputError(f"cannot be read as JSON ({exc})", str(path)) from None
+    """An output's JSON object, read by the one checked reader (:func:`ptares.inputs.config.read_json`)."""
+    content = read_json(path)
+    if not isinstance(content, dict):
+        raise InputError("expected a JSON object, as ptares writes it", str(path))
+    return content
 
 
 def _figures(folder: Path, names) -> list:
@@ -153,16 +157,14 @@ def _figures(folder: Path, names) -> list:
     return [p for p in found if p.is_file()]
 
 
-def _dataset_section(folder: Path, claimed: set):
+def _dataset_section(folder: Path):
     path = folder / "dataset.h5"
     if not path.is_file():
         return None
     dataset = load_dataset(path)
-    from ptares.dataset import describe_signal
-
     section = Section("dataset", "Simulated dataset")
     section.numbers = [("pulsars", len(dataset.pulsars)), ("TOAs", dataset.toa_count),
-                       ("span (yr)", dataset.span / (365.25 * 86400)), ("first epoch (MJD)", f"{dataset.start_mjd:.4f}"),
+                       ("span (yr)", dataset.span / YEAR), ("first epoch (MJD)", f"{dataset.start_mjd:.4f}"),
                        ("seed", dataset.seed)]
     section.numbers += [(f"signal: {name}", describe_signal(name, values)) for name, values in dataset.signals.items()]
     section.tables.append(Table(
@@ -172,11 +174,10 @@ def _dataset_section(folder: Path, claimed: set):
     section.figures = _figures(folder, ["sky.png", "residuals*.png", "noise_budget*.png", "correlation.png"])
     if dataset.config:
         section.text.append(("Config", dataset.config))
-    claimed.update(section.figures)
     return section, dataset
 
 
-def _correlate_section(folder: Path, claimed: set):
+def _correlate_section(folder: Path):
     path = folder / "correlations.json"
     if not path.is_file():
         return None
@@ -200,7 +201,6 @@ def _correlate_section(folder: Path, claimed: set):
                        ("noise model", content.get("settings", {}).get("noise"))]
     section.figures = _figures(folder, ["correlations.png", "nulls.png"])
     section.text.append(("Settings", json.dumps(content.get("settings", {}), indent=1)))
-    claimed.update(section.figures)
     return section
 
 
@@ -216,7 +216,7 @@ def _fit_warnings(summary: dict, label: str) -> list:
     return warnings
 
 
-def _fit_section(folder: Path, claimed: set, ident: str = "fit", title: str = "Bayesian fit"):
+def _fit_section(folder: Path, ident: str = "fit", title: str = "Bayesian fit"):
     path = folder / "posterior.json"
     if not path.is_file():
         return None
@@ -225,18 +225,18 @@ def _fit_section(folder: Path, claimed: set, ident: str = "fit", title: str = "B
     section.numbers = [("converged", summary.get("converged")), ("sampler", summary.get("sampler")),
                        ("steps", summary.get("steps")), ("walkers or chains", summary.get("walkers")),
                        ("burn-in", summary.get("burn"))]
-    for key, what in (("common_process", ("common amplitude", "common process")),
-                      ("memory_step", ("memory strain", "memory step"))):
+    for key, signal in EVIDENCE.items():
         entry = summary.get(key) or {}
         limit = entry.get("upper_limit") or {}
         if limit:
-            section.numbers.append((f"95% upper limit on the {what[0]}", limit.get("amplitude")))
+            section.numbers.append((f"95% upper limit on the {signal.label}'s amplitude {signal.symbol}",
+                                    limit.get("amplitude")))
         dickey = entry.get("savage_dickey") or {}
         if dickey:
             value = dickey.get("ln_bayes_factor")
             if value is None and dickey.get("ln_bayes_factor_lower_bound") is not None:
                 value = f"> {dickey['ln_bayes_factor_lower_bound']:.3g} (no draw near the prior's lower edge)"
-            section.numbers.append((f"Savage–Dickey ln B ({what[1]})", value))
+            section.numbers.append((f"Savage–Dickey ln B ({signal.label})", value))
     rows = []
     for name, p in summary.get("parameters", {}).items():
         low68, high68 = (p.get("interval68") or [None, None])[:2]
@@ -248,11 +248,10 @@ def _fit_section(folder: Path, claimed: set, ident: str = "fit", title: str = "B
                                 f"{ident}-parameters"))
     section.warnings = _fit_warnings(summary, title)
     section.figures = _figures(folder, ["corner.png", "trace.png", "spectrum.png"])
-    claimed.update(section.figures)
     return section
 
 
-def _compare_section(folder: Path, claimed: set):
+def _compare_section(folder: Path):
     path = folder / "comparison.json"
     if not path.is_file():
         return None
@@ -271,11 +270,10 @@ def _compare_section(folder: Path, claimed: set):
     elif content.get("warning"):
         section.warnings.append(str(content["warning"]))
     section.figures = _figures(folder, ["comparison.png"])
-    claimed.update(section.figures)
     return section
 
 
-def _sweep_section(folder: Path, claimed: set):
+def _sweep_section(folder: Path):
     path = folder / "results.csv"
     if not path.is_file():
         return None
@@ -306,11 +304,10 @@ def _sweep_section(folder: Path, claimed: set):
     if unreliable:
         section.warnings.append(f"{len(unreliable)} task(s) with an unreliable Bayes factor")
     section.figures = _figures(folder, ["detection.png", "recovery.png", "snr.png", "coverage.png", "bayes.png"])
-    claimed.update(section.figures)
     return section
 
 
-def _sensitivity_section(folder: Path, claimed: set):
+def _sensitivity_section(folder: Path):
     path = folder / "sensitivity.json"
     if not path.is_file():
         return None
@@ -337,11 +334,10 @@ def _sensitivity_section(folder: Path, claimed: set):
                                                       y.get("detection_probability", []))], "forecast-years"))
     section.figures = _figures(folder, ["sensitivity.png", "detection.png", "continuous_wave.png",
                                         "continuous_wave_sky.png"])
-    claimed.update(section.figures)
     return section
 
 
-def _noise_section(folder: Path, claimed: set):
+def _noise_section(folder: Path):
     path = folder / "pulsar_noise.json"
     if not path.is_file():
         return None
@@ -356,7 +352,6 @@ def _noise_section(folder: Path, claimed: set):
             section.warnings.append(f"{name}: its noise fit has not converged")
     section.tables.append(Table("Pulsars", ["pulsar", "status", "converged"], rows, "noise-pulsars"))
     section.figures = _figures(folder, ["pulsar_noise.png"])
-    claimed.update(section.figures)
     return section
 
 
@@ -386,20 +381,20 @@ def build_report(folder, out=None) -> Report:
         raise InputError("is not a folder", str(folder))
     if not any((folder / name).is_file() for name in KNOWN_OUTPUTS):
         raise InputError(f"holds no ptares outputs (none of {', '.join(KNOWN_OUTPUTS)})", str(folder))
-    claimed: set = set()
     sections, dataset = [], None
-    found = _dataset_section(folder, claimed)
+    found = _dataset_section(folder)
     if found is not None:
         section, dataset = found
         sections.append(section)
     for reader in (_sensitivity_section, _correlate_section, _fit_section, _compare_section, _noise_section,
                    _sweep_section):
-        section = reader(folder, claimed)
+        section = reader(folder)
         if section is not None:
             sections.append(section)
-    uncorrelated = folder / "uncorrelated"
-    if (uncorrelated / "posterior.json").is_file():
-        sections.append(_fit_section(uncorrelated, claimed, "uncorrelated-fit", "Uncorrelated fit (for the Bayes factor)"))
+    section = _fit_section(folder / "uncorrelated", "uncorrelated-fit", "Uncorrelated fit (for the Bayes factor)")
+    if section is not None:
+        sections.append(section)
+    claimed = {p for s in sections for p in s.figures}
     others = [p for p in sorted(folder.glob("*.png")) if p not in claimed]
     if others:
         sections.append(Section("other-figures", "Other figures", figures=others))

@@ -16,6 +16,7 @@ import hashlib
 import json
 import time
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import emcee
 import h5py
@@ -186,6 +187,22 @@ def saved_draws(path) -> np.ndarray:
     return posterior_draws(chain, verdict.burn)
 
 
+class EvidenceOf(NamedTuple):
+    """A signal whose lg amplitude the summary gives a 95% upper limit and a Savage–Dickey ln B."""
+
+    parameter: str  #: its lg amplitude parameter
+    label: str  #: what it is, in words
+    symbol: str  #: its amplitude's symbol
+    column: str  #: results.csv column of its Savage–Dickey ln B
+
+
+#: Summary key -> the signal it reports on (``posterior.json``, ``ptares fit``, the report page, campaign rows).
+EVIDENCE = {
+    "common_process": EvidenceOf(COMMON_AMPLITUDE, "common process", "A", "common_ln_savage_dickey"),
+    "memory_step": EvidenceOf(memory("lg_strain"), "memory step", "h", "memory_ln_savage_dickey"),
+}
+
+
 def summarise(model, run: FitRun) -> dict:
     """The contents of ``posterior.json``: per parameter its median, intervals, autocorrelation
     time, effective samples (and split R-hat for independent chains); the convergence verdict and why."""
@@ -215,8 +232,7 @@ def summarise(model, run: FitRun) -> dict:
 
     return {
         "parameters": parameters,
-        "common_process": evidence(COMMON_AMPLITUDE),
-        "memory_step": evidence(memory("lg_strain")),
+        **{key: evidence(signal.parameter) for key, signal in EVIDENCE.items()},
         "sampler": run.sampler,
         "acceptance_fraction": run.acceptance_fraction,
         "effective_samples": float(np.min(verdict.effective_samples)) if verdict.effective_samples.size else 0.0,
