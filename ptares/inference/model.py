@@ -26,6 +26,7 @@ from ptares.errors import InputError, PhysicsWarning
 from ptares.inference import priors as prior_module
 from ptares.inference.likelihood import Likelihood, NotPositiveDefinite
 from ptares.inference.pulsar_noise import read_pulsar_noise
+from ptares.inference.spectral_models import MODELS as SPECTRAL_MODELS
 from ptares.inference.parameters import (
     BINARY_QUANTITIES,
     CHROMATIC,
@@ -53,7 +54,7 @@ from ptares.inference.parameters import (
     split,
 )
 from ptares.inputs.config import FitSection
-from ptares.physics.spectra import coefficient_variance, turnover
+from ptares.physics.spectra import coefficient_variance
 from ptares.physics.constants import DAY
 from ptares.physics.waveforms import MemoryStep, plane_wave_residuals
 from ptares.simulation.signals.continuous import Binary, PulsarLayout
@@ -66,12 +67,11 @@ __all__ = ["FitModel", "DEFAULT_PRIORS", "binary_frequency_prior", "binary_strai
 #: strain and frequency priors come from the data (:func:`binary_strain_prior`,
 #: :func:`binary_frequency_prior`); its angles cover their full ranges.
 DEFAULT_PRIORS = {
-    COMMON_AMPLITUDE: prior_module.Uniform(-18.0, -12.0),
-    COMMON_INDEX: prior_module.Uniform(0.0, 7.0),
+    # the common process's ranges are those of the spectral models refitted from a free spectrum
+    **{name: prior_module.Uniform(*bounds) for name, bounds in
+       zip((COMMON_AMPLITUDE, COMMON_INDEX, COMMON_BEND, COMMON_BEND_INDEX), SPECTRAL_MODELS["turnover"].ranges)},
     COMMON_VARIANCE: prior_module.Uniform(-20.0, -8.0),  # lg of s^2: coefficient rms from 0.1 ns to 0.1 ms
     RED_VARIANCE: prior_module.Uniform(-20.0, -8.0),
-    COMMON_BEND: prior_module.Uniform(-9.5, -7.0),  # the refit's turnover ranges (ptares.inference.spectral_models)
-    COMMON_BEND_INDEX: prior_module.Uniform(0.0, 8.0),
     RED_AMPLITUDE: prior_module.Uniform(-20.0, -11.0),
     RED_INDEX: prior_module.Uniform(0.0, 7.0),
     WHITE_SCALE: prior_module.Uniform(0.1, 5.0),
@@ -200,10 +200,8 @@ def _bent_power_law(span: float, harmonics: int, lg_amplitude: float, gamma: flo
     zero for a vanishing amplitude."""
     if not np.isfinite(lg_amplitude):
         return np.zeros(harmonics)
-    variances = coefficient_variance(span, harmonics, 10 ** lg_amplitude, gamma)
-    if bend_frequency > 0:
-        variances = variances * turnover(np.arange(1, harmonics + 1) / span, bend_frequency, bend_index)
-    return variances
+    return coefficient_variance(span, harmonics, 10 ** lg_amplitude, gamma, bend_frequency if bend_frequency > 0 else None,
+                                bend_index)
 
 
 def _subset(dataset: Dataset, names) -> Dataset:
@@ -362,6 +360,9 @@ class FitModel:
         self.names = free
         self.values = values
         self.priors = [self._prior(name) for name in free]
+        # names the log posterior looks up on every call, formatted once
+        self._spectrum_bins = [spectrum_bin(k) for k in range(1, self.harmonics + 1)]
+        self._red_bins = [[red_bin(k, n) for k in range(1, self.likelihood.red_harmonics + 1)] for n in dataset.names]
         self._times = [q.times for q in self.likelihood.pulsars]  # s from the dataset's start, per pulsar
         self._layout = PulsarLayout.of(  # catalogue distances: the fit cannot know the true ones
             [p.position for p in dataset.pulsars], [p.distance for p in dataset.pulsars], self._times)
@@ -389,7 +390,7 @@ class FitModel:
         if self.section.common == "none" or self.section.common_spectrum == "power_law":
             return None
         if self.section.common_spectrum == "free":
-            return 10.0 ** np.array([v[spectrum_bin(k)] for k in range(1, self.harmonics + 1)])
+            return 10.0 ** np.array([v[name] for name in self._spectrum_bins])
         return _bent_power_law(self.dataset.span, self.harmonics, v[COMMON_AMPLITUDE], v[COMMON_INDEX],
                                10 ** v[COMMON_BEND], v[COMMON_BEND_INDEX])
 
@@ -523,8 +524,8 @@ class FitModel:
             amplitude=10 ** v[COMMON_AMPLITUDE] if COMMON_AMPLITUDE in v else 0.0,
             gamma=v.get(COMMON_INDEX, 13.0 / 3.0),
             common_variances=self.common_variances(v),
-            red_variances=(10.0 ** np.array([[v[red_bin(k, n)] for k in range(1, self.likelihood.red_harmonics + 1)]
-                                             for n in names]) if self.red_spectrum == "free" else None),
+            red_variances=(10.0 ** np.array([[v[name] for name in row] for row in self._red_bins])
+                           if self.red_spectrum == "free" else None),
             chromatic={process: (np.array([10 ** v[for_pulsar(CHROMATIC[process][0], n)] for n in names]),
                                  np.array([v[for_pulsar(CHROMATIC[process][1], n)] for n in names]))
                        for process in self.chromatic_modes},

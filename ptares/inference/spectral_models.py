@@ -29,7 +29,7 @@ import numpy as np
 from scipy import stats
 
 from ptares.inference.priors import support
-from ptares.physics.spectra import residual_psd, turnover
+from ptares.physics.spectra import fourier_frequencies, residual_psd, turnover
 
 __all__ = ["MODELS", "SpectralModel", "refit", "bin_likelihood", "spectrum_content"]
 
@@ -89,7 +89,7 @@ def refit(draws: np.ndarray, priors, span: float, model: str, seed: int = 0, ste
 
     spec = MODELS[model]
     grids, tables = bin_likelihood(draws, priors)
-    frequency = np.arange(1, draws.shape[1] + 1) / span
+    frequency = fourier_frequencies(span, draws.shape[1])
     lows, highs = np.array([r[0] for r in spec.ranges]), np.array([r[1] for r in spec.ranges])
 
     def log_probability(theta):

@@ -124,9 +124,13 @@ def chromatic_scale(frequency_mhz, chromatic_index: float) -> np.ndarray:
     return (REFERENCE_FREQUENCY_MHZ / np.asarray(frequency_mhz, dtype=float)) ** chromatic_index
 
 
-def coefficient_variance(span: float, harmonics: int, amplitude: float, gamma: float) -> np.ndarray:
-    """Variance ``S(f_k) / T`` (s^2) of each sine and each cosine coefficient."""
-    return residual_psd(fourier_frequencies(span, harmonics), amplitude, gamma) / span
+def coefficient_variance(span: float, harmonics: int, amplitude: float, gamma: float, bend_frequency=None,
+                         bend_index: float = 2.0) -> np.ndarray:
+    """Variance ``S(f_k) / T`` (s^2) of each sine and each cosine coefficient; with ``bend_frequency`` (Hz) the power
+    law turns over below it (:func:`turnover`)."""
+    frequency = fourier_frequencies(span, harmonics)
+    variance = residual_psd(frequency, amplitude, gamma) / span
+    return variance if bend_frequency is None else variance * turnover(frequency, bend_frequency, bend_index)
 
 
 def power_law_factors(span: float, harmonics: int):

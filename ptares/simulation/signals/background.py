@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ptares.physics.patterns import correlation_matrix
-from ptares.physics.spectra import coefficient_variance, turnover
+from ptares.physics.spectra import coefficient_variance
 from ptares.rng import stream
 from ptares.simulation.signals.base import Context, synthesise_array
 
@@ -60,10 +60,8 @@ class GaussianBackground:
         factor = lower_factor(correlation_matrix(positions, self.correlation))
         z = np.array([stream(context.seed, self.name, p.name).standard_normal((2, self.harmonics)) for p in context.pulsars])
         span = context.observations.span
-        variance = coefficient_variance(span, self.harmonics, self.amplitude, self.spectral_index)
-        if self.bend_frequency is not None:
-            variance = variance * turnover(np.arange(1, self.harmonics + 1) / span, self.bend_frequency, self.bend_index)
-        sd = np.sqrt(variance)
+        sd = np.sqrt(coefficient_variance(span, self.harmonics, self.amplitude, self.spectral_index,
+                                          self.bend_frequency, self.bend_index))
         coefficients = np.einsum("ab,bck->cak", factor, z) * sd
         return synthesise_array(context.observations, coefficients[0], coefficients[1])
 
