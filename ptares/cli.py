@@ -81,8 +81,7 @@ def _report(args) -> int:
     from ptares import api
 
     result = api.report(args.folder, args.out, threads=args.threads)
-    target = args.out or f"{args.folder}/report.html"
-    print(f"wrote {target}: {len(result.sections)} section(s), {len(result.warnings)} warning(s)")
+    print(f"wrote {result.path}: {len(result.sections)} section(s), {len(result.warnings)} warning(s)")
     for where, text in result.warnings:
         print(f"  warning ({where}): {text}")
     return 0

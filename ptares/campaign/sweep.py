@@ -85,7 +85,7 @@ def read_results(path) -> list:
 def run_sweep(path, out, workers: int = 1, scheduler=None, overwrite: bool = False, progress: bool = True) -> list:
     """Run (or resume) the sweep of the config at ``path`` into ``out``; returns all rows."""
     base, section = load_sweep(path)
-    tasks = expand(base, section, where=f"{path}: sweep", folder=Path(path).parent)
+    tasks = expand(base, section, where=f"{path}: sweep", source=path)
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     fingerprint = _fingerprint(base, section)

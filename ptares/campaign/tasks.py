@@ -62,7 +62,7 @@ class Task:
     values: tuple  #: ((dotted key, value), ...) of this task's axes
     raw: dict  #: the task's complete config, as TOML-like data
     stages: tuple
-    folder: str = ""  #: the sweep file's folder, absolute: the task config's files are relative to it
+    source: str = ""  #: the sweep file, absolute: the task config's files are relative to its folder
 
 
 def _set(raw: dict, dotted: str, value) -> None:
@@ -122,12 +122,12 @@ MAX_TASKS = 1_000_000
 FULL_CHECK = 2000
 
 
-def expand(base: dict, section: SweepSection, where: str = "sweep", folder=None) -> list:
+def expand(base: dict, section: SweepSection, where: str = "sweep", source=None) -> list:
     """Every task of the sweep, in index order.  Every combination of axis values is validated first: a task
-    config that would fail (an unknown axis key, a value out of range) is an error naming the axis.  ``folder``:
-    the sweep file's folder, which the files a task config names (a wave's table) are relative to, wherever
-    the task runs (default: the working folder)."""
-    folder = str(Path(folder if folder is not None else Path.cwd()).resolve())
+    config that would fail (an unknown axis key, a value out of range) is an error naming the axis.  ``source``:
+    the sweep file, whose folder the files a task config names (a wave's table) are relative to, wherever the
+    task runs (default: none, the working folder)."""
+    source = str(Path(source).resolve()) if source is not None else ""
     keys = list(section.axes)
     if "run.seed" in keys:
         raise InputError("run.seed cannot be an axis: task seeds derive from [sweep] seed", f"{where}.axes")
@@ -156,7 +156,7 @@ def expand(base: dict, section: SweepSection, where: str = "sweep", folder=None)
             seed = derive_seed(section.seed, index)
             task_raw = copy.deepcopy(raw)
             task_raw.setdefault("run", {})["seed"] = seed
-            tasks.append(Task(index, r, seed, tuple(zip(keys, combination)), task_raw, section.stages, folder))
+            tasks.append(Task(index, r, seed, tuple(zip(keys, combination)), task_raw, section.stages, source))
     return tasks
 
 
@@ -248,7 +248,7 @@ def run_task(task: Task) -> dict:
     row = {"index": task.index, "realisation": task.realisation, "seed": task.seed}
     row.update({f"axis:{key}": value for key, value in task.values})
     try:
-        config = config_from_data(task.raw, "config", Path(task.folder or Path.cwd()) / "sweep.toml")
+        config = config_from_data(task.raw, "config", Path(task.source) if task.source else None)
         data = simulate(config)
         gwb = data.signals.get("gwb", {})
         row.update(injected_amplitude=float(gwb.get("amplitude", 0.0)), injected_spectral_index=gwb.get("spectral_index"),

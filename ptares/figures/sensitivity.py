@@ -7,6 +7,7 @@ import numpy as np
 import matplotlib.pyplot as plt
 
 from ptares.figures.common import COMPONENT_COLOURS
+from ptares.physics.spectra import fourier_frequencies
 
 __all__ = ["curves_figure", "detection_figure", "wave_figure", "wave_sky_figure"]
 
@@ -17,7 +18,7 @@ _INTEGRATED = "#7a4fa3"
 
 def _fourier_ticks(ax, span: float, harmonics: int) -> None:
     """Short ticks at the Fourier frequencies ``k / span`` of the forecast's template, along the bottom."""
-    basis = np.arange(1, harmonics + 1) / span
+    basis = fourier_frequencies(span, harmonics)
     ax.plot(basis, np.full(basis.size, 0.0), "|", color=COMPONENT_COLOURS["gwb"], markersize=6, alpha=0.6,
             transform=ax.get_xaxis_transform(), clip_on=False)
 

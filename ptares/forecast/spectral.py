@@ -37,9 +37,9 @@ import numpy as np
 
 from ptares.correlation.noise import NoiseModel
 from ptares.dataset import Dataset
-from ptares.physics.constants import DAY
+from ptares.physics.constants import DAY, F_YR
 from ptares.physics.patterns import correlation_matrix
-from ptares.physics.spectra import chromatic_scale, residual_psd
+from ptares.physics.spectra import chromatic_scale, fourier_frequencies, residual_psd
 
 __all__ = [
     "PulsarSpectra",
@@ -160,11 +160,11 @@ def array_curve(spectra: PulsarSpectra, positions, span: float) -> np.ndarray:
         return 1.0 / np.sqrt(total)
 
 
-def _on_basis(spectra: PulsarSpectra, span: float, harmonics: int) -> np.ndarray:
-    """Strain-noise spectra (P, K) at the Fourier frequencies ``k / span`` (interpolated in logs)."""
-    basis = np.arange(1, harmonics + 1) / span
-    log_f = np.log(spectra.frequency)
-    return np.exp(np.array([np.interp(np.log(basis), log_f, np.log(s)) for s in spectra.strain]))
+def _log_interpolated(at, frequency, values) -> np.ndarray:
+    """``values`` (..., F) on the grid ``frequency`` (F,), interpolated in logs to the frequencies ``at``."""
+    log_at, log_f = np.log(at), np.log(frequency)
+    return np.exp(np.array([np.interp(log_at, log_f, np.log(v)) for v in np.atleast_2d(values)]).reshape(
+        np.shape(values)[:-1] + (len(at),)))
 
 
 def background_snr(spectra: PulsarSpectra, positions, span: float, harmonics: int, amplitude, gamma: float) -> dict:
@@ -172,8 +172,8 @@ def background_snr(spectra: PulsarSpectra, positions, span: float, harmonics: in
     Fourier frequencies: ``weak`` (noise only in each pulsar), ``with_auto_power`` (the background's own
     power added to each pulsar's noise), ``signal_aware`` (and to each pair's variance)."""
     amplitude = np.atleast_1d(np.asarray(amplitude, dtype=float))
-    basis = np.arange(1, harmonics + 1) / span
-    noise = _on_basis(spectra, span, harmonics)  # (P, K)
+    basis = fourier_frequencies(span, harmonics)
+    noise = _log_interpolated(basis, spectra.frequency, spectra.strain)  # (P, K)
     gamma_ab = correlation_matrix(positions, "hellings-downs")
     a, b = np.triu_indices(len(positions), 1)
     g2 = gamma_ab[a, b] ** 2
@@ -201,12 +201,10 @@ def power_law_integrated(frequency, effective, span: float, snr: float, alphas=n
     ``snr^2``; the curve is ``max_alpha A_alpha (f / f_yr)^alpha``.  Returns ``h_c`` (F,) and the
     amplitudes (per alpha, at f_yr).
     """
-    from ptares.physics.constants import F_YR
-
     frequency = np.asarray(frequency, dtype=float)
-    basis = np.arange(1, int(frequency.max() * span) + 1) / span
+    basis = fourier_frequencies(span, int(frequency.max() * span))
     basis = basis[basis >= frequency.min()]
-    noise = np.exp(np.interp(np.log(basis), np.log(frequency), np.log(effective)))
+    noise = _log_interpolated(basis, frequency, effective)
     amplitudes = []
     for alpha in alphas:
         shape = (basis / F_YR) ** (2.0 * alpha) / basis  # S_h of unit amplitude: h_c^2 / f

@@ -65,6 +65,7 @@ class Report:
     folder: Path
     provenance: list
     sections: list
+    path: Path = None  #: where the page was written
 
     @property
     def warnings(self) -> list:
@@ -398,8 +399,8 @@ def build_report(folder, out=None) -> Report:
     others = [p for p in sorted(folder.glob("*.png")) if p not in claimed]
     if others:
         sections.append(Section("other-figures", "Other figures", figures=others))
-    report = Report(folder, _provenance(folder, dataset), sections)
     target = Path(out) if out is not None else folder / "report.html"
+    report = Report(folder, _provenance(folder, dataset), sections, target)
     try:
         with atomic_path(target) as temporary:
             temporary.write_text(report.html(), encoding="utf-8")

@@ -24,10 +24,9 @@ def choose_sampler(model) -> str:
     chosen = model.section.sampler
     if chosen != "auto":
         return chosen
-    from ptares.inference.samplers.gibbs import gibbs_can_sample
+    from ptares.inference.samplers.gibbs import why_gibbs_cannot_sample
 
-    gibbs = (model.ndim > GIBBS_ABOVE and not (model.section.binary or model.section.memory)
-             and gibbs_can_sample(model))
+    gibbs = model.ndim > GIBBS_ABOVE and why_gibbs_cannot_sample(model) is None
     return "gibbs" if gibbs else "ensemble"
 
 

@@ -142,13 +142,9 @@ class GibbsSampler:
     """Blocked Gibbs sampler of a :class:`~ptares.inference.model.FitModel` without a continuous wave."""
 
     def __init__(self, model):
-        if model.section.binary or model.section.memory:
-            raise InputError("the Gibbs sampler has no step for a continuous wave or a memory step; use "
-                             "sampler = \"ensemble\"", "fit.sampler")
-        if not gibbs_can_sample(model):
-            raise InputError("the Gibbs sampler has no step for free white noise per observing system or epoch jitter "
-                             "yet; hold them (white = \"injected\", jitter = \"injected\") or use sampler = \"ensemble\"",
-                             "fit.sampler")
+        reason = why_gibbs_cannot_sample(model)
+        if reason:
+            raise InputError(f"the Gibbs sampler has no step for {reason}", "fit.sampler")
         self.model = model
         self.likelihood = model.likelihood
         names = model.dataset.names
@@ -640,12 +636,17 @@ def _slice_step(log_density, start: float, rng, low: float, high: float, width: 
     return float(start)
 
 
-def gibbs_can_sample(model) -> bool:
-    """Whether the sampler has a step for every free noise parameter of ``model``: not for a free jitter, nor for
-    free white noise beside jitter or per observing system (its white step has neither yet)."""
+def why_gibbs_cannot_sample(model):
+    """What of ``model`` the sampler has no step for, with the way out, or None when it can sample it: not for a
+    deterministic signal (a continuous wave, a memory step), a free jitter, nor free white noise beside jitter or
+    per observing system (its white step has neither yet)."""
+    if model.section.binary or model.section.memory:
+        return 'a continuous wave or a memory step; use sampler = "ensemble"'
     per_system = any(p.systems for p in model.dataset.pulsars)
-    return model.jitter_mode != "free" and not (model.section.white == "free"
-                                               and (per_system or model.jitter_mode != "none"))
+    if model.jitter_mode == "free" or (model.section.white == "free" and (per_system or model.jitter_mode != "none")):
+        return ('free white noise per observing system or epoch jitter yet; hold them (white = "injected", '
+                'jitter = "injected") or use sampler = "ensemble"')
+    return None
 
 
 def adaptation_steps(section) -> int:
