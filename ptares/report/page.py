@@ -142,8 +142,11 @@ def _figure(path: Path) -> str:
     return f"<figure><img src='data:image/png;base64,{data}' alt='{name}'><figcaption>{name}</figcaption></figure>"
 
 
-def _read_json(path: Path) -> dict:
-    """An output's JSON object, read by the one checked reader (:func:`ptares.inputs.config.read_json`)."""
+def _read_json(path: Path):
+    """An output's JSON object, read by the one checked reader (:func:`ptares.inputs.config.read_json`); None when
+    the folder has no such file."""
+    if not path.is_file():
+        return None
     content = read_json(path)
     if not isinstance(content, dict):
         raise InputError("expected a JSON object, as ptares writes it", str(path))
@@ -179,10 +182,9 @@ def _dataset_section(folder: Path):
 
 
 def _correlate_section(folder: Path):
-    path = folder / "correlations.json"
-    if not path.is_file():
+    content = _read_json(folder / "correlations.json")
+    if content is None:
         return None
-    content = _read_json(path)
     section = Section("correlate", "Cross-correlations and optimal statistic")
     rows = []
     for name in ("hellings-downs", "monopole", "dipole"):
@@ -218,10 +220,9 @@ def _fit_warnings(summary: dict, label: str) -> list:
 
 
 def _fit_section(folder: Path, ident: str = "fit", title: str = "Bayesian fit"):
-    path = folder / "posterior.json"
-    if not path.is_file():
+    summary = _read_json(folder / "posterior.json")
+    if summary is None:
         return None
-    summary = _read_json(path)
     section = Section(ident, title)
     section.numbers = [("converged", summary.get("converged")), ("sampler", summary.get("sampler")),
                        ("steps", summary.get("steps")), ("walkers or chains", summary.get("walkers")),
@@ -253,10 +254,9 @@ def _fit_section(folder: Path, ident: str = "fit", title: str = "Bayesian fit"):
 
 
 def _compare_section(folder: Path):
-    path = folder / "comparison.json"
-    if not path.is_file():
+    content = _read_json(folder / "comparison.json")
+    if content is None:
         return None
-    content = _read_json(path)
     section = Section("compare", "Bayes factor")
     section.numbers = [("ln B (Hellings–Downs against uncorrelated)", content.get("ln_bayes_factor")),
                        ("its standard error", content.get("ln_bayes_factor_error")), ("method", content.get("method")),
@@ -284,9 +284,8 @@ def _sweep_section(folder: Path):
     section = Section("sweep", "Campaign")
     failed = [r for r in rows if r.get("status") != "ok"]
     section.numbers = [("tasks", len(rows)), ("failed", len(failed))]
-    detection = folder / "detection.json"
-    if detection.is_file():
-        content = _read_json(detection)
+    content = _read_json(folder / "detection.json")
+    if content is not None:
         section.numbers += [("false-alarm probability", content.get("false_alarm")), ("detection rule", content.get("rule")),
                             ("threshold set", content.get("how"))]
         section.tables.append(Table("Detection probability", ["injected amplitude", "detected share", "binomial error", "tasks"],
@@ -309,10 +308,9 @@ def _sweep_section(folder: Path):
 
 
 def _sensitivity_section(folder: Path):
-    path = folder / "sensitivity.json"
-    if not path.is_file():
+    content = _read_json(folder / "sensitivity.json")
+    if content is None:
         return None
-    content = _read_json(path)
     section = Section("sensitivity", "Sensitivity and forecasts")
     r = content.get("reference_background", {})
     settings = content.get("settings", {})
@@ -339,10 +337,9 @@ def _sensitivity_section(folder: Path):
 
 
 def _noise_section(folder: Path):
-    path = folder / "pulsar_noise.json"
-    if not path.is_file():
+    content = _read_json(folder / "pulsar_noise.json")
+    if content is None:
         return None
-    content = _read_json(path)
     section = Section("noise", "Per-pulsar noise")
     rows = []
     for name, row in content.get("pulsars", {}).items():
@@ -358,8 +355,7 @@ def _noise_section(folder: Path):
 
 def _provenance(folder: Path, dataset) -> list:
     rows = []
-    path = folder / "provenance.json"
-    record = _read_json(path) if path.is_file() else {}
+    record = _read_json(folder / "provenance.json") or {}
     for key, label in (("command", "command"), ("kind", "what ran"), ("ptares_version", "ptares version"),
                        ("finished", "finished (UTC)"), ("seed", "seed"), ("source", "source"), ("threads", "threads"),
                        ("python", "Python")):
